@@ -1,0 +1,159 @@
+package roi
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"voxgamma/volume"
+)
+
+// Union returns the region made of regions together: a voxel's centre is
+// inside when it is inside any of them, and its fraction is the largest of
+// theirs (the union of partial volumes is at least the largest of them; the
+// maximum is exact when they are nested and never counts an overlap twice).
+// All regions must belong to grids of the same geometry. The result has
+// Number 0 and Derived set to a description.
+func Union(name string, kind Kind, regions []*Region) (*Region, error) {
+	if len(regions) == 0 {
+		return nil, fmt.Errorf("roi: union %q of no region", name)
+	}
+	first := regions[0]
+	u := &Region{Name: name, Kind: kind, Box: emptyBox(), grid: first.grid, sizes: first.sizes}
+	names := ""
+	for q, r := range regions {
+		if r.grid == nil || first.grid == nil || !r.grid.SameGeometry(first.grid) {
+			return nil, fmt.Errorf("roi: union %q: ROI %q is on a different grid from ROI %q", name, r.Name, first.Name)
+		}
+		if q > 0 {
+			names += ", "
+		}
+		names += r.Name
+		u.Centres = unionInts(u.Centres, r.Centres)
+		u.Index, u.Fraction = unionMax(u.Index, u.Fraction, r.Index, r.Fraction)
+		u.ContourCC += r.ContourCC
+		u.OutsideCC += r.OutsideCC
+	}
+	// ContourCC and OutsideCC of a union are sums over its members: an
+	// upper bound when members overlap.
+	u.Derived = "union of " + names
+	u.setBox()
+	return u, nil
+}
+
+// AllTargets returns the union of the regions of kind Target, named
+// "all targets", or nil when there is none.
+func AllTargets(regions []*Region) (*Region, error) {
+	return unionOfKind("all targets", Target, regions)
+}
+
+// BodyOf returns the union of the regions of kind Body (EXTERNAL contours),
+// named "body", or nil when there is none.
+func BodyOf(regions []*Region) (*Region, error) {
+	return unionOfKind("body", Body, regions)
+}
+
+func unionOfKind(name string, kind Kind, regions []*Region) (*Region, error) {
+	var sel []*Region
+	for _, r := range regions {
+		if r.Kind == kind && r.Derived == "" {
+			sel = append(sel, r)
+		}
+	}
+	if len(sel) == 0 {
+		return nil, nil
+	}
+	return Union(name, kind, sel)
+}
+
+// Isodose returns the region of the voxels of ref whose dose is at least
+// percent % of norm (Gy): centre inside and fraction 1 for each of them, 0
+// elsewhere (NaN doses are never inside). The region is of kind Other and
+// named like "isodose 50% of 60 Gy".
+func Isodose(ref *volume.Grid, percent, norm float64, opt Options) (*Region, error) {
+	if ref == nil {
+		return nil, errors.New("roi: isodose of no grid")
+	}
+	if !(percent > 0) || math.IsInf(percent, 0) || !(norm > 0) || math.IsInf(norm, 0) {
+		return nil, fmt.Errorf("roi: isodose %g %% of %g Gy: want a positive percentage of a positive normalisation dose", percent, norm)
+	}
+	sizes, err := NewVoxelSize(ref, opt)
+	if err != nil {
+		return nil, err
+	}
+	level := percent / 100 * norm
+	r := &Region{
+		Name:    fmt.Sprintf("isodose %g%% of %g Gy", percent, norm),
+		Kind:    Other,
+		Derived: fmt.Sprintf("voxels of the reference dose ≥ %g Gy (%g %% of %g Gy)", level, percent, norm),
+		Box:     emptyBox(),
+		grid:    ref,
+		sizes:   sizes,
+	}
+	for n, v := range ref.Data {
+		if float64(v) >= level {
+			r.Centres = append(r.Centres, n)
+			r.Index = append(r.Index, n)
+			r.Fraction = append(r.Fraction, 1)
+		}
+	}
+	r.setBox()
+	return r, nil
+}
+
+// setBox recomputes Box from Centres and Index.
+func (r *Region) setBox() {
+	r.Box = emptyBox()
+	d := r.grid.Dims()
+	for _, l := range [2][]int{r.Centres, r.Index} {
+		for _, n := range l {
+			i := n % d[0]
+			m := n / d[0]
+			r.Box.add(i, m%d[1], m/d[1])
+		}
+	}
+}
+
+// unionInts merges two increasing lists without duplicates.
+func unionInts(a, b []int) []int {
+	out := make([]int, 0, len(a)+len(b))
+	i, j := 0, 0
+	for i < len(a) || j < len(b) {
+		switch {
+		case j == len(b) || (i < len(a) && a[i] < b[j]):
+			out = append(out, a[i])
+			i++
+		case i == len(a) || b[j] < a[i]:
+			out = append(out, b[j])
+			j++
+		default:
+			out = append(out, a[i])
+			i++
+			j++
+		}
+	}
+	return out
+}
+
+// unionMax merges two increasing index lists with their fractions, keeping
+// the larger fraction where both have the voxel.
+func unionMax(ia []int, fa []float32, ib []int, fb []float32) ([]int, []float32) {
+	oi := make([]int, 0, len(ia)+len(ib))
+	of := make([]float32, 0, len(ia)+len(ib))
+	i, j := 0, 0
+	for i < len(ia) || j < len(ib) {
+		switch {
+		case j == len(ib) || (i < len(ia) && ia[i] < ib[j]):
+			oi, of = append(oi, ia[i]), append(of, fa[i])
+			i++
+		case i == len(ia) || ib[j] < ia[i]:
+			oi, of = append(oi, ib[j]), append(of, fb[j])
+			j++
+		default:
+			oi, of = append(oi, ia[i]), append(of, max(fa[i], fb[j]))
+			i++
+			j++
+		}
+	}
+	return oi, of
+}

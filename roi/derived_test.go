@@ -1,0 +1,111 @@
+package roi
+
+import (
+	"math"
+	"slices"
+	"testing"
+
+	"voxgamma/phantom"
+	"voxgamma/structure"
+	"voxgamma/volume"
+)
+
+func TestDerivedRegions(t *testing.T) {
+	g, err := volume.NewUniform([3]int{50, 50, 40}, [3]float64{-24.5, -24.5, -19.5}, [3]float64{1, 1, 1}, volume.Identity)
+	if err != nil {
+		t.Fatal(err)
+	}
+	set := &structure.Set{ROIs: []structure.ROI{
+		mustROI(t, phantom.Sphere{Centre: [3]float64{-4, 0, 0}, Radius: 8}, phantom.ROISpec{Name: "PTV_a", Number: 1, InterpretedType: "PTV", PlaneSpacing: 2}),
+		mustROI(t, phantom.Sphere{Centre: [3]float64{5, 0, 0}, Radius: 8}, phantom.ROISpec{Name: "PTV_b", Number: 2, PlaneSpacing: 2}),
+		mustROI(t, phantom.Cylinder{CentreX: 0, CentreY: 10, Radius: 4, ZMin: -15, ZMax: 15}, phantom.ROISpec{Name: "Cord", Number: 3, InterpretedType: "ORGAN", PlaneSpacing: 2}),
+		mustROI(t, phantom.Box{Min: [3]float64{-22, -22, -18}, Max: [3]float64{22, 22, 18}}, phantom.ROISpec{Name: "Outline", Number: 4, InterpretedType: "EXTERNAL", PlaneSpacing: 2, PlanePhase: 1}),
+	}}
+	z, err := NewRasteriser(g, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rules := []Rule{{Pattern: "PTV*", Kind: Target}}
+	regs, err := z.Set(set, rules)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if regs[1].Kind != Target || regs[2].Kind != OAR || regs[3].Kind != Body {
+		t.Fatalf("kinds %v %v %v", regs[1].Kind, regs[2].Kind, regs[3].Kind)
+	}
+	all, err := AllTargets(regs)
+	if err != nil || all == nil {
+		t.Fatalf("all targets: %v", err)
+	}
+	a, b := regs[0], regs[1]
+	// Centre union: every centre of either, nothing else.
+	want := map[int]bool{}
+	for _, n := range append(slices.Clone(a.Centres), b.Centres...) {
+		want[n] = true
+	}
+	if len(all.Centres) != len(want) || !slices.IsSorted(all.Centres) {
+		t.Errorf("union has %d centres, want %d, sorted %v", len(all.Centres), len(want), slices.IsSorted(all.Centres))
+	}
+	// Fractions: the maximum of the two; the union's volume is below the sum
+	// (they overlap) and above either.
+	fr := func(r *Region, n int) float32 {
+		if q, ok := slices.BinarySearch(r.Index, n); ok {
+			return r.Fraction[q]
+		}
+		return 0
+	}
+	for q, n := range all.Index {
+		if all.Fraction[q] != max(fr(a, n), fr(b, n)) {
+			t.Fatalf("union fraction at %d is %g, members %g and %g", n, all.Fraction[q], fr(a, n), fr(b, n))
+		}
+	}
+	va, vb, vu := a.VolumeCC(), b.VolumeCC(), all.VolumeCC()
+	if !(vu < va+vb && vu > math.Max(va, vb)) {
+		t.Errorf("union volume %g, members %g and %g", vu, va, vb)
+	}
+	if all.Name != "all targets" || all.Kind != Target || all.Derived == "" {
+		t.Errorf("union labelled %q %v %q", all.Name, all.Kind, all.Derived)
+	}
+	body, err := BodyOf(regs)
+	if err != nil || body == nil || body.Kind != Body || math.Abs(body.VolumeCC()-regs[3].VolumeCC()) > 1e-12 {
+		t.Errorf("body: %v %+v", err, body)
+	}
+	if none, err := BodyOf(regs[:3]); none != nil || err != nil {
+		t.Errorf("body without EXTERNAL: %v %v", none, err)
+	}
+
+	// Isodose: voxels ≥ 50 % of 60 Gy of a Gaussian dose are those within
+	// σ·sqrt(2 ln 2) of its centre.
+	if err := phantom.Fill(g, phantom.Gaussian([3]float64{0, 0, 0}, 6, 60)); err != nil {
+		t.Fatal(err)
+	}
+	iso, err := Isodose(g, 50, 60, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r50 := 6 * math.Sqrt(2*math.Ln2)
+	for n, v := range g.Data {
+		_, in := slices.BinarySearch(iso.Centres, n)
+		if in != (v >= 30) {
+			t.Fatalf("isodose membership of voxel %d (dose %g) is %v", n, v, in)
+		}
+	}
+	if v, want := iso.VolumeCC()*1000, 4.0/3*math.Pi*r50*r50*r50; math.Abs(v-want) > 0.05*want {
+		t.Errorf("50 %% isodose volume %g mm³, sphere of radius %g mm has %g", v, r50, want)
+	}
+	h, err := RegionDVH(g, iso)
+	if err != nil || h.Min < 30 {
+		t.Errorf("isodose DVH: %v, min %g", err, h.Min)
+	}
+	if _, err := Isodose(g, 0, 60, Options{}); err == nil {
+		t.Error("isodose at 0 % accepted")
+	}
+	other, _ := volume.NewUniform([3]int{5, 5, 5}, [3]float64{}, [3]float64{1, 1, 1}, volume.Identity)
+	if _, err := Union("mixed", Other, []*Region{a, iso, {Name: "x", grid: other}}); err == nil {
+		t.Error("union across grids accepted")
+	}
+	m := all.Mask()
+	if m.Count() != len(all.Centres) {
+		t.Errorf("mask has %d voxels, centres %d", m.Count(), len(all.Centres))
+	}
+}
