@@ -1,0 +1,328 @@
+package analysis
+
+import (
+	"crypto/sha256"
+	"encoding/csv"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"strconv"
+	"strings"
+
+	"voxgamma/dicomio"
+	"voxgamma/gamma"
+	"voxgamma/result"
+	"voxgamma/structure"
+	"voxgamma/volume"
+)
+
+// Inputs names the files of one comparison.
+type Inputs struct {
+	// Reference is an RT Dose file or a folder holding one; empty when
+	// ReferencePoints is given.
+	Reference string
+	// ReferencePoints is a CSV of measured points (header
+	// x_mm,y_mm,z_mm,dose_gy) used instead of Reference.
+	ReferencePoints string
+	// Evaluated is an RT Dose file or a folder holding one.
+	Evaluated string
+	// Structures is an RT Structure Set file; empty for none. When empty
+	// and Reference is a folder, the folder's structure set (in the
+	// reference's frame of reference) is used.
+	Structures string
+	// AllowFrameMismatch lets doses and structures of different frames of
+	// reference be compared (the user vouches that their coordinates agree).
+	AllowFrameMismatch bool
+}
+
+// Loaded is everything read for one comparison, checked for consistency.
+type Loaded struct {
+	// Reference is the reference grid; nil when the reference is points.
+	Reference     *volume.Grid
+	ReferenceInfo *dicomio.DoseInfo
+	// Points are the scattered reference points; nil for a grid reference.
+	Points    []gamma.Point
+	Evaluated *volume.Grid
+	// EvaluatedInfo describes the evaluated dose file.
+	EvaluatedInfo *dicomio.DoseInfo
+	// Structures is the structure set; nil when none was given.
+	Structures *structure.Set
+	// Inputs describes each file read, for the result.
+	Inputs []result.Input
+	// Warnings and Notes found while loading.
+	Warnings, Notes []string
+	// Paths lists every input file read, so that outputs can refuse to
+	// overwrite them.
+	Paths []string
+}
+
+// ErrBadInput marks errors caused by the inputs (a file that cannot be read
+// or that contradicts another): a pipeline's "could not evaluate".
+var ErrBadInput = errors.New("bad input")
+
+func badInput(format string, args ...any) error {
+	return fmt.Errorf("%w: %s", ErrBadInput, fmt.Sprintf(format, args...))
+}
+
+// Load reads and checks the inputs. Every error names the file at fault and
+// matches ErrBadInput.
+func Load(in Inputs) (*Loaded, error) {
+	l := &Loaded{}
+	if (in.Reference == "") == (in.ReferencePoints == "") {
+		return nil, badInput("give either a reference dose or reference points, not both and not neither")
+	}
+	if in.Evaluated == "" {
+		return nil, badInput("no evaluated dose given")
+	}
+
+	// Evaluated first: the reference points are in its coordinates.
+	evalPath, evalAccount, err := resolveDose(in.Evaluated)
+	if err != nil {
+		return nil, err
+	}
+	l.Notes = append(l.Notes, evalAccount...)
+	if l.Evaluated, l.EvaluatedInfo, err = readDose(evalPath); err != nil {
+		return nil, err
+	}
+	if err := l.addDoseInput("evaluated", evalPath, l.EvaluatedInfo, l.Evaluated); err != nil {
+		return nil, err
+	}
+
+	structuresPath := in.Structures
+	if in.Reference != "" {
+		refPath, account, err := resolveDose(in.Reference)
+		if err != nil {
+			return nil, err
+		}
+		l.Notes = append(l.Notes, account...)
+		if refPath == evalPath {
+			return nil, badInput("%s is both the reference and the evaluated dose", refPath)
+		}
+		if l.Reference, l.ReferenceInfo, err = readDose(refPath); err != nil {
+			return nil, err
+		}
+		if err := l.addDoseInput("reference", refPath, l.ReferenceInfo, l.Reference); err != nil {
+			return nil, err
+		}
+		if structuresPath == "" {
+			structuresPath = folderStructures(in.Reference)
+		}
+	} else {
+		if l.Points, err = ReadPoints(in.ReferencePoints); err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+		}
+		sum, err := fileSHA256(in.ReferencePoints)
+		if err != nil {
+			return nil, badInput("reading %s: %v", in.ReferencePoints, err)
+		}
+		l.Inputs = append(l.Inputs, result.Input{Role: "reference points", Path: in.ReferencePoints, SHA256: sum,
+			Description: fmt.Sprintf("%d measured points, in the evaluated dose's coordinates", len(l.Points))})
+		l.Paths = append(l.Paths, in.ReferencePoints)
+	}
+
+	if structuresPath != "" {
+		if l.Structures, err = dicomio.ReadStructureSet(structuresPath); err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+		}
+		sum, err := fileSHA256(structuresPath)
+		if err != nil {
+			return nil, badInput("reading %s: %v", structuresPath, err)
+		}
+		s := l.Structures
+		l.Inputs = append(l.Inputs, result.Input{Role: "structures", Path: structuresPath, SHA256: sum, Modality: "RTSTRUCT",
+			SOPInstanceUID: s.SOPInstanceUID, FrameOfReferenceUID: s.FrameOfReferenceUID, PatientID: s.PatientID,
+			PatientName: s.PatientName, Description: fmt.Sprintf("structure set %q, %d ROIs", s.Label, len(s.ROIs))})
+		l.Paths = append(l.Paths, structuresPath)
+	}
+
+	if l.Reference != nil {
+		f := dicomio.CheckConsistency(l.ReferenceInfo, l.Reference, l.EvaluatedInfo, l.Evaluated, l.Structures, in.AllowFrameMismatch)
+		l.Warnings = append(l.Warnings, f.Warnings...)
+		if err := f.Err(); err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+		}
+		if l.ReferenceInfo.Relative() != l.EvaluatedInfo.Relative() {
+			return nil, badInput("dose units differ: reference %s, evaluated %s", l.ReferenceInfo.DoseUnits, l.EvaluatedInfo.DoseUnits)
+		}
+	} else {
+		if l.Structures != nil {
+			return nil, badInput("structures cannot be used with reference points: per-ROI results need a reference grid")
+		}
+		if l.EvaluatedInfo.Relative() {
+			l.Warnings = append(l.Warnings, fmt.Sprintf("the evaluated dose %s is RELATIVE while the reference points are in Gy", evalPath))
+		}
+	}
+	return l, nil
+}
+
+// resolveDose returns the RT Dose file named by path: path itself, or the
+// plan dose chosen in a folder (with the account of the choice).
+func resolveDose(path string) (string, []string, error) {
+	st, err := os.Stat(path)
+	if err != nil {
+		return "", nil, badInput("%v", err)
+	}
+	if !st.IsDir() {
+		return path, nil, nil
+	}
+	folder, err := dicomio.ScanFolder(path)
+	if err != nil {
+		return "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+	}
+	choice, err := folder.Choose()
+	if err != nil {
+		return "", nil, fmt.Errorf("%w: folder %s: %w", ErrBadInput, path, err)
+	}
+	return choice.Dose.Path, choice.Account, nil
+}
+
+// folderStructures returns the structure set chosen in the reference folder,
+// or "" when the reference is a file or the folder has none.
+func folderStructures(path string) string {
+	st, err := os.Stat(path)
+	if err != nil || !st.IsDir() {
+		return ""
+	}
+	folder, err := dicomio.ScanFolder(path)
+	if err != nil {
+		return ""
+	}
+	choice, err := folder.Choose()
+	if err != nil || choice.StructureSet == nil {
+		return ""
+	}
+	return choice.StructureSet.Path
+}
+
+func readDose(path string) (*volume.Grid, *dicomio.DoseInfo, error) {
+	g, info, err := dicomio.ReadDose(path)
+	if err != nil {
+		return nil, nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+	}
+	return g, info, nil
+}
+
+func (l *Loaded) addDoseInput(role, path string, info *dicomio.DoseInfo, g *volume.Grid) error {
+	sum, err := fileSHA256(path)
+	if err != nil {
+		return badInput("reading %s: %v", path, err)
+	}
+	max, _ := g.Max()
+	l.Inputs = append(l.Inputs, result.Input{
+		Role: role, Path: path, SHA256: sum, Modality: "RTDOSE",
+		SOPInstanceUID: info.SOPInstanceUID, FrameOfReferenceUID: info.FrameOfReferenceUID,
+		PatientID: info.PatientID, PatientName: info.PatientName,
+		DoseUnits: info.DoseUnits, DoseType: info.DoseType, DoseSummationType: info.DoseSummationType,
+		Grid:        GridInfo(g, float64(max)),
+		Description: strings.TrimSpace(strings.Join([]string{info.Manufacturer, info.ManufacturerModelName, info.SeriesDescription}, " ")),
+	})
+	for _, n := range info.Notes {
+		l.Notes = append(l.Notes, fmt.Sprintf("%s: %s", path, n))
+	}
+	l.Paths = append(l.Paths, path)
+	return nil
+}
+
+// GridInfo describes a grid's geometry for the result.
+func GridInfo(g *volume.Grid, maxDose float64) *result.GridInfo {
+	gi := &result.GridInfo{Dims: g.Dims(), OriginMM: g.Origin(), Direction: g.Direction(), UniformFrames: true, MaxDoseGy: maxDose}
+	for a := 0; a < 3; a++ {
+		s, uniform := g.Spacing(a)
+		gi.SpacingMM[a] = s
+		if a == 2 && !uniform {
+			gi.UniformFrames = false
+		}
+	}
+	return gi
+}
+
+func fileSHA256(path string) (string, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return "", err
+	}
+	defer f.Close()
+	h := sha256.New()
+	if _, err := io.Copy(h, f); err != nil {
+		return "", err
+	}
+	return hex.EncodeToString(h.Sum(nil)), nil
+}
+
+// PointsHeader is the header line a reference-points CSV must start with.
+var PointsHeader = []string{"x_mm", "y_mm", "z_mm", "dose_gy"}
+
+// ReadPoints reads scattered reference points from a CSV file whose header
+// is x_mm,y_mm,z_mm,dose_gy: one point per row, positions in mm in the
+// evaluated grid's patient coordinates, dose in Gy. Every malformed row is an
+// error naming the file and line.
+func ReadPoints(path string) ([]gamma.Point, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("reading %s: %w", path, err)
+	}
+	defer f.Close()
+	return ParsePoints(f, path)
+}
+
+// ParsePoints reads reference points in ReadPoints's format from r; name
+// is used in errors.
+func ParsePoints(r io.Reader, name string) ([]gamma.Point, error) {
+	cr := csv.NewReader(r)
+	cr.FieldsPerRecord = -1
+	cr.TrimLeadingSpace = true
+	header, err := cr.Read()
+	if err == io.EOF {
+		return nil, fmt.Errorf("%s: empty file, want the header %s", name, strings.Join(PointsHeader, ","))
+	}
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", name, err)
+	}
+	if len(header) > 0 {
+		header[0] = strings.TrimPrefix(header[0], "\ufeff")
+	}
+	if len(header) != 4 {
+		return nil, fmt.Errorf("%s: header %q, want %s", name, strings.Join(header, ","), strings.Join(PointsHeader, ","))
+	}
+	for i, h := range header {
+		if strings.TrimSpace(strings.ToLower(h)) != PointsHeader[i] {
+			return nil, fmt.Errorf("%s: header %q, want %s", name, strings.Join(header, ","), strings.Join(PointsHeader, ","))
+		}
+	}
+	var pts []gamma.Point
+	for {
+		rec, err := cr.Read()
+		if err == io.EOF {
+			break
+		}
+		line, _ := cr.FieldPos(0)
+		if err != nil {
+			return nil, fmt.Errorf("%s: %w", name, err)
+		}
+		if len(rec) == 1 && strings.TrimSpace(rec[0]) == "" {
+			continue
+		}
+		if len(rec) != 4 {
+			return nil, fmt.Errorf("%s line %d: %d fields, want 4 (x_mm,y_mm,z_mm,dose_gy)", name, line, len(rec))
+		}
+		var v [4]float64
+		for i, s := range rec {
+			x, err := strconv.ParseFloat(strings.TrimSpace(s), 64)
+			if err != nil || math.IsNaN(x) || math.IsInf(x, 0) {
+				return nil, fmt.Errorf("%s line %d: %s %q is not a finite number", name, line, PointsHeader[i], s)
+			}
+			v[i] = x
+		}
+		if v[3] < 0 {
+			return nil, fmt.Errorf("%s line %d: negative dose %g Gy", name, line, v[3])
+		}
+		pts = append(pts, gamma.Point{Pos: [3]float64{v[0], v[1], v[2]}, Dose: v[3]})
+	}
+	if len(pts) == 0 {
+		return nil, fmt.Errorf("%s: no points after the header", name)
+	}
+	return pts, nil
+}

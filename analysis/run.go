@@ -1,0 +1,566 @@
+package analysis
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"sort"
+	"strings"
+	"time"
+
+	"voxgamma/dicomio"
+	"voxgamma/gamma"
+	"voxgamma/result"
+	"voxgamma/roi"
+	"voxgamma/structure"
+	"voxgamma/volume"
+)
+
+// Checker checks a result against a protocol's rules.
+type Checker interface {
+	// Evaluate returns the outcome of every rule and the verdict, "pass"
+	// or "fail".
+	Evaluate(r *result.Result) ([]result.RuleOutcome, string)
+}
+
+// Settings are everything about a comparison besides the input files.
+type Settings struct {
+	// Criteria of the gamma comparison.
+	Criteria gamma.Criteria
+	// NormDoseSource says where Criteria.NormDose came from when it is not
+	// 0: "prescription" or "user". Empty means "user".
+	NormDoseSource string
+	// Method of the gamma search.
+	Method gamma.Method
+	// KindRules classify ROIs by name (see roi.Classify).
+	KindRules []roi.Rule
+	// IsodosePercents adds isodose ROIs: the reference voxels at or above
+	// each percentage of the normalisation dose.
+	IsodosePercents []float64
+	// VDoses are the doses (Gy) at which V_d is reported for every ROI.
+	VDoses []float64
+	// SubGridROIs names ROIs to evaluate on a finer reference sub-grid of
+	// step SubGridStep mm (reference dose interpolated trilinearly).
+	SubGridROIs []string
+	SubGridStep float64
+	// MinClusterCC is the smallest failing cluster listed (cm³).
+	MinClusterCC float64
+	// MaxClusters bounds the clusters listed; 0 means 20.
+	MaxClusters int
+	// Raster tunes the rasterisation of ROIs.
+	Raster roi.Options
+	// Workers and Progress run the gamma search (see gamma.Options).
+	Workers  int
+	Progress func(done, total int)
+	// Checker checks the result against the protocol; Protocol is the
+	// protocol recorded in the result, in full.
+	Checker  Checker
+	Protocol any
+	// Version is recorded in the result.
+	Version string
+}
+
+// Outcome is a finished comparison: the result and the maps behind it.
+type Outcome struct {
+	Result *result.Result
+	// Reference and ReferenceInfo are the reference dose and its file's
+	// description (nil for a points reference).
+	Reference     *volume.Grid
+	ReferenceInfo *dicomio.DoseInfo
+	// Gamma is Γ on the reference grid (NaN where not evaluated); nil for
+	// a points reference.
+	Gamma *volume.Grid
+	// GammaResult is the engine's result, per reference point.
+	GammaResult *gamma.Result
+	// Difference is evaluated − reference on the reference grid (NaN
+	// outside the evaluated grid); nil for a points reference.
+	Difference *volume.Grid
+	// Regions are the ROIs in result order.
+	Regions []*roi.Region
+	// Colors holds each region's display colour, in Regions order.
+	Colors [][3]uint8
+}
+
+// Prepared is a loaded comparison with its ROIs rasterised and the evaluated
+// dose resampled onto the reference grid: the part of the work shared by
+// every criteria set of a sweep.
+type Prepared struct {
+	*Loaded
+	// EvaluatedOnRef is the evaluated dose on the reference grid, NaN
+	// outside the evaluated grid.
+	EvaluatedOnRef *volume.Grid
+	regions        []*roi.Region
+	sources        map[*roi.Region]*structure.ROI
+	sizes          *roi.VoxelSize
+	notes          []string
+	warnings       []string
+}
+
+// Prepare rasterises the structure set's ROIs onto the reference grid and
+// resamples the evaluated dose onto it.
+func Prepare(l *Loaded, s Settings) (*Prepared, error) {
+	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}}
+	if l.Reference == nil {
+		return p, nil
+	}
+	var err error
+	p.EvaluatedOnRef, err = l.Evaluated.ResampleOnto(l.Reference, float32(math.NaN()))
+	if err != nil && err != volume.ErrNoOverlap {
+		return nil, err
+	}
+	z, err := roi.NewRasteriser(l.Reference, s.Raster)
+	if err != nil {
+		return nil, fmt.Errorf("%w: the reference grid cannot carry ROIs: %w", ErrBadInput, err)
+	}
+	p.sizes = z.Sizes()
+	if l.Structures == nil {
+		return p, nil
+	}
+	for i := range l.Structures.ROIs {
+		r := &l.Structures.ROIs[i]
+		reg, err := z.Rasterise(r, roi.Classify(r, s.KindRules))
+		if err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+		}
+		p.regions = append(p.regions, reg)
+		p.sources[reg] = r
+		if reg.OutsideCC > 0.0005 {
+			p.warnings = append(p.warnings, fmt.Sprintf("ROI %q: %.3f cc of its %.3f cc lie outside the reference dose grid and are not evaluated", r.Name, reg.OutsideCC, reg.ContourCC))
+		}
+	}
+	p.notes = append(p.notes, fmt.Sprintf("ROIs rasterised on the reference grid: a voxel counts toward an ROI's gamma pass rate when its centre is inside; "+
+		"volumes and DVHs weight each voxel by the fraction inside it, from %d×%d sub-samples in plane and %d sub-slices",
+		orDefault(s.Raster.InPlane, roi.DefaultInPlane), orDefault(s.Raster.InPlane, roi.DefaultInPlane), orDefault(s.Raster.SubSlices, roi.DefaultSubSlices)))
+	return p, nil
+}
+
+func orDefault(v, d int) int {
+	if v == 0 {
+		return d
+	}
+	return v
+}
+
+// Run computes the comparison with the given settings.
+func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
+	started := time.Now()
+	res := &result.Result{
+		SchemaVersion: result.SchemaVersion, Version: s.Version, Caution: result.Caution,
+		Protocol: s.Protocol, Inputs: p.Inputs,
+		Warnings: append(append([]string{}, p.Loaded.Warnings...), p.warnings...),
+		Notes:    append(append([]string{}, p.Loaded.Notes...), p.notes...),
+		ROIs:     []result.ROI{}, Clusters: []result.Cluster{}, Rules: []result.RuleOutcome{},
+	}
+	opt := gamma.Options{Workers: s.Workers, Progress: s.Progress, Method: s.Method}
+	t0 := time.Now()
+	var gres *gamma.Result
+	var err error
+	if p.Reference != nil {
+		gres, err = gamma.CompareGrids(ctx, p.Reference, p.Evaluated, s.Criteria, opt)
+	} else {
+		gres, err = gamma.ComparePoints(ctx, p.Points, p.Evaluated, s.Criteria, opt)
+	}
+	if err != nil {
+		return nil, err
+	}
+	gammaSeconds := time.Since(t0).Seconds()
+
+	c := gres.Criteria
+	source := s.NormDoseSource
+	switch {
+	case s.Criteria.NormDose == 0:
+		source = "reference maximum"
+	case source == "":
+		source = "user"
+	}
+	res.Criteria = result.Criteria{
+		DosePercent: c.DosePercent, DTAmm: c.DTA, Normalisation: c.Normalisation.String(),
+		NormDoseGy: c.NormDose, NormDoseSource: source, ThresholdPercent: c.ThresholdPercent,
+		SearchMM: c.Search, Method: gres.Method.String(), Label: c.Label(),
+	}
+	res.Overall = toGammaStats(gres.Stats)
+	if gres.Stats.Evaluated == 0 {
+		res.Warnings = append(res.Warnings, "no reference point was evaluated: every point is below the threshold or outside the evaluated grid")
+	}
+	if n := gres.Stats.Outside; n > 0 {
+		res.Warnings = append(res.Warnings, fmt.Sprintf("%d reference points at or above the threshold lie outside the evaluated grid: not evaluated, not passed", n))
+	}
+	if n := gres.Stats.Capped; n > 0 {
+		res.Notes = append(res.Notes, fmt.Sprintf("%d points found no agreement within the %g mm search distance: reported as Γ = %g and failed", n, c.Search, c.Search/c.DTA))
+	}
+	out := &Outcome{Result: res, GammaResult: gres, Reference: p.Reference, ReferenceInfo: p.ReferenceInfo}
+
+	if p.Reference != nil {
+		out.Gamma = p.Reference.EmptyLike()
+		copy(out.Gamma.Data, gres.Gamma)
+		out.Difference = p.Reference.EmptyLike()
+		for n, e := range p.EvaluatedOnRef.Data {
+			out.Difference.Data[n] = e - p.Reference.Data[n]
+		}
+		if err := p.regionResults(ctx, s, gres, out); err != nil {
+			return nil, err
+		}
+		var note string
+		res.Clusters, note = p.clusters(s, gres, out.Regions)
+		if note != "" {
+			res.Notes = append(res.Notes, note)
+		}
+	}
+
+	if s.Checker != nil {
+		res.Rules, res.Verdict = s.Checker.Evaluate(res)
+	} else {
+		res.Verdict = "pass"
+		if gres.Stats.Evaluated == 0 {
+			res.Verdict = "fail"
+		}
+	}
+	res.Run = result.Run{Started: started.UTC().Format(time.RFC3339), Seconds: time.Since(started).Seconds(), GammaSeconds: gammaSeconds, Workers: s.Workers}
+	return out, nil
+}
+
+func toGammaStats(st gamma.Stats) result.GammaStats {
+	return result.GammaStats{
+		Evaluated: st.Evaluated, Passed: st.Passed,
+		PassRate: result.Ptr(st.PassRate), PassRateText: gamma.FormatPassRate(st.PassRate),
+		GammaMean: result.Ptr(st.Mean), GammaMedian: result.Ptr(st.Median), GammaP95: result.Ptr(st.P95),
+		GammaP99: result.Ptr(st.P99), GammaMax: result.Ptr(st.Max), AboveOneHalfPercent: result.Ptr(st.AboveOneHalf),
+		Capped: st.Capped, BelowThreshold: st.BelowThreshold, OutsideEvaluated: st.Outside,
+	}
+}
+
+// regionResults adds the derived regions and fills one result.ROI per
+// region: Γ statistics over its centre voxels, failing volume and centroid,
+// and the dose-volume metrics of both doses.
+func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Result, out *Outcome) error {
+	regions := append([]*roi.Region{}, p.regions...)
+	if t, err := roi.AllTargets(p.regions); err != nil {
+		return err
+	} else if t != nil {
+		regions = append(regions, t)
+	}
+	if b, err := roi.BodyOf(p.regions); err != nil {
+		return err
+	} else if b != nil {
+		regions = append(regions, b)
+	}
+	for _, pct := range s.IsodosePercents {
+		iso, err := roi.Isodose(p.Reference, pct, gres.Criteria.NormDose, s.Raster)
+		if err != nil {
+			return err
+		}
+		regions = append(regions, iso)
+	}
+	subgrid := map[string]bool{}
+	for _, name := range s.SubGridROIs {
+		subgrid[strings.ToLower(name)] = true
+	}
+	found := map[string]bool{}
+	res := out.Result
+	for _, reg := range regions {
+		src := p.sources[reg]
+		r := result.ROI{Name: reg.Name, Number: reg.Number, Kind: reg.Kind.String(), Voxels: len(reg.Centres)}
+		var color [3]uint8
+		switch {
+		case src != nil:
+			r.Source, r.InterpretedType = "structure set", src.InterpretedType
+			if src.HasColor {
+				color = src.Color
+			} else {
+				color = defaultColor(len(out.Regions))
+			}
+		case strings.HasPrefix(reg.Name, "isodose"):
+			r.Source, color = "isodose", [3]uint8{200, 120, 0}
+		default:
+			r.Source, color = "derived", [3]uint8{90, 90, 200}
+		}
+		r.GammaStats = toGammaStats(gres.StatsOver(reg.Centres))
+		r.VolumeCC = regionVolume(reg, p.sizes)
+		r.FailingVolumeCC, r.WorstCentroidMM = p.failing(reg.Centres, gres)
+		r.Status = regionStatus(reg, src, r.GammaStats)
+
+		if src != nil && subgrid[strings.ToLower(reg.Name)] && len(reg.Centres) > 0 {
+			found[strings.ToLower(reg.Name)] = true
+			st, step, err := p.subGrid(ctx, s, src, reg, gres.Criteria)
+			if err != nil {
+				return err
+			}
+			r.GammaStats = toGammaStats(st)
+			r.SubGridMM = &step
+			r.Status = regionStatusStats(r.Status, r.GammaStats)
+			res.Notes = append(res.Notes, fmt.Sprintf("ROI %q evaluated on a %g mm sub-grid of reference points (reference dose interpolated trilinearly): %d points instead of %d voxels", reg.Name, step, st.Evaluated+st.BelowThreshold+st.Outside, len(reg.Centres)))
+		}
+		if r.VolumeCC > 0 {
+			dvh, err := p.dvhPair(reg, s, gres.Criteria.NormDose)
+			if err != nil {
+				return err
+			}
+			r.DVH = dvh
+		}
+		res.ROIs = append(res.ROIs, r)
+		out.Regions = append(out.Regions, reg)
+		out.Colors = append(out.Colors, color)
+	}
+	for _, name := range s.SubGridROIs {
+		if !found[strings.ToLower(name)] {
+			res.Warnings = append(res.Warnings, fmt.Sprintf("sub-grid evaluation asked for ROI %q, which is not a rasterised ROI of the structure set", name))
+		}
+	}
+	return nil
+}
+
+func defaultColor(i int) [3]uint8 {
+	palette := [][3]uint8{{220, 50, 50}, {50, 160, 50}, {50, 90, 220}, {200, 160, 0}, {160, 60, 200}, {0, 170, 170}}
+	return palette[i%len(palette)]
+}
+
+func regionVolume(reg *roi.Region, sizes *roi.VoxelSize) float64 {
+	v := 0.0
+	for i, n := range reg.Index {
+		v += float64(reg.Fraction[i]) * sizes.Volume(n)
+	}
+	return v / 1000
+}
+
+// failing returns the volume (cm³) of the failing voxels among indices and
+// their volume-weighted centroid in patient coordinates (nil when none).
+func (p *Prepared) failing(indices []int, gres *gamma.Result) (float64, *[3]float64) {
+	vol := 0.0
+	var c [3]float64
+	for _, n := range indices {
+		st := gres.Status[n]
+		if !(st == gamma.Capped || (st == gamma.Evaluated && gres.Gamma[n] > 1)) {
+			continue
+		}
+		v := p.sizes.Volume(n)
+		i, j, k := p.Reference.IJK(n)
+		w := p.Reference.WorldOf(i, j, k)
+		for a := 0; a < 3; a++ {
+			c[a] += v * w[a]
+		}
+		vol += v
+	}
+	if vol == 0 {
+		return 0, nil
+	}
+	for a := 0; a < 3; a++ {
+		c[a] = roundTo(c[a]/vol, 0.01)
+	}
+	return vol / 1000, &c
+}
+
+func roundTo(v, step float64) float64 { return math.Round(v/step) * step }
+
+func regionStatus(reg *roi.Region, src *structure.ROI, st result.GammaStats) string {
+	switch {
+	case reg.NoContours:
+		return "not evaluated: no contours"
+	case src != nil && reg.Planes == 0 && len(reg.Skipped) > 0:
+		return "not evaluated: no closed planar contours (points or open contours only)"
+	case len(reg.Centres) == 0 && reg.OutsideCC > 0:
+		return "not evaluated: outside the dose grid"
+	case len(reg.Centres) == 0:
+		return "not evaluated: smaller than a voxel (no voxel centre inside)"
+	}
+	return regionStatusStats("evaluated", st)
+}
+
+func regionStatusStats(prev string, st result.GammaStats) string {
+	if st.Evaluated > 0 {
+		return "evaluated"
+	}
+	if st.OutsideEvaluated > 0 && st.BelowThreshold == 0 {
+		return "not evaluated: outside the evaluated grid"
+	}
+	if st.BelowThreshold > 0 && st.OutsideEvaluated == 0 {
+		return "not evaluated: all below threshold"
+	}
+	if st.BelowThreshold > 0 {
+		return "not evaluated: below threshold or outside the evaluated grid"
+	}
+	if strings.HasPrefix(prev, "not evaluated") {
+		return prev
+	}
+	return "not evaluated"
+}
+
+// dvhPair computes the dose-volume metrics of both doses over reg.
+func (p *Prepared) dvhPair(reg *roi.Region, s Settings, norm float64) (*result.DVHPair, error) {
+	rh, err := roi.RegionDVH(p.Reference, reg)
+	if err != nil {
+		return nil, err
+	}
+	eh, err := roi.RegionDVH(p.EvaluatedOnRef, reg)
+	if err != nil {
+		// The whole ROI lies outside the evaluated grid: no evaluated DVH.
+		rm := rh.Metrics(s.VDoses)
+		return &result.DVHPair{Reference: toDVHStats(rm), Evaluated: nanDVHStats(s.VDoses), DifferenceGy: nanDVHStats(s.VDoses), DifferencePercent: nanDVHStats(s.VDoses)}, nil
+	}
+	rm, em := rh.Metrics(s.VDoses), eh.Metrics(s.VDoses)
+	pair := &result.DVHPair{Reference: toDVHStats(rm), Evaluated: toDVHStats(em)}
+	diffs, err := roi.CompareMetrics(rm, em, 0)
+	if err != nil {
+		return nil, err
+	}
+	pair.DifferenceGy, pair.DifferencePercent = differenceStats(diffs, s.VDoses)
+	// Curves on common bins: 0.5 % of the normalisation dose.
+	bin := norm / 200
+	rc, err := rh.Curve(bin)
+	if err != nil {
+		return nil, err
+	}
+	ec, err := eh.Curve(bin)
+	if err != nil {
+		return nil, err
+	}
+	pair.Curves = commonCurves(rc, ec)
+	return pair, nil
+}
+
+func toDVHStats(m roi.Metrics) result.DVHStats {
+	d := result.DVHStats{
+		MeanGy: result.Ptr(m.Mean), MaxGy: result.Ptr(m.Max), MinGy: result.Ptr(m.Min),
+		D98Gy: result.Ptr(m.D98), D95Gy: result.Ptr(m.D95), D50Gy: result.Ptr(m.D50), D2Gy: result.Ptr(m.D2),
+		D003ccGy: result.Ptr(m.D003cc),
+	}
+	for _, v := range m.V {
+		d.VolumeAtD = append(d.VolumeAtD, result.VAt{DoseGy: v.Dose, CC: result.Ptr(v.CC), Percent: result.Ptr(v.Percent)})
+	}
+	return d
+}
+
+func nanDVHStats(vDoses []float64) result.DVHStats {
+	d := result.DVHStats{}
+	for _, v := range vDoses {
+		d.VolumeAtD = append(d.VolumeAtD, result.VAt{DoseGy: v})
+	}
+	return d
+}
+
+// differenceStats turns roi.CompareMetrics' list into the two DVHStats of
+// differences in Gy (cm³ for V) and in percent.
+func differenceStats(diffs []roi.Difference, vDoses []float64) (gy, pct result.DVHStats) {
+	gy, pct = nanDVHStats(vDoses), nanDVHStats(vDoses)
+	vi := 0
+	for _, d := range diffs {
+		dg, dp := result.Ptr(d.Delta), result.Ptr(d.Percent)
+		switch d.Metric {
+		case "Dmean":
+			gy.MeanGy, pct.MeanGy = dg, dp
+		case "Dmax":
+			gy.MaxGy, pct.MaxGy = dg, dp
+		case "Dmin":
+			gy.MinGy, pct.MinGy = dg, dp
+		case "D98%":
+			gy.D98Gy, pct.D98Gy = dg, dp
+		case "D95%":
+			gy.D95Gy, pct.D95Gy = dg, dp
+		case "D50%":
+			gy.D50Gy, pct.D50Gy = dg, dp
+		case "D2%":
+			gy.D2Gy, pct.D2Gy = dg, dp
+		case "D0.03cc":
+			gy.D003ccGy, pct.D003ccGy = dg, dp
+		default:
+			if d.Unit == "cm3" && vi < len(vDoses) {
+				gy.VolumeAtD[vi].CC, pct.VolumeAtD[vi].Percent = dg, dp
+				vi++
+			}
+		}
+	}
+	return gy, pct
+}
+
+func commonCurves(r, e roi.Curve) *result.DVHCurves {
+	n := max(len(r.Dose), len(e.Dose))
+	dose := r.Dose
+	if len(e.Dose) > len(r.Dose) {
+		dose = e.Dose
+	}
+	c := &result.DVHCurves{DoseGy: make([]float64, n), ReferencePercent: make([]float64, n), EvaluatedPercent: make([]float64, n)}
+	for i := 0; i < n; i++ {
+		c.DoseGy[i] = roundTo(dose[i], 1e-6)
+		if i < len(r.Percent) {
+			c.ReferencePercent[i] = roundTo(r.Percent[i], 1e-4)
+		}
+		if i < len(e.Percent) {
+			c.EvaluatedPercent[i] = roundTo(e.Percent[i], 1e-4)
+		}
+	}
+	return c
+}
+
+// subGrid evaluates ROI src on a finer grid of reference points inside it:
+// the ROI is rasterised on a grid of the given step over its bounding box,
+// and the reference dose is interpolated at every centre inside.
+func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, reg *roi.Region, c gamma.Criteria) (gamma.Stats, float64, error) {
+	step := s.SubGridStep
+	if step <= 0 {
+		step = 0.5
+	}
+	ref := p.Reference
+	lo := ref.WorldOf(reg.Box.Lo[0], reg.Box.Lo[1], reg.Box.Lo[2])
+	hi := ref.WorldOf(reg.Box.Hi[0], reg.Box.Hi[1], reg.Box.Hi[2])
+	var origin [3]float64
+	var dims [3]int
+	for a := 0; a < 3; a++ {
+		l, h := math.Min(lo[a], hi[a]), math.Max(lo[a], hi[a])
+		// Half a reference voxel beyond the box on each side.
+		sp, _ := ref.Spacing(ref.Axis(a).Patient)
+		l -= sp / 2
+		h += sp / 2
+		origin[a] = l
+		dims[a] = int(math.Floor((h-l)/step)) + 1
+	}
+	if dims[0]*dims[1]*dims[2] > 50_000_000 {
+		return gamma.Stats{}, 0, fmt.Errorf("%w: ROI %q is too large for a %g mm sub-grid (%d×%d×%d points)", ErrBadInput, src.Name, step, dims[0], dims[1], dims[2])
+	}
+	fine, err := volume.NewUniform(dims, origin, [3]float64{step, step, step}, volume.Identity)
+	if err != nil {
+		return gamma.Stats{}, 0, err
+	}
+	z, err := roi.NewRasteriser(fine, s.Raster)
+	if err != nil {
+		return gamma.Stats{}, 0, err
+	}
+	freg, err := z.Rasterise(src, reg.Kind)
+	if err != nil {
+		return gamma.Stats{}, 0, err
+	}
+	pts := make([]gamma.Point, 0, len(freg.Centres))
+	outside := 0
+	for _, n := range freg.Centres {
+		i, j, k := fine.IJK(n)
+		w := fine.WorldOf(i, j, k)
+		d, ok := ref.Sample(w)
+		if !ok {
+			outside++
+			continue
+		}
+		pts = append(pts, gamma.Point{Pos: w, Dose: d})
+	}
+	if len(pts) == 0 {
+		return gamma.Stats{}, 0, fmt.Errorf("%w: ROI %q has no sub-grid point inside the reference grid", ErrBadInput, src.Name)
+	}
+	gr, err := gamma.ComparePoints(ctx, pts, p.Evaluated, c, gamma.Options{Workers: s.Workers, Method: s.Method})
+	if err != nil {
+		return gamma.Stats{}, 0, err
+	}
+	return gr.Stats, step, nil
+}
+
+// sortClusters orders clusters largest first, then by position, so the
+// order is deterministic.
+func sortClusters(cs []result.Cluster) {
+	sort.SliceStable(cs, func(a, b int) bool {
+		if cs[a].Voxels != cs[b].Voxels {
+			return cs[a].Voxels > cs[b].Voxels
+		}
+		for i := 0; i < 3; i++ {
+			if cs[a].CentroidMM[i] != cs[b].CentroidMM[i] {
+				return cs[a].CentroidMM[i] < cs[b].CentroidMM[i]
+			}
+		}
+		return false
+	})
+}

@@ -1,0 +1,535 @@
+package protocol
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"reflect"
+	"regexp"
+	"slices"
+	"strconv"
+	"strings"
+
+	"go.yaml.in/yaml/v3"
+
+	"voxgamma/gamma"
+	"voxgamma/roi"
+)
+
+// Protocol is a clinic's comparison protocol: the gamma criteria to apply,
+// how to classify ROIs, which isodose ROIs to add, and the rules every
+// comparison is checked against.
+type Protocol struct {
+	// Name identifies the protocol in reports.
+	Name string `yaml:"name" json:"name"`
+	// Description says what the protocol is for.
+	Description string `yaml:"description" json:"description"`
+	// Source says where the protocol's numbers come from: a paper, or
+	// "common practice", or the clinic's own commissioning.
+	Source string `yaml:"source" json:"source"`
+	// Criteria are the gamma criteria the comparison is to use.
+	Criteria Criteria `yaml:"criteria" json:"criteria"`
+	// KindRules classify ROIs by name (see [KindRule]).
+	KindRules []KindRule `yaml:"roi_kinds" json:"roi_kinds"`
+	// Isodose lists isodose ROIs to add, each in percent of the
+	// normalisation dose (e.g. [50, 80]).
+	Isodose []float64 `yaml:"isodose_rois" json:"isodose_rois"`
+	// Rules are checked in order by [Protocol.Evaluate].
+	Rules []Rule `yaml:"rules" json:"rules"`
+}
+
+// Criteria are a protocol's gamma criteria, as written in the file.
+type Criteria struct {
+	// Criteria is the dose-difference and distance criterion in the trade's
+	// notation, e.g. "3%/2mm" (read by [gamma.ParseCriteria]).
+	Criteria string `yaml:"criteria" json:"criteria"`
+	// Normalisation is "global" or "local"; empty means "global".
+	Normalisation string `yaml:"normalisation" json:"normalisation"`
+	// ThresholdPercent is the low-dose threshold in percent of the
+	// normalisation dose, from 0 to below 100.
+	ThresholdPercent float64 `yaml:"threshold_percent" json:"threshold_percent"`
+	// SearchMM is the search distance in mm; 0 means 3×DTA.
+	SearchMM float64 `yaml:"search_mm" json:"search_mm"`
+	// NormDoseGy is the normalisation dose in Gy; 0 means the reference
+	// maximum.
+	NormDoseGy float64 `yaml:"norm_dose_gy" json:"norm_dose_gy"`
+}
+
+// KindRule gives a kind to the ROIs whose name matches a pattern.
+type KindRule struct {
+	// Pattern is matched against the ROI name, case-insensitively: a
+	// pattern with '*' or '?' is a glob that must match the whole name, any
+	// other pattern is a prefix (the rules of [roi.Rule]).
+	Pattern string `yaml:"pattern" json:"pattern"`
+	// Kind is "target", "oar", "body" or "other".
+	Kind string `yaml:"kind" json:"kind"`
+	// Override applies the rule even to ROIs whose RTROIInterpretedType is
+	// set; without it the rule applies only to ROIs without a type.
+	Override bool `yaml:"override" json:"override"`
+}
+
+// Rule is one check of a comparison result against a limit.
+type Rule struct {
+	// Level is "tolerance" or "action" (any other word is kept as written);
+	// empty means "tolerance".
+	Level string `yaml:"level" json:"level"`
+	// Subject is what the rule applies to: "overall", "targets" (each
+	// target ROI of the structure set), "oars" (each organ at risk of the
+	// structure set), "roi:NAME" (the ROI of that name, case-insensitive) or
+	// "isodose:P" (the isodose ROI of P %, which must be in isodose_rois).
+	Subject string `yaml:"subject" json:"subject"`
+	// Metric is "pass_rate", "gamma_mean", "gamma_median", "gamma_p95",
+	// "gamma_p99", "gamma_max", or "dvh_diff_percent:M" / "dvh_diff_gy:M"
+	// (evaluated − reference, in % of the reference or in Gy) with M one of
+	// mean, max, min, d98, d95, d50, d2, d0_03cc.
+	Metric string `yaml:"metric" json:"metric"`
+	// Op is ">=", "<=" or "abs<=" (the absolute value ≤ the limit; for
+	// the signed dvh_diff metrics only).
+	Op string `yaml:"op" json:"op"`
+	// Limit is the limit the measured value is compared with.
+	Limit float64 `yaml:"limit" json:"limit"`
+}
+
+// MaxFileSize is the largest protocol file [Load] reads.
+const MaxFileSize = 1 << 20
+
+// Error is a problem in a protocol: where it is and what is wrong.
+type Error struct {
+	// File is the file name given to [Parse] or [Load], or a description
+	// such as `protocol "tg218"` for a protocol not read from a file.
+	File string
+	// Line is the line in the file, 0 when unknown.
+	Line int
+	// Field is the path of the offending field, e.g. "rules[2].op"
+	// (rule indices count from 0, in file order); empty for the whole file.
+	Field string
+	// Err is what is wrong.
+	Err error
+}
+
+// Error returns "FILE:LINE: FIELD: problem".
+func (e *Error) Error() string {
+	var b strings.Builder
+	b.WriteString(e.File)
+	if e.Line > 0 {
+		b.WriteString(":" + strconv.Itoa(e.Line))
+	}
+	if e.Field != "" {
+		b.WriteString(": " + e.Field)
+	}
+	b.WriteString(": " + e.Err.Error())
+	return b.String()
+}
+
+// Unwrap returns the underlying problem.
+func (e *Error) Unwrap() error { return e.Err }
+
+// Load reads a protocol from a YAML or JSON file (see [Parse]).
+func Load(path string) (*Protocol, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("protocol: %w", err)
+	}
+	defer f.Close()
+	data, err := io.ReadAll(io.LimitReader(f, MaxFileSize+1))
+	if err != nil {
+		return nil, fmt.Errorf("protocol: %s: %w", path, err)
+	}
+	if len(data) > MaxFileSize {
+		return nil, &Error{File: path, Err: fmt.Errorf("file larger than %d bytes: not a protocol", MaxFileSize)}
+	}
+	return Parse(data, path)
+}
+
+// Parse reads a protocol from YAML (or JSON, which YAML reads too); name is
+// the file name used in error messages. A field the format does not know
+// is an error, as is any value out of range; every error is an [*Error]
+// naming the file, the line where known and the field (several problems
+// come joined with [errors.Join]). The returned protocol is normalised:
+// keywords are lower case and an empty level or normalisation is filled in
+// with its default.
+func Parse(data []byte, name string) (*Protocol, error) {
+	var root yaml.Node
+	if err := yaml.Unmarshal(data, &root); err != nil {
+		return nil, &Error{File: name, Err: syntaxError(err, data)}
+	}
+	if doc := documentContent(&root); doc != nil && doc.Kind != yaml.MappingNode {
+		return nil, &Error{File: name, Line: doc.Line, Err: fmt.Errorf("%s, not a mapping of protocol fields (name, criteria, rules, ...)", nodeKind(doc))}
+	}
+	dec := yaml.NewDecoder(bytes.NewReader(data))
+	dec.KnownFields(true)
+	var p Protocol
+	if err := dec.Decode(&p); err != nil {
+		if errors.Is(err, io.EOF) {
+			return nil, &Error{File: name, Err: errors.New("empty file: no protocol")}
+		}
+		var te *yaml.TypeError
+		if errors.As(err, &te) {
+			return nil, typeErrors(name, &root, te)
+		}
+		return nil, &Error{File: name, Err: syntaxError(err, data)}
+	}
+	var extra yaml.Node
+	if err := dec.Decode(&extra); !errors.Is(err, io.EOF) {
+		return nil, &Error{File: name, Line: extra.Line, Err: errors.New("more than one YAML document: want one protocol per file")}
+	}
+	pos := nodePositions{root: &root}
+	if errs := p.check(name, pos.line); len(errs) > 0 {
+		return nil, errors.Join(errs...)
+	}
+	p.normalise()
+	return &p, nil
+}
+
+// Validate checks every field of a protocol built in code (a [Parse]d one
+// has been checked already) and returns the problems found, joined; nil
+// when there is none.
+func (p *Protocol) Validate() error {
+	if p == nil {
+		return errors.New("protocol: nil protocol")
+	}
+	return errors.Join(p.check(fmt.Sprintf("protocol %q", p.Name), nil)...)
+}
+
+// GammaCriteria returns the gamma criteria of the protocol.
+func (p *Protocol) GammaCriteria() (gamma.Criteria, error) {
+	c, err := p.Criteria.gamma()
+	if err != nil {
+		return gamma.Criteria{}, fmt.Errorf("protocol %q: %w", p.Name, err)
+	}
+	return c, nil
+}
+
+// ROIRules returns the protocol's kind rules in the form [roi.Classify]
+// takes, in order.
+func (p *Protocol) ROIRules() ([]roi.Rule, error) {
+	out := make([]roi.Rule, 0, len(p.KindRules))
+	for i, k := range p.KindRules {
+		r, err := k.roiRule()
+		if err != nil {
+			return nil, fmt.Errorf("protocol %q: roi_kinds[%d]: %w", p.Name, i, err)
+		}
+		out = append(out, r)
+	}
+	return out, nil
+}
+
+func (k KindRule) roiRule() (roi.Rule, error) {
+	if strings.TrimSpace(k.Pattern) == "" {
+		return roi.Rule{}, errors.New("empty pattern")
+	}
+	kind, err := roi.ParseKind(k.Kind)
+	if err != nil {
+		return roi.Rule{}, fmt.Errorf("kind %q: want target, oar, body or other", k.Kind)
+	}
+	return roi.Rule{Pattern: strings.TrimSpace(k.Pattern), Kind: kind, Override: k.Override}, nil
+}
+
+// gamma converts and validates the criteria.
+func (c Criteria) gamma() (gamma.Criteria, error) {
+	dose, dta, err := gamma.ParseCriteria(c.Criteria)
+	if err != nil {
+		return gamma.Criteria{}, err
+	}
+	norm, err := parseNormalisation(c.Normalisation)
+	if err != nil {
+		return gamma.Criteria{}, err
+	}
+	g := gamma.Criteria{
+		DosePercent:      dose,
+		DTA:              dta,
+		Normalisation:    norm,
+		NormDose:         c.NormDoseGy,
+		ThresholdPercent: c.ThresholdPercent,
+		Search:           c.SearchMM,
+	}
+	if err := g.Validate(); err != nil {
+		return gamma.Criteria{}, err
+	}
+	return g, nil
+}
+
+func parseNormalisation(s string) (gamma.Normalisation, error) {
+	switch strings.ToLower(strings.TrimSpace(s)) {
+	case "", "global":
+		return gamma.Global, nil
+	case "local":
+		return gamma.Local, nil
+	}
+	return gamma.Global, fmt.Errorf("normalisation %q: want global or local", s)
+}
+
+// check returns every problem of p. line, when not nil, gives the line of
+// a field path in the source file (0 when unknown).
+func (p *Protocol) check(file string, line func(path ...any) int) []error {
+	var errs []error
+	add := func(err error, path ...any) {
+		e := &Error{File: file, Field: fieldPath(path), Err: err}
+		if line != nil {
+			e.Line = line(path...)
+		}
+		errs = append(errs, e)
+	}
+	if strings.TrimSpace(p.Name) == "" {
+		add(errors.New("empty: every protocol needs a name"), "name")
+	}
+	c := p.Criteria
+	switch {
+	case strings.TrimSpace(c.Criteria) == "":
+		add(errors.New("missing: want the criteria in the form DOSE%/DTAmm, e.g. 3%/2mm"), "criteria", "criteria")
+	default:
+		if _, _, err := gamma.ParseCriteria(c.Criteria); err != nil {
+			add(err, "criteria", "criteria")
+		}
+	}
+	if _, err := parseNormalisation(c.Normalisation); err != nil {
+		add(err, "criteria", "normalisation")
+	}
+	if !(c.ThresholdPercent >= 0 && c.ThresholdPercent < 100) {
+		add(fmt.Errorf("%g %%: want a value from 0 to below 100", c.ThresholdPercent), "criteria", "threshold_percent")
+	}
+	if !(c.SearchMM >= 0) || math.IsInf(c.SearchMM, 0) {
+		add(fmt.Errorf("%g mm: want a positive distance, or 0 for 3×DTA", c.SearchMM), "criteria", "search_mm")
+	}
+	if !(c.NormDoseGy >= 0) || math.IsInf(c.NormDoseGy, 0) {
+		add(fmt.Errorf("%g Gy: want a positive dose, or 0 for the reference maximum", c.NormDoseGy), "criteria", "norm_dose_gy")
+	}
+	for i, k := range p.KindRules {
+		if strings.TrimSpace(k.Pattern) == "" {
+			add(errors.New("empty pattern"), "roi_kinds", i, "pattern")
+		}
+		if _, err := roi.ParseKind(k.Kind); err != nil {
+			add(fmt.Errorf("kind %q: want target, oar, body or other", k.Kind), "roi_kinds", i, "kind")
+		}
+	}
+	for i, v := range p.Isodose {
+		switch {
+		case !(v > 0) || math.IsInf(v, 0):
+			add(fmt.Errorf("%g %%: want a positive percentage of the normalisation dose", v), "isodose_rois", i)
+		case slices.Index(p.Isodose, v) < i:
+			add(fmt.Errorf("%g %% is listed twice", v), "isodose_rois", i)
+		}
+	}
+	if len(p.Rules) == 0 {
+		add(errors.New("no rule: a protocol checks at least one rule"), "rules")
+	}
+	for i, r := range p.Rules {
+		for _, fe := range r.check(p.Isodose) {
+			add(fe.err, "rules", i, fe.field)
+		}
+	}
+	return errs
+}
+
+// normalise writes keywords in their canonical form and fills in defaults.
+// It is called only on a checked protocol.
+func (p *Protocol) normalise() {
+	if n, err := parseNormalisation(p.Criteria.Normalisation); err == nil {
+		p.Criteria.Normalisation = n.String()
+	}
+	p.Criteria.Criteria = strings.TrimSpace(p.Criteria.Criteria)
+	if len(p.KindRules) == 0 {
+		p.KindRules = nil
+	}
+	if len(p.Isodose) == 0 {
+		p.Isodose = nil
+	}
+	for i := range p.KindRules {
+		k := &p.KindRules[i]
+		k.Pattern = strings.TrimSpace(k.Pattern)
+		k.Kind = strings.ToLower(strings.TrimSpace(k.Kind))
+	}
+	for i := range p.Rules {
+		r := &p.Rules[i]
+		r.Level = r.level()
+		if s, err := parseSubject(r.Subject); err == nil {
+			r.Subject = s.String()
+		}
+		if m, err := parseMetric(r.Metric); err == nil {
+			r.Metric = m.String()
+		}
+		if o, err := parseOp(r.Op); err == nil {
+			r.Op = string(o)
+		}
+	}
+}
+
+// documentContent returns the top node of a parsed document, nil for an
+// empty one.
+func documentContent(root *yaml.Node) *yaml.Node {
+	if root.Kind == yaml.DocumentNode && len(root.Content) > 0 {
+		return root.Content[0]
+	}
+	return nil
+}
+
+// nodeKind names the kind of a YAML node for a message.
+func nodeKind(n *yaml.Node) string {
+	switch n.Kind {
+	case yaml.SequenceNode:
+		return "a list"
+	case yaml.ScalarNode:
+		return fmt.Sprintf("the value %q", n.Value)
+	case yaml.AliasNode:
+		return "an alias"
+	}
+	return "a mapping"
+}
+
+// fieldPath writes a path such as rules[2].op.
+func fieldPath(path []any) string {
+	var b strings.Builder
+	for _, s := range path {
+		switch v := s.(type) {
+		case int:
+			fmt.Fprintf(&b, "[%d]", v)
+		case string:
+			if v == "" {
+				continue
+			}
+			if b.Len() > 0 {
+				b.WriteByte('.')
+			}
+			b.WriteString(v)
+		}
+	}
+	return b.String()
+}
+
+// nodePositions finds lines of fields in a parsed YAML document.
+type nodePositions struct{ root *yaml.Node }
+
+// line returns the line of the value at path (mapping keys as strings,
+// sequence indices as ints); for a missing field, the line of the deepest
+// part of the path that exists.
+func (np nodePositions) line(path ...any) int {
+	n := np.root
+	if n == nil {
+		return 0
+	}
+	if n.Kind == yaml.DocumentNode && len(n.Content) > 0 {
+		n = n.Content[0]
+	}
+	best := n.Line
+	for _, s := range path {
+		var next *yaml.Node
+		switch v := s.(type) {
+		case int:
+			if n.Kind == yaml.SequenceNode && v >= 0 && v < len(n.Content) {
+				next = n.Content[v]
+			}
+		case string:
+			if v == "" {
+				continue
+			}
+			if n.Kind == yaml.MappingNode {
+				for j := 0; j+1 < len(n.Content); j += 2 {
+					if n.Content[j].Value == v {
+						next = n.Content[j+1]
+						best = n.Content[j].Line
+						break
+					}
+				}
+			}
+		}
+		if next == nil {
+			return best
+		}
+		n = next
+		best = n.Line
+	}
+	return best
+}
+
+// pathAt returns the path of the deepest field that starts on line.
+func pathAt(n *yaml.Node, line int) []any {
+	if n == nil {
+		return nil
+	}
+	if n.Kind == yaml.DocumentNode {
+		if len(n.Content) == 0 {
+			return nil
+		}
+		return pathAt(n.Content[0], line)
+	}
+	var best []any
+	switch n.Kind {
+	case yaml.MappingNode:
+		for j := 0; j+1 < len(n.Content); j += 2 {
+			k, v := n.Content[j], n.Content[j+1]
+			if k.Line == line {
+				best = []any{k.Value}
+			}
+			if sub := pathAt(v, line); sub != nil {
+				best = append([]any{k.Value}, sub...)
+			}
+		}
+	case yaml.SequenceNode:
+		for j, v := range n.Content {
+			if v.Line == line {
+				best = []any{j}
+			}
+			if sub := pathAt(v, line); sub != nil {
+				best = append([]any{j}, sub...)
+			}
+		}
+	}
+	return best
+}
+
+var (
+	typeErrorLine = regexp.MustCompile(`^line (\d+): (.*)$`)
+	unknownField  = regexp.MustCompile(`^field (\S+) not found in type (\S+)$`)
+)
+
+// typeErrors turns the decoder's messages into [*Error]s with the field
+// path, and names the fields that are known where one is not.
+func typeErrors(file string, root *yaml.Node, te *yaml.TypeError) error {
+	var errs []error
+	for _, msg := range te.Errors {
+		e := &Error{File: file, Err: errors.New(msg)}
+		if m := typeErrorLine.FindStringSubmatch(msg); m != nil {
+			e.Line, _ = strconv.Atoi(m[1])
+			e.Field = fieldPath(pathAt(root, e.Line))
+			e.Err = errors.New(m[2])
+			if u := unknownField.FindStringSubmatch(m[2]); u != nil {
+				e.Err = fmt.Errorf("unknown field %q (known here: %s)", u[1], knownFields(u[2]))
+			}
+		}
+		errs = append(errs, e)
+	}
+	return errors.Join(errs...)
+}
+
+// knownFields lists the YAML keys of the protocol type named typ
+// ("protocol.Rule"), from the struct tags.
+func knownFields(typ string) string {
+	for _, t := range []reflect.Type{
+		reflect.TypeFor[Protocol](), reflect.TypeFor[Criteria](),
+		reflect.TypeFor[KindRule](), reflect.TypeFor[Rule](),
+	} {
+		if t.String() != typ {
+			continue
+		}
+		var keys []string
+		for i := range t.NumField() {
+			keys = append(keys, strings.Split(t.Field(i).Tag.Get("yaml"), ",")[0])
+		}
+		return strings.Join(keys, ", ")
+	}
+	return "see the package documentation"
+}
+
+var unquotedOp = regexp.MustCompile(`(?m)^[\s-]*op:\s*>`)
+
+// syntaxError adds a hint to a YAML syntax error when the likely cause is
+// an unquoted ">=" (a '>' starts a folded block in YAML).
+func syntaxError(err error, data []byte) error {
+	if unquotedOp.Match(data) {
+		return fmt.Errorf("%w (write the operator in quotes: op: \">=\")", err)
+	}
+	return err
+}

@@ -1,0 +1,261 @@
+// Package result defines the machine-readable outcome of one voxgamma
+// comparison: the document written as JSON for a check pipeline, and the one
+// source of truth the CSV table and the HTML review page are made from.
+//
+// The field names are a contract with pipelines (see README "JSON result").
+// Numbers that do not exist (a pass rate when nothing was evaluated, a Γ
+// statistic of an empty set) are null, never 0 and never NaN. Fields that
+// change from run to run on the same inputs (timestamp, timing, worker
+// count) are kept apart in Run, so that the rest is byte-identical.
+package result
+
+// SchemaVersion is the version of this document's layout. It changes its
+// major number when a field is removed or changes meaning, its minor number
+// when fields are added.
+const SchemaVersion = "1.0"
+
+// Result is the whole outcome of one comparison.
+type Result struct {
+	// SchemaVersion is [SchemaVersion].
+	SchemaVersion string `json:"schema_version"`
+	// Version is the voxgamma version that produced the result.
+	Version string `json:"version"`
+	// Caution is the statement every output carries: a verification aid
+	// for qualified physicists; local protocols decide.
+	Caution string `json:"caution"`
+	// Criteria as applied.
+	Criteria Criteria `json:"criteria"`
+	// Overall is Γ over every evaluated reference point.
+	Overall GammaStats `json:"overall"`
+	// ROIs holds the per-structure results, structures first in file
+	// order, then the derived ROIs ("all targets", isodose regions).
+	ROIs []ROI `json:"rois"`
+	// Clusters lists connected failing regions, largest first.
+	Clusters []Cluster `json:"failing_clusters"`
+	// Verdict is "pass" when every rule of the protocol was met, "fail"
+	// otherwise.
+	Verdict string `json:"verdict"`
+	// Protocol is the protocol used, in full.
+	Protocol any `json:"protocol"`
+	// Rules lists every rule checked and its outcome.
+	Rules []RuleOutcome `json:"rules"`
+	// Warnings are things a physicist must know (summation types differ,
+	// part of the reference outside the evaluated grid, ...).
+	Warnings []string `json:"warnings"`
+	// Notes say how the numbers were obtained (partial-volume rule,
+	// sub-grid evaluation, ROIs not rasterised, ...).
+	Notes []string `json:"notes"`
+	// Inputs describes each input file.
+	Inputs []Input `json:"inputs"`
+	// Run holds what varies between runs on the same inputs.
+	Run Run `json:"run"`
+}
+
+// Criteria are the gamma criteria as applied.
+type Criteria struct {
+	DosePercent float64 `json:"dose_percent"`
+	DTAmm       float64 `json:"dta_mm"`
+	// Normalisation is "global" or "local".
+	Normalisation string `json:"normalisation"`
+	// NormDoseGy is the dose the global criterion and the threshold are
+	// percentages of.
+	NormDoseGy float64 `json:"norm_dose_gy"`
+	// NormDoseSource says where NormDoseGy came from: "reference maximum",
+	// "prescription", "user".
+	NormDoseSource   string  `json:"norm_dose_source"`
+	ThresholdPercent float64 `json:"threshold_percent"`
+	SearchMM         float64 `json:"search_mm"`
+	// Method is "fast" or "exhaustive".
+	Method string `json:"method"`
+	// Label is the criteria in the trade's notation, e.g. "3%/2mm global".
+	Label string `json:"label"`
+}
+
+// GammaStats summarises Γ over a set of reference points.
+type GammaStats struct {
+	// Evaluated counts points with a Γ (including capped points).
+	Evaluated int `json:"evaluated"`
+	// Passed counts points with Γ ≤ 1.
+	Passed int `json:"passed"`
+	// PassRate is 100·Passed/Evaluated, null when nothing was evaluated.
+	PassRate *float64 `json:"pass_rate"`
+	// PassRateText is the pass rate with one decimal, rounded down
+	// ("99.9", never "100.0" unless all passed), or "n/a".
+	PassRateText string   `json:"pass_rate_text"`
+	GammaMean    *float64 `json:"gamma_mean"`
+	GammaMedian  *float64 `json:"gamma_median"`
+	GammaP95     *float64 `json:"gamma_p95"`
+	GammaP99     *float64 `json:"gamma_p99"`
+	GammaMax     *float64 `json:"gamma_max"`
+	// AboveOneHalfPercent is the percentage of evaluated points with Γ > 1.5.
+	AboveOneHalfPercent *float64 `json:"gamma_above_1_5_percent"`
+	// Capped counts points with no agreement within the search distance.
+	Capped int `json:"capped_at_search"`
+	// BelowThreshold counts points under the low-dose threshold.
+	BelowThreshold int `json:"below_threshold"`
+	// OutsideEvaluated counts points outside the evaluated grid.
+	OutsideEvaluated int `json:"outside_evaluated"`
+}
+
+// ROI is the outcome for one region of interest.
+type ROI struct {
+	Name string `json:"name"`
+	// Number is the ROI number in the structure set; 0 for derived ROIs.
+	Number int `json:"number"`
+	// Kind is "target", "oar", "body" or "other".
+	Kind string `json:"kind"`
+	// InterpretedType is the RTROIInterpretedType as written, if any.
+	InterpretedType string `json:"interpreted_type"`
+	// Source is "structure set", "derived" or "isodose".
+	Source string `json:"source"`
+	// VolumeCC is the partial-volume-weighted volume on the dose grid.
+	VolumeCC float64 `json:"volume_cc"`
+	// Voxels counts the reference voxels whose centre is inside.
+	Voxels int `json:"voxels"`
+	GammaStats
+	// FailingVolumeCC is the volume of the failing voxels.
+	FailingVolumeCC float64 `json:"failing_volume_cc"`
+	// WorstCentroidMM is the centroid of the failing voxels in patient
+	// coordinates, null when none fails.
+	WorstCentroidMM *[3]float64 `json:"failing_centroid_mm"`
+	// Status is "evaluated", or why the ROI was not: "all below
+	// threshold", "outside the dose grid", "no contours", "points only".
+	Status string `json:"status"`
+	// SubGridMM is the step of the finer reference sub-grid the ROI was
+	// evaluated on, null when evaluated on the reference voxels.
+	SubGridMM *float64 `json:"subgrid_mm"`
+	// DVH holds dose-volume metrics of both doses and their differences.
+	DVH *DVHPair `json:"dvh"`
+}
+
+// DVHPair holds the dose-volume metrics of reference and evaluated dose
+// over one ROI and their differences (evaluated − reference).
+type DVHPair struct {
+	Reference DVHStats `json:"reference"`
+	Evaluated DVHStats `json:"evaluated"`
+	// DifferenceGy is evaluated − reference for each metric, in Gy.
+	DifferenceGy DVHStats `json:"difference_gy"`
+	// DifferencePercent is the difference in percent of the reference
+	// value of each metric.
+	DifferencePercent DVHStats `json:"difference_percent"`
+	// Curves are the cumulative DVHs, for plotting.
+	Curves *DVHCurves `json:"curves,omitempty"`
+}
+
+// DVHStats are the dose-volume metrics of one dose over one ROI (ICRU Report
+// 83 definitions: D_x is the minimum dose to the hottest x of the volume).
+type DVHStats struct {
+	MeanGy    *float64 `json:"mean_gy"`
+	MaxGy     *float64 `json:"max_gy"`
+	MinGy     *float64 `json:"min_gy"`
+	D98Gy     *float64 `json:"d98_gy"`
+	D95Gy     *float64 `json:"d95_gy"`
+	D50Gy     *float64 `json:"d50_gy"`
+	D2Gy      *float64 `json:"d2_gy"`
+	D003ccGy  *float64 `json:"d0_03cc_gy"`
+	VolumeAtD []VAt    `json:"v,omitempty"`
+}
+
+// VAt is the volume receiving at least a dose.
+type VAt struct {
+	DoseGy  float64  `json:"dose_gy"`
+	CC      *float64 `json:"cc"`
+	Percent *float64 `json:"percent"`
+}
+
+// DVHCurves are cumulative DVHs sampled at common dose bins.
+type DVHCurves struct {
+	// DoseGy are the bin doses.
+	DoseGy []float64 `json:"dose_gy"`
+	// ReferencePercent and EvaluatedPercent are the percentages of the ROI
+	// volume receiving at least each bin dose.
+	ReferencePercent []float64 `json:"reference_percent"`
+	EvaluatedPercent []float64 `json:"evaluated_percent"`
+}
+
+// Cluster is a connected region (26-neighbour) of failing voxels.
+type Cluster struct {
+	VolumeCC   float64    `json:"volume_cc"`
+	Voxels     int        `json:"voxels"`
+	CentroidMM [3]float64 `json:"centroid_mm"`
+	GammaMax   float64    `json:"gamma_max"`
+	// ROIs names the ROIs the cluster touches.
+	ROIs []string `json:"rois"`
+}
+
+// RuleOutcome is one protocol rule and whether it was met.
+type RuleOutcome struct {
+	// Rule is the rule in words, e.g. "every target: pass rate ≥ 95 %".
+	Rule string `json:"rule"`
+	// Level is "action" or "tolerance" (or as the protocol names it).
+	Level string `json:"level"`
+	// Subject is what the rule was applied to: an ROI name or "overall".
+	Subject string `json:"subject"`
+	// Value is the measured value, null when it could not be measured.
+	Value *float64 `json:"value"`
+	// Limit is the rule's limit.
+	Limit float64 `json:"limit"`
+	// Met is true when the rule held.
+	Met bool `json:"met"`
+	// Reason explains a rule not met or not applicable.
+	Reason string `json:"reason,omitempty"`
+}
+
+// Input describes one input file.
+type Input struct {
+	// Role is "reference", "evaluated", "structures" or "reference points".
+	Role string `json:"role"`
+	Path string `json:"path"`
+	// SHA256 of the file's bytes, hex.
+	SHA256              string `json:"sha256"`
+	Modality            string `json:"modality,omitempty"`
+	SOPInstanceUID      string `json:"sop_instance_uid,omitempty"`
+	FrameOfReferenceUID string `json:"frame_of_reference_uid,omitempty"`
+	PatientID           string `json:"patient_id,omitempty"`
+	PatientName         string `json:"patient_name,omitempty"`
+	DoseUnits           string `json:"dose_units,omitempty"`
+	DoseType            string `json:"dose_type,omitempty"`
+	DoseSummationType   string `json:"dose_summation_type,omitempty"`
+	// Grid describes a dose grid: dims, spacing, origin.
+	Grid *GridInfo `json:"grid,omitempty"`
+	// Description is anything else worth saying about the input.
+	Description string `json:"description,omitempty"`
+}
+
+// GridInfo describes a dose grid's geometry.
+type GridInfo struct {
+	Dims      [3]int        `json:"dims"`
+	SpacingMM [3]float64    `json:"spacing_mm"`
+	OriginMM  [3]float64    `json:"origin_mm"`
+	Direction [3][3]float64 `json:"direction"`
+	// UniformFrames is false when frame offsets are irregular (SpacingMM[2]
+	// is then their mean).
+	UniformFrames bool    `json:"uniform_frames"`
+	MaxDoseGy     float64 `json:"max_dose_gy"`
+}
+
+// Run holds what may differ between runs on the same inputs.
+type Run struct {
+	// Started is the start time, RFC 3339 UTC.
+	Started string `json:"started"`
+	// Seconds is the wall time of the whole comparison.
+	Seconds float64 `json:"seconds"`
+	// GammaSeconds is the wall time of the gamma search alone.
+	GammaSeconds float64 `json:"gamma_seconds"`
+	Workers      int     `json:"workers"`
+}
+
+// Caution is the statement carried by every output.
+const Caution = "voxgamma is a verification aid for qualified medical physicists. " +
+	"Its results depend on the criteria, inputs and settings shown. It does not decide whether " +
+	"a patient is treated: local protocols, licensed practice and the clinic's own commissioning " +
+	"of this tool decide."
+
+// Ptr returns a pointer to v, or nil when v is NaN: the JSON null for a
+// number that does not exist.
+func Ptr(v float64) *float64 {
+	if v != v {
+		return nil
+	}
+	return &v
+}
