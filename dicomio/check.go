@@ -1,0 +1,147 @@
+package dicomio
+
+import (
+	"errors"
+	"fmt"
+	"path/filepath"
+	"strings"
+
+	"voxgamma/structure"
+	"voxgamma/volume"
+)
+
+// Findings are the results of [CheckConsistency]: errors forbid the
+// comparison, warnings must be shown to the user.
+type Findings struct {
+	Errors   []string
+	Warnings []string
+}
+
+// Err returns the errors joined into one error, or nil when there are none.
+func (f *Findings) Err() error {
+	if len(f.Errors) == 0 {
+		return nil
+	}
+	return errors.New(strings.Join(f.Errors, "; "))
+}
+
+func (f *Findings) errorf(format string, args ...any) {
+	f.Errors = append(f.Errors, fmt.Sprintf(format, args...))
+}
+
+func (f *Findings) warnf(format string, args ...any) {
+	f.Warnings = append(f.Warnings, fmt.Sprintf(format, args...))
+}
+
+// HighDoseFraction defines the reference high-dose region that
+// [CheckConsistency] wants the evaluated grid to cover: the reference
+// voxels with at least this fraction of the reference maximum.
+const HighDoseFraction = 0.5
+
+// partialSummation lists the DoseSummationTypes of doses that are a part of
+// a plan's dose (one beam, one fraction, ...).
+var partialSummation = map[string]bool{"BEAM": true, "FRACTION": true, "CONTROL_POINT": true,
+	"BEAM_SESSION": true, "FRACTION_SESSION": true, "BRACHY_SESSION": true}
+
+// CheckConsistency checks that a reference and an evaluated dose (and the
+// structure set, when not nil) can be compared:
+//
+//   - frames of reference differ: an error, or a warning when
+//     allowDifferentFrames (the user vouches the coordinates agree);
+//   - dose units differ (GY against RELATIVE): an error;
+//   - summation types differ: a warning (a beam or fraction dose compared
+//     with a plan dose is a classic mistake);
+//   - patient IDs differ: a warning;
+//   - the evaluated grid does not cover the reference high-dose region (at
+//     least [HighDoseFraction] of the reference maximum): a warning saying
+//     how much lies outside, an error when none of it is covered.
+func CheckConsistency(ref *DoseInfo, refGrid *volume.Grid, eval *DoseInfo, evalGrid *volume.Grid, set *structure.Set, allowDifferentFrames bool) *Findings {
+	f := &Findings{}
+	rn, en := fileLabel(ref, "reference"), fileLabel(eval, "evaluated")
+
+	frameCheck := func(what, a, b string) {
+		switch {
+		case a == "" || b == "":
+			f.warnf("%s: a frame of reference UID is missing (%s, %s): cannot check that they share coordinates", what, orNone(a), orNone(b))
+		case a != b && allowDifferentFrames:
+			f.warnf("%s are in different frames of reference (%s, %s); compared as if their coordinates agreed, as asked", what, a, b)
+		case a != b:
+			f.errorf("%s are in different frames of reference (%s, %s): their coordinates need not agree; register them first, or allow different frames if you know they agree", what, a, b)
+		}
+	}
+	frameCheck(fmt.Sprintf("the reference (%s) and evaluated (%s) doses", rn, en), ref.FrameOfReferenceUID, eval.FrameOfReferenceUID)
+	if set != nil {
+		frameCheck(fmt.Sprintf("the reference dose (%s) and the structure set %q", rn, set.Label), ref.FrameOfReferenceUID, set.FrameOfReferenceUID)
+		for _, r := range set.ROIs {
+			if r.FrameOfReferenceUID != "" && set.FrameOfReferenceUID != "" && r.FrameOfReferenceUID != set.FrameOfReferenceUID {
+				frameCheck(fmt.Sprintf("the reference dose (%s) and %s", rn, roiLabel(r.Number, r.Name)), ref.FrameOfReferenceUID, r.FrameOfReferenceUID)
+			}
+		}
+	}
+	if ref.DoseUnits != eval.DoseUnits {
+		f.errorf("dose units differ: reference (%s) %s, evaluated (%s) %s: an absolute and a relative dose cannot be compared", rn, orNone(ref.DoseUnits), en, orNone(eval.DoseUnits))
+	}
+	rs, es := ref.DoseSummationType, eval.DoseSummationType
+	switch {
+	case rs == "" || es == "":
+		f.warnf("DoseSummationType missing (reference %s, evaluated %s): cannot check that both are the same kind of dose", orNone(rs), orNone(es))
+	case rs != es && (partialSummation[rs] || partialSummation[es]):
+		f.warnf("DoseSummationType differs: reference (%s) %s, evaluated (%s) %s: comparing a beam or fraction dose with a plan dose is a classic mistake (a fraction dose differs from the plan total by the number of fractions); check that these are the files you mean", rn, rs, en, es)
+	case rs != es:
+		f.warnf("DoseSummationType differs: reference (%s) %s, evaluated (%s) %s", rn, rs, en, es)
+	}
+	if ref.PatientID != "" && eval.PatientID != "" && ref.PatientID != eval.PatientID {
+		f.warnf("patient IDs differ: reference (%s) %q, evaluated (%s) %q", rn, ref.PatientID, en, eval.PatientID)
+	}
+	if refGrid != nil && evalGrid != nil {
+		coverage(f, ref, refGrid, evalGrid)
+	}
+	return f
+}
+
+// coverage checks that the evaluated grid covers the reference high-dose
+// region.
+func coverage(f *Findings, ref *DoseInfo, refGrid, evalGrid *volume.Grid) {
+	peak, _ := refGrid.Max()
+	if !(peak > 0) {
+		f.errorf("the reference dose has no positive value (maximum %g): nothing to compare", peak)
+		return
+	}
+	thr := float32(HighDoseFraction) * peak
+	total, outside := 0, 0
+	n := 0
+	dims := refGrid.Dims()
+	for k := 0; k < dims[2]; k++ {
+		for j := 0; j < dims[1]; j++ {
+			for i := 0; i < dims[0]; i++ {
+				v := refGrid.Data[n]
+				n++
+				if !(v >= thr) {
+					continue
+				}
+				total++
+				u := evalGrid.WorldToLocal(refGrid.WorldOf(i, j, k))
+				for a := 0; a < 3; a++ {
+					if _, _, ok := evalGrid.Cell(a, u[a]); !ok {
+						outside++
+						break
+					}
+				}
+			}
+		}
+	}
+	region := fmt.Sprintf("the reference high-dose region (%d voxels at ≥ %g %% of the reference maximum %.4g %s)", total, HighDoseFraction*100, peak, ref.UnitLabel())
+	switch {
+	case outside == total:
+		f.errorf("the evaluated grid covers none of %s: the grids do not overlap where it matters", region)
+	case outside > 0:
+		f.warnf("%.1f %% (%d voxels) of %s lies outside the evaluated grid and cannot be compared", 100*float64(outside)/float64(total), outside, region)
+	}
+}
+
+func fileLabel(d *DoseInfo, fallback string) string {
+	if d.Path == "" {
+		return fallback
+	}
+	return filepath.Base(d.Path)
+}

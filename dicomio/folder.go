@@ -1,0 +1,249 @@
+package dicomio
+
+import (
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+
+	"voxgamma/structure"
+)
+
+// DoseFile is an RT Dose file found by [ScanFolder], with its header
+// (dose values not decoded).
+type DoseFile struct {
+	Path string
+	Info *DoseInfo
+}
+
+// StructureFile is an RT Structure Set file found by [ScanFolder].
+type StructureFile struct {
+	Path string
+	Set  *structure.Set
+}
+
+// Ignored is a file [ScanFolder] or [Folder.Choose] set aside, and why.
+type Ignored struct {
+	Path   string
+	Reason string
+}
+
+// Folder is what [ScanFolder] found in a directory.
+type Folder struct {
+	Dir           string
+	Doses         []DoseFile
+	StructureSets []StructureFile
+	// Ignored lists the files that are not usable RT Dose or RT Structure
+	// Set files: not DICOM, another modality, unreadable.
+	Ignored []Ignored
+}
+
+// ScanFolder reads every file in dir (not its subdirectories) and sorts
+// them by Modality (0008,0060): RTDOSE headers and RTSTRUCT files are
+// read; everything else is listed in Ignored with the reason. It fails only
+// when dir cannot be listed.
+func ScanFolder(dir string) (*Folder, error) {
+	entries, err := os.ReadDir(dir)
+	if err != nil {
+		return nil, fmt.Errorf("scanning %s: %w", dir, err)
+	}
+	fo := &Folder{Dir: dir}
+	for _, e := range entries {
+		path := filepath.Join(dir, e.Name())
+		if e.IsDir() {
+			fo.Ignored = append(fo.Ignored, Ignored{path, "directory (subfolders are not searched)"})
+			continue
+		}
+		fo.scanFile(path)
+	}
+	return fo, nil
+}
+
+func (fo *Folder) scanFile(path string) {
+	f, err := openFile(path)
+	if err != nil {
+		reason := err.Error()
+		if errors.Is(err, ErrNotDICOM) {
+			reason = "not a DICOM file"
+		}
+		fo.Ignored = append(fo.Ignored, Ignored{path, reason})
+		return
+	}
+	defer f.close()
+	switch m := f.ds.str(tagModality); m {
+	case "RTDOSE":
+		var info *DoseInfo
+		err := guard(func() error {
+			var err error
+			info, _, err = f.doseHeader()
+			return err
+		})
+		if err != nil {
+			fo.Ignored = append(fo.Ignored, Ignored{path, "unreadable RT Dose: " + err.Error()})
+			return
+		}
+		fo.Doses = append(fo.Doses, DoseFile{path, info})
+	case "RTSTRUCT":
+		var set *structure.Set
+		err := guard(func() error {
+			var err error
+			set, err = f.structureSet()
+			return err
+		})
+		if err != nil {
+			fo.Ignored = append(fo.Ignored, Ignored{path, "unreadable RT Structure Set: " + err.Error()})
+			return
+		}
+		fo.StructureSets = append(fo.StructureSets, StructureFile{path, set})
+	case "":
+		fo.Ignored = append(fo.Ignored, Ignored{path, "DICOM file without Modality (0008,0060)"})
+	default:
+		fo.Ignored = append(fo.Ignored, Ignored{path, "Modality " + m + " (neither RTDOSE nor RTSTRUCT)"})
+	}
+}
+
+// Choice is what [Folder.Choose] picked, and an account of it.
+type Choice struct {
+	Dose DoseFile
+	// StructureSet is the structure set in the dose's frame of reference;
+	// nil when the folder holds none.
+	StructureSet *StructureFile
+	// Account says in one line each what was chosen, what was ignored and
+	// why ("ignored rtdose_beam2.dcm: DoseSummationType BEAM"), and warns
+	// about a choice that deserves a look.
+	Account []string
+}
+
+// Report returns the account as text, one line each.
+func (c *Choice) Report() string { return strings.Join(c.Account, "\n") + "\n" }
+
+// summationRank orders DoseSummationTypes by preference: the plan dose
+// first, then other whole-treatment doses, then partial ones.
+func summationRank(t string) int {
+	switch t {
+	case "PLAN":
+		return 0
+	case "MULTI_PLAN", "BRACHY":
+		return 1
+	}
+	return 2
+}
+
+func summationLabel(t string) string {
+	if t == "" {
+		return "DoseSummationType missing"
+	}
+	return "DoseSummationType " + t
+}
+
+// Choose picks the dose to compare and the structure set that goes with
+// it: the RT Dose with DoseSummationType PLAN (else a single MULTI_PLAN or
+// BRACHY dose, else a single dose of another kind, with a warning); when
+// several doses share the best rank it returns an error asking for a file.
+// The structure set is the one whose frame of reference is the dose's; when
+// several are, it returns an error asking for a file.
+func (fo *Folder) Choose() (*Choice, error) {
+	name := func(p string) string {
+		if r, err := filepath.Rel(fo.Dir, p); err == nil {
+			return r
+		}
+		return p
+	}
+	var ignored []string
+	for _, ig := range fo.Ignored {
+		ignored = append(ignored, fmt.Sprintf("ignored %s: %s", name(ig.Path), ig.Reason))
+	}
+	if len(fo.Doses) == 0 {
+		msg := fmt.Sprintf("no usable RT Dose file in %s", fo.Dir)
+		if len(ignored) > 0 {
+			msg += "; " + strings.Join(ignored, "; ")
+		}
+		return nil, errors.New(msg)
+	}
+	best := 3
+	for _, d := range fo.Doses {
+		best = min(best, summationRank(d.Info.DoseSummationType))
+	}
+	var cands []DoseFile
+	var others []DoseFile
+	for _, d := range fo.Doses {
+		if summationRank(d.Info.DoseSummationType) == best {
+			cands = append(cands, d)
+		} else {
+			others = append(others, d)
+		}
+	}
+	if len(cands) > 1 {
+		var names []string
+		for _, d := range cands {
+			names = append(names, fmt.Sprintf("%s (%s)", name(d.Path), summationLabel(d.Info.DoseSummationType)))
+		}
+		sort.Strings(names)
+		return nil, fmt.Errorf("%d RT Dose files in %s could be the plan dose: %s; name the file to use", len(cands), fo.Dir, strings.Join(names, ", "))
+	}
+	d := cands[0]
+	c := &Choice{Dose: d}
+	in := d.Info
+	c.Account = append(c.Account, fmt.Sprintf("chose dose %s: %s, DoseUnits %s, %d×%d×%d grid, frame of reference %s",
+		name(d.Path), summationLabel(in.DoseSummationType), in.DoseUnits, in.Columns, in.Rows, in.NumberOfFrames, orNone(in.FrameOfReferenceUID)))
+	if best == 2 {
+		c.Account = append(c.Account, fmt.Sprintf("warning: %s is not a whole-plan dose (%s): comparing a beam or fraction dose with a plan dose is a classic mistake",
+			name(d.Path), summationLabel(in.DoseSummationType)))
+	}
+	for _, o := range others {
+		c.Account = append(c.Account, fmt.Sprintf("ignored %s: %s", name(o.Path), summationLabel(o.Info.DoseSummationType)))
+	}
+
+	var match []StructureFile
+	var mismatch []string
+	for _, s := range fo.StructureSets {
+		if in.FrameOfReferenceUID != "" && setInFrame(s.Set, in.FrameOfReferenceUID) {
+			match = append(match, s)
+		} else {
+			mismatch = append(mismatch, fmt.Sprintf("ignored %s: frame of reference %s is not the dose's %s",
+				name(s.Path), orNone(s.Set.FrameOfReferenceUID), orNone(in.FrameOfReferenceUID)))
+		}
+	}
+	switch {
+	case len(match) > 1:
+		var names []string
+		for _, s := range match {
+			names = append(names, name(s.Path))
+		}
+		sort.Strings(names)
+		return nil, fmt.Errorf("%d RT Structure Set files in %s share the dose's frame of reference: %s; name the file to use", len(match), fo.Dir, strings.Join(names, ", "))
+	case len(match) == 1:
+		s := match[0]
+		c.StructureSet = &s
+		c.Account = append(c.Account, fmt.Sprintf("chose structure set %s: label %q, %d ROIs, same frame of reference as the dose", name(s.Path), s.Set.Label, len(s.Set.ROIs)))
+	case len(fo.StructureSets) > 0:
+		c.Account = append(c.Account, "no RT Structure Set in the dose's frame of reference")
+	default:
+		c.Account = append(c.Account, "no RT Structure Set in the folder")
+	}
+	c.Account = append(c.Account, mismatch...)
+	c.Account = append(c.Account, ignored...)
+	return c, nil
+}
+
+// setInFrame reports whether the set, or any of its ROIs, is in frame uid.
+func setInFrame(s *structure.Set, uid string) bool {
+	if s.FrameOfReferenceUID == uid {
+		return true
+	}
+	for _, r := range s.ROIs {
+		if r.FrameOfReferenceUID == uid {
+			return true
+		}
+	}
+	return false
+}
+
+func orNone(s string) string {
+	if s == "" {
+		return "(none given)"
+	}
+	return s
+}

@@ -1,0 +1,150 @@
+package dicomio_test
+
+import (
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"voxgamma/dicomio"
+	"voxgamma/structure"
+)
+
+func writeDoseKind(t *testing.T, path string, ids dicomio.Identifiers, sum string) {
+	t.Helper()
+	g := testGrid(t, orientations[0], frameSets["uniform"])
+	opt := dicomio.DoseOptions("test dose " + sum)
+	opt.DoseSummationType = sum
+	if sum == "BEAM" || sum == "FRACTION" {
+		opt.ReferencedFractionGroupNumber = 1
+	}
+	if sum == "BEAM" {
+		opt.ReferencedBeamNumber = 2
+	}
+	if _, err := dicomio.WriteDose(path, g, ids, opt); err != nil {
+		t.Fatal(err)
+	}
+}
+
+func hasLine(lines []string, prefix string) bool {
+	for _, l := range lines {
+		if strings.HasPrefix(l, prefix) {
+			return true
+		}
+	}
+	return false
+}
+
+func TestScanFolderChoose(t *testing.T) {
+	dir := t.TempDir()
+	ids := dicomio.PhantomIdentifiers("", "")
+	other := dicomio.PhantomIdentifiers("PHANTOM^OTHER", "VG-DEMO-002")
+	writeDoseKind(t, filepath.Join(dir, "plan.dcm"), ids, "PLAN")
+	writeDoseKind(t, filepath.Join(dir, "rtdose_beam2.dcm"), ids, "BEAM")
+	writeDoseKind(t, filepath.Join(dir, "fraction.dcm"), ids, "FRACTION")
+	if _, err := dicomio.WriteStructureSet(filepath.Join(dir, "rs.dcm"), demoSet(), ids); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := dicomio.WriteStructureSet(filepath.Join(dir, "rs_other.dcm"), demoSet(), other); err != nil {
+		t.Fatal(err)
+	}
+	os.WriteFile(filepath.Join(dir, "notes.txt"), []byte("plan notes\n"), 0o644)
+	os.WriteFile(filepath.Join(dir, "ct.dcm"), encodeFile(with(baseDose(), str(tModality, "CS", "CT")), explicitLE, true), 0o644)
+	os.WriteFile(filepath.Join(dir, "bad_dose.dcm"), encodeFile(without(baseDose(), tPS), explicitLE, true), 0o644)
+	os.Mkdir(filepath.Join(dir, "subdir"), 0o755)
+
+	fo, err := dicomio.ScanFolder(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(fo.Doses) != 3 || len(fo.StructureSets) != 2 || len(fo.Ignored) != 4 {
+		t.Fatalf("found %d doses, %d structure sets, %d ignored: %+v", len(fo.Doses), len(fo.StructureSets), len(fo.Ignored), fo.Ignored)
+	}
+	c, err := fo.Choose()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if filepath.Base(c.Dose.Path) != "plan.dcm" || c.StructureSet == nil || filepath.Base(c.StructureSet.Path) != "rs.dcm" {
+		t.Fatalf("chose %s and %v", c.Dose.Path, c.StructureSet)
+	}
+	for _, want := range []string{
+		"chose dose plan.dcm: DoseSummationType PLAN, DoseUnits GY, 5×4×5 grid, frame of reference " + ids.FrameOfReferenceUID,
+		"ignored rtdose_beam2.dcm: DoseSummationType BEAM",
+		"ignored fraction.dcm: DoseSummationType FRACTION",
+		"chose structure set rs.dcm: label \"DEMO\", 5 ROIs, same frame of reference as the dose",
+		"ignored rs_other.dcm: frame of reference " + other.FrameOfReferenceUID + " is not the dose's " + ids.FrameOfReferenceUID,
+		"ignored notes.txt: not a DICOM file",
+		"ignored ct.dcm: Modality CT (neither RTDOSE nor RTSTRUCT)",
+		"ignored bad_dose.dcm: unreadable RT Dose: PixelSpacing (0028,0030): missing",
+		"ignored subdir: directory",
+	} {
+		if !hasLine(c.Account, want) {
+			t.Errorf("account lacks %q:\n%s", want, c.Report())
+		}
+	}
+	if c.Dose.Info.DoseSummationType != "PLAN" || c.Dose.Info.Path != c.Dose.Path {
+		t.Errorf("dose info %+v", c.Dose.Info)
+	}
+	for _, d := range fo.Doses {
+		// The beam dose references fraction group 1, beam 2 of the plan.
+		if d.Info.DoseSummationType == "BEAM" && (d.Info.ReferencedFractionGroupNumber != 1 || d.Info.ReferencedBeamNumber != 2 || d.Info.ReferencedRTPlanUID != ids.ReferencedRTPlanUID) {
+			t.Errorf("beam dose references %+v", d.Info)
+		}
+	}
+
+	// A second plan dose: the choice is the user's.
+	writeDoseKind(t, filepath.Join(dir, "plan2.dcm"), ids, "PLAN")
+	fo, _ = dicomio.ScanFolder(dir)
+	if _, err := fo.Choose(); err == nil || !strings.Contains(err.Error(), "2 RT Dose files") ||
+		!strings.Contains(err.Error(), "plan.dcm (DoseSummationType PLAN), plan2.dcm (DoseSummationType PLAN); name the file to use") {
+		t.Errorf("two plan doses: %v", err)
+	}
+}
+
+func TestChooseOnlyBeamDose(t *testing.T) {
+	dir := t.TempDir()
+	ids := dicomio.PhantomIdentifiers("", "")
+	writeDoseKind(t, filepath.Join(dir, "beam.dcm"), ids, "BEAM")
+	fo, err := dicomio.ScanFolder(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c, err := fo.Choose()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !hasLine(c.Account, "warning: beam.dcm is not a whole-plan dose (DoseSummationType BEAM): comparing a beam or fraction dose with a plan dose is a classic mistake") ||
+		!hasLine(c.Account, "no RT Structure Set in the folder") || c.StructureSet != nil {
+		t.Errorf("account:\n%s", c.Report())
+	}
+	// Two beam doses and no plan dose: ask.
+	writeDoseKind(t, filepath.Join(dir, "beam2.dcm"), ids, "BEAM")
+	fo, _ = dicomio.ScanFolder(dir)
+	if _, err := fo.Choose(); err == nil || !strings.Contains(err.Error(), "name the file to use") {
+		t.Errorf("two beam doses: %v", err)
+	}
+}
+
+func TestChooseStructureSets(t *testing.T) {
+	dir := t.TempDir()
+	ids := dicomio.PhantomIdentifiers("", "")
+	writeDoseKind(t, filepath.Join(dir, "plan.dcm"), ids, "PLAN")
+	for _, n := range []string{"rs1.dcm", "rs2.dcm"} {
+		if _, err := dicomio.WriteStructureSet(filepath.Join(dir, n), &structure.Set{Label: n}, ids); err != nil {
+			t.Fatal(err)
+		}
+	}
+	fo, _ := dicomio.ScanFolder(dir)
+	if _, err := fo.Choose(); err == nil || !strings.Contains(err.Error(), "2 RT Structure Set files") || !strings.Contains(err.Error(), "rs1.dcm, rs2.dcm; name the file to use") {
+		t.Errorf("two structure sets: %v", err)
+	}
+	empty := t.TempDir()
+	os.WriteFile(filepath.Join(empty, "readme.txt"), []byte("nothing here"), 0o644)
+	fo, _ = dicomio.ScanFolder(empty)
+	if _, err := fo.Choose(); err == nil || !strings.Contains(err.Error(), "no usable RT Dose file in "+empty) || !strings.Contains(err.Error(), "ignored readme.txt: not a DICOM file") {
+		t.Errorf("no dose: %v", err)
+	}
+	if _, err := dicomio.ScanFolder(filepath.Join(empty, "missing")); err == nil {
+		t.Error("scanning a missing folder succeeded")
+	}
+}

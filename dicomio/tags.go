@@ -1,0 +1,162 @@
+package dicomio
+
+import (
+	"fmt"
+
+	"github.com/suyashkumar/dicom/pkg/tag"
+)
+
+// Tags read or written by this package, with the keyword used in messages.
+// They are spelled out here (rather than taken from the library's dictionary
+// by name) so that every message can name the tag exactly as PS3.6 does.
+var (
+	tagFileMetaGroupLength      = tag.Tag{Group: 0x0002, Element: 0x0000}
+	tagFileMetaVersion          = tag.Tag{Group: 0x0002, Element: 0x0001}
+	tagMediaStorageSOPClass     = tag.Tag{Group: 0x0002, Element: 0x0002}
+	tagMediaStorageSOPInstance  = tag.Tag{Group: 0x0002, Element: 0x0003}
+	tagTransferSyntaxUID        = tag.Tag{Group: 0x0002, Element: 0x0010}
+	tagImplementationClassUID   = tag.Tag{Group: 0x0002, Element: 0x0012}
+	tagImplementationVersion    = tag.Tag{Group: 0x0002, Element: 0x0013}
+	tagSpecificCharacterSet     = tag.Tag{Group: 0x0008, Element: 0x0005}
+	tagInstanceCreationDate     = tag.Tag{Group: 0x0008, Element: 0x0012}
+	tagInstanceCreationTime     = tag.Tag{Group: 0x0008, Element: 0x0013}
+	tagSOPClassUID              = tag.Tag{Group: 0x0008, Element: 0x0016}
+	tagSOPInstanceUID           = tag.Tag{Group: 0x0008, Element: 0x0018}
+	tagStudyDate                = tag.Tag{Group: 0x0008, Element: 0x0020}
+	tagContentDate              = tag.Tag{Group: 0x0008, Element: 0x0023}
+	tagStudyTime                = tag.Tag{Group: 0x0008, Element: 0x0030}
+	tagContentTime              = tag.Tag{Group: 0x0008, Element: 0x0033}
+	tagAccessionNumber          = tag.Tag{Group: 0x0008, Element: 0x0050}
+	tagModality                 = tag.Tag{Group: 0x0008, Element: 0x0060}
+	tagManufacturer             = tag.Tag{Group: 0x0008, Element: 0x0070}
+	tagReferringPhysicianName   = tag.Tag{Group: 0x0008, Element: 0x0090}
+	tagSeriesDescription        = tag.Tag{Group: 0x0008, Element: 0x103E}
+	tagOperatorsName            = tag.Tag{Group: 0x0008, Element: 0x1070}
+	tagManufacturerModelName    = tag.Tag{Group: 0x0008, Element: 0x1090}
+	tagReferencedSOPClassUID    = tag.Tag{Group: 0x0008, Element: 0x1150}
+	tagReferencedSOPInstanceUID = tag.Tag{Group: 0x0008, Element: 0x1155}
+	tagPatientName              = tag.Tag{Group: 0x0010, Element: 0x0010}
+	tagPatientID                = tag.Tag{Group: 0x0010, Element: 0x0020}
+	tagPatientBirthDate         = tag.Tag{Group: 0x0010, Element: 0x0030}
+	tagPatientSex               = tag.Tag{Group: 0x0010, Element: 0x0040}
+	tagSliceThickness           = tag.Tag{Group: 0x0018, Element: 0x0050}
+	tagSoftwareVersions         = tag.Tag{Group: 0x0018, Element: 0x1020}
+	tagStudyInstanceUID         = tag.Tag{Group: 0x0020, Element: 0x000D}
+	tagSeriesInstanceUID        = tag.Tag{Group: 0x0020, Element: 0x000E}
+	tagStudyID                  = tag.Tag{Group: 0x0020, Element: 0x0010}
+	tagSeriesNumber             = tag.Tag{Group: 0x0020, Element: 0x0011}
+	tagInstanceNumber           = tag.Tag{Group: 0x0020, Element: 0x0013}
+	tagImagePositionPatient     = tag.Tag{Group: 0x0020, Element: 0x0032}
+	tagImageOrientationPatient  = tag.Tag{Group: 0x0020, Element: 0x0037}
+	tagFrameOfReferenceUID      = tag.Tag{Group: 0x0020, Element: 0x0052}
+	tagPositionReferenceInd     = tag.Tag{Group: 0x0020, Element: 0x1040}
+	tagSamplesPerPixel          = tag.Tag{Group: 0x0028, Element: 0x0002}
+	tagPhotometric              = tag.Tag{Group: 0x0028, Element: 0x0004}
+	tagNumberOfFrames           = tag.Tag{Group: 0x0028, Element: 0x0008}
+	tagFrameIncrementPointer    = tag.Tag{Group: 0x0028, Element: 0x0009}
+	tagRows                     = tag.Tag{Group: 0x0028, Element: 0x0010}
+	tagColumns                  = tag.Tag{Group: 0x0028, Element: 0x0011}
+	tagPixelSpacing             = tag.Tag{Group: 0x0028, Element: 0x0030}
+	tagBitsAllocated            = tag.Tag{Group: 0x0028, Element: 0x0100}
+	tagBitsStored               = tag.Tag{Group: 0x0028, Element: 0x0101}
+	tagHighBit                  = tag.Tag{Group: 0x0028, Element: 0x0102}
+	tagPixelRepresentation      = tag.Tag{Group: 0x0028, Element: 0x0103}
+	tagDoseUnits                = tag.Tag{Group: 0x3004, Element: 0x0002}
+	tagDoseType                 = tag.Tag{Group: 0x3004, Element: 0x0004}
+	tagDoseComment              = tag.Tag{Group: 0x3004, Element: 0x0006}
+	tagDoseSummationType        = tag.Tag{Group: 0x3004, Element: 0x000A}
+	tagGridFrameOffsetVector    = tag.Tag{Group: 0x3004, Element: 0x000C}
+	tagDoseGridScaling          = tag.Tag{Group: 0x3004, Element: 0x000E}
+	tagStructureSetLabel        = tag.Tag{Group: 0x3006, Element: 0x0002}
+	tagStructureSetName         = tag.Tag{Group: 0x3006, Element: 0x0004}
+	tagStructureSetDate         = tag.Tag{Group: 0x3006, Element: 0x0008}
+	tagStructureSetTime         = tag.Tag{Group: 0x3006, Element: 0x0009}
+	tagReferencedFrameOfRefSeq  = tag.Tag{Group: 0x3006, Element: 0x0010}
+	tagStructureSetROISequence  = tag.Tag{Group: 0x3006, Element: 0x0020}
+	tagROINumber                = tag.Tag{Group: 0x3006, Element: 0x0022}
+	tagReferencedFrameOfRefUID  = tag.Tag{Group: 0x3006, Element: 0x0024}
+	tagROIName                  = tag.Tag{Group: 0x3006, Element: 0x0026}
+	tagROIDisplayColor          = tag.Tag{Group: 0x3006, Element: 0x002A}
+	tagROIGenerationAlgorithm   = tag.Tag{Group: 0x3006, Element: 0x0036}
+	tagROIContourSequence       = tag.Tag{Group: 0x3006, Element: 0x0039}
+	tagContourSequence          = tag.Tag{Group: 0x3006, Element: 0x0040}
+	tagContourGeometricType     = tag.Tag{Group: 0x3006, Element: 0x0042}
+	tagNumberOfContourPoints    = tag.Tag{Group: 0x3006, Element: 0x0046}
+	tagContourNumber            = tag.Tag{Group: 0x3006, Element: 0x0048}
+	tagContourData              = tag.Tag{Group: 0x3006, Element: 0x0050}
+	tagRTROIObservationsSeq     = tag.Tag{Group: 0x3006, Element: 0x0080}
+	tagObservationNumber        = tag.Tag{Group: 0x3006, Element: 0x0082}
+	tagReferencedROINumber      = tag.Tag{Group: 0x3006, Element: 0x0084}
+	tagRTROIInterpretedType     = tag.Tag{Group: 0x3006, Element: 0x00A4}
+	tagROIInterpreter           = tag.Tag{Group: 0x3006, Element: 0x00A6}
+	tagReferencedRTPlanSequence = tag.Tag{Group: 0x300C, Element: 0x0002}
+	tagReferencedBeamSequence   = tag.Tag{Group: 0x300C, Element: 0x0004}
+	tagReferencedBeamNumber     = tag.Tag{Group: 0x300C, Element: 0x0006}
+	tagReferencedFractionGroupS = tag.Tag{Group: 0x300C, Element: 0x0020}
+	tagReferencedFractionGroupN = tag.Tag{Group: 0x300C, Element: 0x0022}
+	tagApprovalStatus           = tag.Tag{Group: 0x300E, Element: 0x0002}
+	tagPixelData                = tag.Tag{Group: 0x7FE0, Element: 0x0010}
+	tagItem                     = tag.Tag{Group: 0xFFFE, Element: 0xE000}
+	tagItemDelimitation         = tag.Tag{Group: 0xFFFE, Element: 0xE00D}
+	tagSequenceDelimitation     = tag.Tag{Group: 0xFFFE, Element: 0xE0DD}
+)
+
+// tagNames gives the PS3.6 keyword of the tags that appear in messages.
+var tagNames = map[tag.Tag]string{
+	tagFileMetaGroupLength:      "FileMetaInformationGroupLength",
+	tagTransferSyntaxUID:        "TransferSyntaxUID",
+	tagSOPClassUID:              "SOPClassUID",
+	tagSOPInstanceUID:           "SOPInstanceUID",
+	tagModality:                 "Modality",
+	tagPatientName:              "PatientName",
+	tagPatientID:                "PatientID",
+	tagStudyInstanceUID:         "StudyInstanceUID",
+	tagSeriesInstanceUID:        "SeriesInstanceUID",
+	tagImagePositionPatient:     "ImagePositionPatient",
+	tagImageOrientationPatient:  "ImageOrientationPatient",
+	tagFrameOfReferenceUID:      "FrameOfReferenceUID",
+	tagSamplesPerPixel:          "SamplesPerPixel",
+	tagPhotometric:              "PhotometricInterpretation",
+	tagNumberOfFrames:           "NumberOfFrames",
+	tagRows:                     "Rows",
+	tagColumns:                  "Columns",
+	tagPixelSpacing:             "PixelSpacing",
+	tagBitsAllocated:            "BitsAllocated",
+	tagBitsStored:               "BitsStored",
+	tagHighBit:                  "HighBit",
+	tagPixelRepresentation:      "PixelRepresentation",
+	tagDoseUnits:                "DoseUnits",
+	tagDoseType:                 "DoseType",
+	tagDoseSummationType:        "DoseSummationType",
+	tagGridFrameOffsetVector:    "GridFrameOffsetVector",
+	tagDoseGridScaling:          "DoseGridScaling",
+	tagReferencedFrameOfRefSeq:  "ReferencedFrameOfReferenceSequence",
+	tagStructureSetROISequence:  "StructureSetROISequence",
+	tagROINumber:                "ROINumber",
+	tagReferencedFrameOfRefUID:  "ReferencedFrameOfReferenceUID",
+	tagROIName:                  "ROIName",
+	tagROIDisplayColor:          "ROIDisplayColor",
+	tagROIContourSequence:       "ROIContourSequence",
+	tagContourSequence:          "ContourSequence",
+	tagContourGeometricType:     "ContourGeometricType",
+	tagNumberOfContourPoints:    "NumberOfContourPoints",
+	tagContourNumber:            "ContourNumber",
+	tagContourData:              "ContourData",
+	tagRTROIObservationsSeq:     "RTROIObservationsSequence",
+	tagReferencedROINumber:      "ReferencedROINumber",
+	tagRTROIInterpretedType:     "RTROIInterpretedType",
+	tagReferencedRTPlanSequence: "ReferencedRTPlanSequence",
+	tagPixelData:                "PixelData",
+	tagItem:                     "Item",
+	tagItemDelimitation:         "ItemDelimitationItem",
+	tagSequenceDelimitation:     "SequenceDelimitationItem",
+}
+
+// tagString names a tag for messages: "PixelSpacing (0028,0030)", or just
+// the numbers for tags without a name here.
+func tagString(t tag.Tag) string {
+	if n, ok := tagNames[t]; ok {
+		return fmt.Sprintf("%s (%04X,%04X)", n, t.Group, t.Element)
+	}
+	return fmt.Sprintf("(%04X,%04X)", t.Group, t.Element)
+}
