@@ -1,0 +1,121 @@
+package gamma
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"voxgamma/volume"
+)
+
+// benchCase builds a synthetic pair at 1 mm: a reference shaped like a
+// treatment plan (a high-dose region with soft penumbra inside a low-dose
+// bath, about 40 % of the box above the 10 % threshold) and an evaluated
+// grid that is the reference shifted by 0.5 mm, scaled by 1.01 and with
+// uncorrelated noise of 1 % at the maximum, growing as 1/√dose relative to
+// lower doses, like a Monte Carlo recalculation.
+func benchCase(b *testing.B, nx, ny, nz int) (ref, eval *volume.Grid) {
+	b.Helper()
+	origin := [3]float64{-float64(nx-1) / 2, -float64(ny-1) / 2, -float64(nz-1) / 2}
+	ref = mustGrid(b, [3]int{nx, ny, nz}, origin, [3]float64{1, 1, 1}, volume.Identity)
+	half := [3]float64{float64(nx) * 0.3, float64(ny) * 0.25, float64(nz) * 0.3}
+	plan := func(p [3]float64) float64 {
+		v := 60.0 // Gy, the plateau
+		for a := 0; a < 3; a++ {
+			// Error-function penumbra, 3 mm wide (80–20 %), on each side.
+			v *= 0.5 * (math.Erf((half[a]-p[a])/3) + math.Erf((half[a]+p[a])/3))
+		}
+		r2 := p[0]*p[0] + p[1]*p[1] + p[2]*p[2]
+		return v + 8*math.Exp(-r2/(2*float64(nx*nx)/9))
+	}
+	fill(ref, plan)
+	eval = ref.EmptyLike()
+	rng := rand.New(rand.NewPCG(1, 2))
+	fill(eval, func(p [3]float64) float64 {
+		d := 1.01 * plan([3]float64{p[0] - 0.5, p[1], p[2]})
+		// Monte Carlo-like noise: the relative statistical uncertainty goes
+		// as 1/√dose, 1 % (σ) at the 60 Gy plateau.
+		return d + 0.6*math.Sqrt(math.Max(d, 0)/60)*rng.NormFloat64()
+	})
+	return ref, eval
+}
+
+func benchmarkCompare(b *testing.B, dims [3]int, dosePct, dta float64, norm Normalisation) {
+	ref, eval := benchCase(b, dims[0], dims[1], dims[2])
+	c := Criteria{DosePercent: dosePct, DTA: dta, Normalisation: norm, ThresholdPercent: 10}
+	var res *Result
+	var err error
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		res, err = CompareGrids(context.Background(), ref, eval, c, Options{})
+		if err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.StopTimer()
+	pts := float64(res.Stats.Evaluated)
+	nsPerOp := float64(b.Elapsed().Nanoseconds()) / float64(b.N)
+	b.ReportMetric(nsPerOp/pts, "ns/point")
+	b.ReportMetric(pts/(nsPerOp/1e9), "points/s")
+	b.ReportMetric(res.Stats.PassRate, "pass%")
+	b.ReportMetric(pts, "points")
+}
+
+func benchmarkExhaustive(b *testing.B, dims [3]int, dosePct, dta float64, norm Normalisation) {
+	ref, eval := benchCase(b, dims[0], dims[1], dims[2])
+	c := Criteria{DosePercent: dosePct, DTA: dta, Normalisation: norm, ThresholdPercent: 10}
+	// Every 97th voxel above threshold keeps the brute force affordable; the
+	// metric is per point, so it compares with the fast method's directly.
+	only := volume.NewMask(ref)
+	for i := 0; i < len(only.Bits); i += 97 * (1 + dims[0]*dims[1]/16384) {
+		only.Bits[i] = true
+	}
+	var res *Result
+	var err error
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		res, err = CompareGrids(context.Background(), ref, eval, c, Options{Only: only, Method: Exhaustive})
+		if err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.StopTimer()
+	pts := float64(res.Stats.Evaluated)
+	nsPerOp := float64(b.Elapsed().Nanoseconds()) / float64(b.N)
+	b.ReportMetric(nsPerOp/pts, "ns/point")
+	b.ReportMetric(pts/(nsPerOp/1e9), "points/s")
+	b.ReportMetric(pts, "points")
+}
+
+var benchSizes = [][3]int{{64, 64, 64}, {128, 128, 128}, {256, 256, 160}}
+
+var benchCriteria = []struct {
+	dose, dta float64
+	norm      Normalisation
+}{{3, 2, Global}, {3, 2, Local}, {2, 1, Global}, {2, 1, Local}}
+
+// BenchmarkCompare runs the fast method on every size and criteria set.
+func BenchmarkCompare(b *testing.B) {
+	for _, d := range benchSizes {
+		for _, c := range benchCriteria {
+			b.Run(fmt.Sprintf("%dx%dx%d/%g%%_%gmm_%v", d[0], d[1], d[2], c.dose, c.dta, c.norm), func(b *testing.B) {
+				benchmarkCompare(b, d, c.dose, c.dta, c.norm)
+			})
+		}
+	}
+}
+
+// BenchmarkExhaustive runs the exhaustive method on a subset of the same
+// inputs; compare its ns/point with BenchmarkCompare's.
+func BenchmarkExhaustive(b *testing.B) {
+	for _, d := range benchSizes {
+		for _, c := range benchCriteria {
+			b.Run(fmt.Sprintf("%dx%dx%d/%g%%_%gmm_%v", d[0], d[1], d[2], c.dose, c.dta, c.norm), func(b *testing.B) {
+				benchmarkExhaustive(b, d, c.dose, c.dta, c.norm)
+			})
+		}
+	}
+}

@@ -1,0 +1,125 @@
+package gamma
+
+import (
+	"math"
+	"slices"
+	"strconv"
+)
+
+// Stats summarises Γ over a set of reference points.
+type Stats struct {
+	// Evaluated counts the points with a Γ: Evaluated and Capped.
+	Evaluated int
+	// Passed counts evaluated points with Γ ≤ 1 (never a capped point).
+	Passed int
+	// Failed = Evaluated − Passed.
+	Failed int
+	// PassRate is 100·Passed/Evaluated, NaN when nothing was evaluated.
+	PassRate float64
+	// Mean, Median, P95, P99 and Max describe Γ over the evaluated points
+	// (capped points count at their cap); NaN when nothing was evaluated.
+	// Percentiles interpolate linearly between order statistics (Hyndman
+	// and Fan, Am Stat 50 (1996) 361, definition 7, numpy's default).
+	Mean, Median, P95, P99, Max float64
+	// AboveOneHalf is the percentage of evaluated points with Γ > 1.5.
+	AboveOneHalf float64
+	// Capped counts points whose minimum lay beyond the search distance.
+	Capped int
+	// BelowThreshold counts points under the low-dose threshold.
+	BelowThreshold int
+	// Outside counts points outside the evaluated grid.
+	Outside int
+	// NotSelected counts points the caller's selection excluded.
+	NotSelected int
+}
+
+// StatsOver summarises the reference points listed in indices, or all
+// points when indices is nil.
+func (r *Result) StatsOver(indices []int) Stats {
+	var s Stats
+	var values []float64
+	add := func(n int) {
+		switch r.Status[n] {
+		case NotSelected:
+			s.NotSelected++
+		case BelowThreshold:
+			s.BelowThreshold++
+		case Outside:
+			s.Outside++
+		case Capped:
+			s.Capped++
+			values = append(values, float64(r.Gamma[n]))
+		case Evaluated:
+			values = append(values, float64(r.Gamma[n]))
+			if r.Gamma[n] <= 1 {
+				s.Passed++
+			}
+		}
+	}
+	if indices == nil {
+		for n := range r.Status {
+			add(n)
+		}
+	} else {
+		for _, n := range indices {
+			add(n)
+		}
+	}
+	s.Evaluated = len(values)
+	s.Failed = s.Evaluated - s.Passed
+	fillDistribution(&s, values)
+	return s
+}
+
+func fillDistribution(s *Stats, values []float64) {
+	nan := math.NaN()
+	s.PassRate, s.Mean, s.Median, s.P95, s.P99, s.Max, s.AboveOneHalf = nan, nan, nan, nan, nan, nan, nan
+	if len(values) == 0 {
+		return
+	}
+	slices.Sort(values)
+	sum, above := 0.0, 0
+	for _, v := range values {
+		sum += v
+		if v > 1.5 {
+			above++
+		}
+	}
+	n := float64(len(values))
+	s.PassRate = 100 * float64(s.Passed) / n
+	s.Mean = sum / n
+	s.Median = Percentile(values, 50)
+	s.P95 = Percentile(values, 95)
+	s.P99 = Percentile(values, 99)
+	s.Max = values[len(values)-1]
+	s.AboveOneHalf = 100 * float64(above) / n
+}
+
+// Percentile returns the p-th percentile (0–100) of sorted values,
+// interpolating linearly between order statistics (Hyndman and Fan,
+// Am Stat 50 (1996) 361, definition 7; numpy.percentile's default).
+// It returns NaN for no values.
+func Percentile(sorted []float64, p float64) float64 {
+	if len(sorted) == 0 {
+		return math.NaN()
+	}
+	h := (float64(len(sorted)) - 1) * p / 100
+	lo := int(math.Floor(h))
+	if lo >= len(sorted)-1 {
+		return sorted[len(sorted)-1]
+	}
+	return sorted[lo] + (h-float64(lo))*(sorted[lo+1]-sorted[lo])
+}
+
+// FormatPassRate formats a pass rate with one decimal, rounding down, so
+// that a rate is never shown as 100.0 unless every point passed and never
+// rises across a limit by rounding (1086 of 1087 is "99.9", 1999 of 2000
+// is "99.9", not "100.0"). NaN gives "n/a".
+func FormatPassRate(rate float64) string {
+	if math.IsNaN(rate) {
+		return "n/a"
+	}
+	// The 1e-9 absorbs representation error in rates such as 100·29/29.
+	v := math.Floor(rate*10+1e-9) / 10
+	return strconv.FormatFloat(v, 'f', 1, 64)
+}
