@@ -7,6 +7,7 @@ import (
 	"math"
 	"runtime"
 	"sync"
+	"sync/atomic"
 
 	"golang.org/x/sync/errgroup"
 
@@ -261,10 +262,8 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 	threshold := c.ThresholdPercent / 100 * c.NormDose
 	wGlobal := 1 / (c.DosePercent / 100 * c.NormDose)
 
-	// Classify every point and find the box of those to search around.
+	// Classify every point.
 	todo := 0
-	boxLo := [3]float64{math.Inf(1), math.Inf(1), math.Inf(1)}
-	boxHi := [3]float64{math.Inf(-1), math.Inf(-1), math.Inf(-1)}
 	for i := 0; i < n; i++ {
 		res.Gamma[i] = float32(math.NaN())
 		q, d := src.at(i)
@@ -278,10 +277,6 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		default:
 			res.Status[i] = Evaluated // provisional: to be searched
 			todo++
-			for a := 0; a < 3; a++ {
-				boxLo[a] = math.Min(boxLo[a], q[a])
-				boxHi[a] = math.Max(boxHi[a], q[a])
-			}
 		}
 	}
 	if todo == 0 {
@@ -289,7 +284,25 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		return res, nil
 	}
 
-	s := &searcher{f: f, rn: c.Search / c.DTA}
+	s := &searcher{f: f, rn: c.Search / c.DTA, treeFrom: treeFrom}
+	weight := func(d float64) float64 {
+		if c.Normalisation == Local {
+			return 1 / (c.DosePercent / 100 * d)
+		}
+		return wGlobal
+	}
+	// finish stores the minimum Γ² found for point i.
+	finish := func(i int, g2 float64) {
+		if g2 >= s.rn*s.rn {
+			res.Status[i] = Capped
+			res.Gamma[i] = float32(s.rn)
+		} else {
+			res.Status[i] = Evaluated
+			res.Gamma[i] = float32(math.Sqrt(g2))
+		}
+	}
+	p := &pool{ctx: ctx, n: n, workers: workers, progress: opt.Progress, total: todo}
+	var err error
 	if opt.Method == Exhaustive {
 		step := opt.ExhaustiveStep
 		if step == 0 {
@@ -298,60 +311,48 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		s.latStep = step / c.DTA
 		s.grid = eval
 		s.dta = c.DTA
-	} else {
-		s.buildTree(boxLo, boxHi, wGlobal)
-	}
-
-	// Blocks of point indices; each block's results land in its own slots,
-	// so the output does not depend on scheduling.
-	blocks := (n + blockSize - 1) / blockSize
-	var mu sync.Mutex
-	done := 0
-	g, gctx := errgroup.WithContext(ctx)
-	g.SetLimit(workers)
-	for b := 0; b < blocks; b++ {
-		if gctx.Err() != nil {
-			break
-		}
-		lo, hi := b*blockSize, min((b+1)*blockSize, n)
-		g.Go(func() error {
-			if err := gctx.Err(); err != nil {
-				return err
+		err = p.run(true, func(i int, sc *scratch) bool {
+			if res.Status[i] != Evaluated {
+				return false
 			}
-			count := 0
-			for i := lo; i < hi; i++ {
-				if res.Status[i] != Evaluated {
-					continue
+			q, d := src.at(i)
+			finish(i, s.exhaustive(q, d, weight(d)))
+			return true
+		})
+	} else {
+		// Pass 1: the bound from the cell holding each point, kept as Γ²
+		// in Gamma; points whose bound stays above treeFrom are marked for
+		// the k-d tree.
+		err = p.run(false, func(i int, sc *scratch) bool {
+			if res.Status[i] != Evaluated {
+				return false
+			}
+			q, d := src.at(i)
+			b2 := s.home(q, d, weight(d))
+			res.Gamma[i] = float32(b2)
+			if b2 > s.treeFrom {
+				res.Status[i] = needsTree
+			}
+			return true
+		})
+		if err == nil {
+			// The tree covers the evaluated nodes within the search
+			// distance of the marked points only.
+			s.buildTree(src, res.Status, wGlobal)
+			// Pass 2: the tree where marked, then every other cell that
+			// could beat the bound.
+			err = p.run(true, func(i int, sc *scratch) bool {
+				st := res.Status[i]
+				if st != Evaluated && st != needsTree {
+					return false
 				}
 				q, d := src.at(i)
-				w := wGlobal
-				if c.Normalisation == Local {
-					w = 1 / (c.DosePercent / 100 * d)
-				}
-				var g2 float64
-				if opt.Method == Exhaustive {
-					g2 = s.exhaustive(q, d, w)
-				} else {
-					g2 = s.search(q, d, w)
-				}
-				if g2 >= s.rn*s.rn {
-					res.Status[i] = Capped
-					res.Gamma[i] = float32(s.rn)
-				} else {
-					res.Gamma[i] = float32(math.Sqrt(g2))
-				}
-				count++
-			}
-			if opt.Progress != nil {
-				mu.Lock()
-				done += count
-				opt.Progress(done, todo)
-				mu.Unlock()
-			}
-			return nil
-		})
+				finish(i, s.rest(q, d, weight(d), float64(res.Gamma[i]), st == needsTree, sc))
+				return true
+			})
+		}
 	}
-	if err := g.Wait(); err != nil {
+	if err != nil {
 		return nil, fmt.Errorf("gamma: %w", err)
 	}
 	if err := ctx.Err(); err != nil {
@@ -365,9 +366,14 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 // beyond that, cells are minimised in scan order (still exact, less pruned).
 const maxSorted = 64
 
-type candidate struct {
-	lb float64
-	c  [3]int32
+// scratch holds one worker's candidate cells: their lower bounds, indices
+// and corner doses, and their order by lower bound. It is reused from point
+// to point, so the search allocates and clears nothing per point.
+type scratch struct {
+	lb      [maxSorted]float64
+	cell    [maxSorted][3]int32
+	corners [maxSorted][8]float64
+	order   [maxSorted]uint8
 }
 
 // searcher holds what the per-point search reads; it is shared read-only.
@@ -375,10 +381,12 @@ type searcher struct {
 	f  *field
 	rn float64 // search distance in DTA units
 
-	// Fast method: k-d tree over the evaluated nodes in a box.
-	tree   *kdtree.Tree
-	boxMin [3]int
-	boxN   [3]int
+	// Fast method: k-d tree over the evaluated nodes near the points whose
+	// bound after the home cell exceeds treeFrom (Γ², DTA units); nodes[i]
+	// is the grid position of the tree's point i.
+	tree     *kdtree.Tree
+	nodes    []int32
+	treeFrom float64
 
 	// Exhaustive method.
 	grid    *volume.Grid
@@ -386,70 +394,203 @@ type searcher struct {
 	latStep float64
 }
 
-// buildTree builds the k-d tree over the evaluated nodes within the search
-// distance of the box [lo, hi] (DTA units) holding every point to search.
-func (s *searcher) buildTree(lo, hi [3]float64, wHint float64) {
-	f := s.f
-	for a := 0; a < 3; a++ {
-		first := f.cell(a, lo[a]-s.rn)
-		last := f.cell(a, hi[a]+s.rn) + 1
-		if last > f.n[a]-1 {
-			last = f.n[a] - 1
-		}
-		s.boxMin[a] = first
-		s.boxN[a] = last - first + 1
+// needsTree marks, between the passes of the fast search, a point whose
+// bound after its home cell is above treeFrom. It never leaves compare.
+const needsTree Status = 255
+
+// treeFrom is the Γ² above which the bound from a point's home cell is
+// tightened with the k-d tree. Below it the bound spans only the home cell's
+// near neighbours, and building and querying the tree costs more than it
+// saves (measured on the benchmark cases: see BENCHMARKS.md); above it (a
+// point that fails at its home cell) the search ball can hold thousands of
+// cells, and the tree's node bound shrinks it.
+const treeFrom = 1.0
+
+// pool runs a function over all reference points in fixed blocks on a
+// bounded number of goroutines. Each block writes only its own points'
+// slots, so results do not depend on scheduling.
+type pool struct {
+	ctx      context.Context
+	n        int
+	workers  int
+	progress func(done, total int)
+	total    int
+}
+
+// run calls fn for every point; fn reports whether it evaluated the point
+// (for progress, reported when report is set). Each worker goroutine takes
+// the next block from a shared counter and keeps one scratch for all its
+// blocks.
+func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) error {
+	var mu sync.Mutex
+	var next atomic.Int64
+	done := 0
+	blocks := (p.n + blockSize - 1) / blockSize
+	g, gctx := errgroup.WithContext(p.ctx)
+	for w := 0; w < min(p.workers, blocks); w++ {
+		g.Go(func() error {
+			sc := new(scratch)
+			for {
+				b := int(next.Add(1)) - 1
+				if b >= blocks {
+					return nil
+				}
+				if err := gctx.Err(); err != nil {
+					return err
+				}
+				count := 0
+				for i := b * blockSize; i < min((b+1)*blockSize, p.n); i++ {
+					if fn(i, sc) {
+						count++
+					}
+				}
+				if report && p.progress != nil {
+					mu.Lock()
+					done += count
+					p.progress(done, p.total)
+					mu.Unlock()
+				}
+			}
+		})
 	}
-	count := s.boxN[0] * s.boxN[1] * s.boxN[2]
-	coords := make([]float32, 0, 4*count)
-	for k := 0; k < s.boxN[2]; k++ {
-		kk := s.boxMin[2] + k
-		for j := 0; j < s.boxN[1]; j++ {
-			jj := s.boxMin[1] + j
-			row := f.n[0] * (jj + f.n[1]*kk)
-			for i := 0; i < s.boxN[0]; i++ {
-				ii := s.boxMin[0] + i
-				coords = append(coords, float32(f.off[0][ii]), float32(f.off[1][jj]), float32(f.off[2][kk]), f.data[row+ii])
+	return g.Wait()
+}
+
+// buildTree builds the k-d tree over the evaluated nodes within the search
+// distance of the points marked needsTree: the nodes of the marked points'
+// cells, dilated along each axis by the search distance (a box, slightly
+// larger than the sphere).
+func (s *searcher) buildTree(src source, status []Status, wHint float64) {
+	f := s.f
+	s.nodes = nil
+	mask := make([]bool, len(f.data))
+	any := false
+	for i, st := range status {
+		if st != needsTree {
+			continue
+		}
+		any = true
+		q, _ := src.at(i)
+		var c [3]int
+		for a := 0; a < 3; a++ {
+			c[a] = f.cell(a, q[a])
+		}
+		mask[c[0]+f.n[0]*(c[1]+f.n[1]*c[2])] = true
+	}
+	if !any {
+		s.tree = kdtree.Build(nil, wHint)
+		return
+	}
+	// The seed is each point's lower cell corner; the dilation covers the
+	// cell's far corner plus the search distance.
+	for a := 0; a < 3; a++ {
+		span := int(math.Ceil(s.rn/f.minStep(a))) + 1
+		dilate(mask, f.n, a, span)
+	}
+	var coords []float32
+	n := 0
+	for k := 0; k < f.n[2]; k++ {
+		for j := 0; j < f.n[1]; j++ {
+			for i := 0; i < f.n[0]; i++ {
+				if mask[n] {
+					s.nodes = append(s.nodes, int32(n))
+					coords = append(coords, float32(f.off[0][i]), float32(f.off[1][j]), float32(f.off[2][k]), f.data[n])
+				}
+				n++
 			}
 		}
 	}
 	s.tree = kdtree.Build(coords, wHint)
 }
 
-// search returns min Γ² for the reference point at q (DTA units) with dose
-// dr and dose weight w = 1/ΔD, or a value ≥ rn² when the minimum within the
-// search distance is not below rn.
-func (s *searcher) search(q [3]float64, dr, w float64) float64 {
+// dilate sets every element of mask (a grid of dims n) within span samples
+// of a set element along axis a, in one pass per line: a running count of
+// the steps since the last set element seen from either side.
+func dilate(mask []bool, n [3]int, a, span int) {
+	stride := [3]int{1, n[0], n[0] * n[1]}[a]
+	length := n[a]
+	out := make([]bool, length)
+	for base := 0; base < len(mask); base++ {
+		// base runs over the first element of each line along a.
+		if (base/stride)%length != 0 {
+			continue
+		}
+		last := -span - 1
+		for i := 0; i < length; i++ {
+			if mask[base+i*stride] {
+				last = i
+			}
+			out[i] = i-last <= span
+		}
+		last = length + span + 1
+		for i := length - 1; i >= 0; i-- {
+			if mask[base+i*stride] {
+				last = i
+			}
+			if last-i <= span {
+				out[i] = true
+			}
+		}
+		for i := 0; i < length; i++ {
+			mask[base+i*stride] = out[i]
+		}
+	}
+}
+
+// home returns an upper bound of min Γ² for the reference point at q (DTA
+// units) with dose dr and dose weight w = 1/ΔD: the smaller of the value at
+// q itself and the exact minimum over the cell holding q, which usually is
+// the minimum.
+func (s *searcher) home(q [3]float64, dr, w float64) float64 {
 	f := s.f
-	// Upper bound 1: the evaluated dose at the reference position itself.
-	e0 := f.sample(q)
+	var c [3]int
+	var t [3]float64
+	for a := 0; a < 3; a++ {
+		c[a] = f.cell(a, q[a])
+		if f.n[a] > 1 {
+			lo, hi := f.off[a][c[a]], f.off[a][c[a]+1]
+			t[a] = clamp01((q[a] - lo) / (hi - lo))
+		}
+	}
+	var corners [8]float64
+	f.corners(c[0], c[1], c[2], &corners)
+	e0 := trilinear(&corners, t)
 	best2 := w * w * (e0 - dr) * (e0 - dr)
+	if best2 == 0 || doseGap2(&corners, dr, w) >= best2 {
+		return best2
+	}
+	return math.Min(best2, f.cellMin(c[0], c[1], c[2], &corners, q, dr, w))
+}
+
+// rest finishes the search from the bound best2 that home returned: the
+// nearest evaluated node in (x, y, z, D) space (Yuan and Chen, Med Phys 37
+// (2010) 4868) when useTree, then, exactly, every other cell within the
+// bound (and the search distance) in increasing order of its lower bound,
+// until a bound cannot beat the minimum found. It returns min Γ², or a value
+// ≥ rn² when the minimum within the search distance is not below rn.
+func (s *searcher) rest(q [3]float64, dr, w, best2 float64, useTree bool, sc *scratch) float64 {
+	f := s.f
 	if best2 == 0 {
 		return 0
 	}
-	// Upper bound 2: the nearest evaluated node in (x, y, z, D) space
-	// (Yuan and Chen, Med Phys 37 (2010) 4868). Its exact value is
-	// recomputed in float64 from the grid: the tree stores float32.
-	if idx, _, ok := s.tree.Nearest([4]float64{q[0], q[1], q[2], dr}, w, best2); ok {
-		bi := idx % s.boxN[0]
-		bj := (idx / s.boxN[0]) % s.boxN[1]
-		bk := idx / (s.boxN[0] * s.boxN[1])
-		i, j, k := s.boxMin[0]+bi, s.boxMin[1]+bj, s.boxMin[2]+bk
-		dx, dy, dz := f.off[0][i]-q[0], f.off[1][j]-q[1], f.off[2][k]-q[2]
-		dd := w * (float64(f.data[i+f.n[0]*(j+f.n[1]*k)]) - dr)
-		if v := dx*dx + dy*dy + dz*dz + dd*dd; v < best2 {
-			best2 = v
+	if useTree {
+		// The node's exact value is recomputed in float64 from the grid:
+		// the tree stores float32.
+		if idx, _, ok := s.tree.Nearest([4]float64{q[0], q[1], q[2], dr}, w, best2); ok {
+			n := int(s.nodes[idx])
+			i := n % f.n[0]
+			j := (n / f.n[0]) % f.n[1]
+			k := n / (f.n[0] * f.n[1])
+			dx, dy, dz := f.off[0][i]-q[0], f.off[1][j]-q[1], f.off[2][k]-q[2]
+			dd := w * (float64(f.data[n]) - dr)
+			if v := dx*dx + dy*dy + dz*dz + dd*dd; v < best2 {
+				best2 = v
+			}
 		}
 	}
-	// Exact refinement. The cell holding q first: it usually holds the
-	// minimum, and the tighter bound then prunes its neighbours. Then the
-	// cells within the bound (and the search distance), in increasing order
-	// of their lower bounds, until a bound cannot beat the minimum found.
 	var home [3]int
 	for a := 0; a < 3; a++ {
 		home[a] = f.cell(a, q[a])
-	}
-	if f.cellBound(home[0], home[1], home[2], q, dr, w, best2) < best2 {
-		best2 = math.Min(best2, f.cellMin(home[0], home[1], home[2], q, dr, w))
 	}
 	rho := math.Min(math.Sqrt(best2), s.rn)
 	var c0, c1 [3]int
@@ -457,39 +598,54 @@ func (s *searcher) search(q [3]float64, dr, w float64) float64 {
 		c0[a] = f.cell(a, q[a]-rho)
 		c1[a] = f.cell(a, q[a]+rho)
 	}
-	var cand [maxSorted]candidate
+	var c [8]float64
 	nc := 0
 	for ck := c0[2]; ck <= c1[2]; ck++ {
+		dz := f.slabDist2(2, ck, q[2])
+		if dz >= best2 {
+			continue
+		}
 		for cj := c0[1]; cj <= c1[1]; cj++ {
+			dyz := dz + f.slabDist2(1, cj, q[1])
+			if dyz >= best2 {
+				continue
+			}
 			for ci := c0[0]; ci <= c1[0]; ci++ {
 				if ci == home[0] && cj == home[1] && ck == home[2] {
 					continue
 				}
-				lb := f.cellBound(ci, cj, ck, q, dr, w, best2)
+				ds2 := dyz + f.slabDist2(0, ci, q[0])
+				if ds2 >= best2 {
+					continue
+				}
+				f.corners(ci, cj, ck, &c)
+				lb := ds2 + doseGap2(&c, dr, w)
 				if lb >= best2 {
 					continue
 				}
 				if nc == maxSorted {
 					// Too many to sort: take this one at once.
-					best2 = math.Min(best2, f.cellMin(ci, cj, ck, q, dr, w))
+					best2 = math.Min(best2, f.cellMin(ci, cj, ck, &c, q, dr, w))
 					continue
 				}
-				// Insertion into the sorted list.
+				// Keep the candidate; its rank goes into the sorted order.
+				sc.lb[nc], sc.cell[nc], sc.corners[nc] = lb, [3]int32{int32(ci), int32(cj), int32(ck)}, c
 				at := nc
-				for at > 0 && cand[at-1].lb > lb {
-					cand[at] = cand[at-1]
+				for at > 0 && sc.lb[sc.order[at-1]] > lb {
+					sc.order[at] = sc.order[at-1]
 					at--
 				}
-				cand[at] = candidate{lb, [3]int32{int32(ci), int32(cj), int32(ck)}}
+				sc.order[at] = uint8(nc)
 				nc++
 			}
 		}
 	}
-	for _, cd := range cand[:nc] {
-		if cd.lb >= best2 {
+	for _, i := range sc.order[:nc] {
+		if sc.lb[i] >= best2 {
 			break
 		}
-		best2 = math.Min(best2, f.cellMin(int(cd.c[0]), int(cd.c[1]), int(cd.c[2]), q, dr, w))
+		cl := sc.cell[i]
+		best2 = math.Min(best2, f.cellMin(int(cl[0]), int(cl[1]), int(cl[2]), &sc.corners[i], q, dr, w))
 	}
 	return best2
 }

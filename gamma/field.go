@@ -1,6 +1,7 @@
 package gamma
 
 import (
+	"math"
 	"sort"
 
 	"voxgamma/volume"
@@ -66,6 +67,16 @@ func (f *field) cell(a int, u float64) int {
 		c = 0
 	}
 	return c
+}
+
+// minStep returns the smallest sample spacing of axis a in DTA units (+Inf
+// for a single-sample axis, which has no spacing).
+func (f *field) minStep(a int) float64 {
+	m := math.Inf(1)
+	for i := 1; i < f.n[a]; i++ {
+		m = math.Min(m, f.off[a][i]-f.off[a][i-1])
+	}
+	return m
 }
 
 // inside reports whether local position q (DTA units) lies in the grid.
@@ -135,46 +146,28 @@ func trilinear(c *[8]float64, t [3]float64) float64 {
 	return c0 + (c1-c0)*z
 }
 
-// cellBound returns a lower bound of g(p) = |p − q|² + w²·(E(p) − dr)² over
-// cell (ci, cj, ck), where E is the trilinear interpolant of the cell's
-// corners and p ranges over the cell box (DTA units). It is the larger of
-// two bounds, with ds the distance from q to the box:
-//
-//   - ds² + w²·gap², gap being the distance from dr to the corners' dose
-//     range (a trilinear interpolant never leaves it);
-//   - ds² + w²e²/(1 + w²Σρ_a²), with p_n the point of the box nearest q,
-//     e = |E(p_n) − dr| and ρ_a the fastest rate at which |E − dr| can
-//     fall per unit move along axis a from p_n within the cell. For p in
-//     the box, |p − q|² ≥ ds² + |p − p_n|² (p_n is a projection onto a
-//     convex set) and |E(p) − dr| ≥ e − Σ ρ_a·|p_a − p_n,a|; minimising
-//     |Δ|² + w²(e − Σ ρ_a|Δ_a|)² over Δ gives the second term (by the
-//     Cauchy-Schwarz inequality, as for a linear field).
-//
-// It stops as soon as the bound reaches limit (the caller's current minimum)
-// and returns the partial bound, which is then ≥ limit.
-func (f *field) cellBound(ci, cj, ck int, q [3]float64, dr, w, limit float64) float64 {
-	idx := [3]int{ci, cj, ck}
-	ds2 := 0.0
-	var t, h [3]float64
-	for a := 0; a < 3; a++ {
-		lo := f.off[a][idx[a]]
-		if f.n[a] > 1 {
-			h[a] = f.off[a][idx[a]+1] - lo
-		}
-		if d := lo - q[a]; d > 0 {
-			ds2 += d * d
-		} else if d := q[a] - lo - h[a]; d > 0 {
-			ds2 += d * d
-			t[a] = 1
-		} else if h[a] > 0 {
-			t[a] = (q[a] - lo) / h[a]
-		}
+// slabDist2 returns the squared distance from coordinate u to the extent of
+// cell c along axis a.
+func (f *field) slabDist2(a, c int, u float64) float64 {
+	lo := f.off[a][c]
+	if d := lo - u; d > 0 {
+		return d * d
 	}
-	if ds2 >= limit {
-		return ds2
+	hi := lo
+	if f.n[a] > 1 {
+		hi = f.off[a][c+1]
 	}
-	var c [8]float64
-	f.corners(ci, cj, ck, &c)
+	if d := u - hi; d > 0 {
+		return d * d
+	}
+	return 0
+}
+
+// doseGap2 returns w²·gap², gap being the distance from dr to the dose
+// range of the corners c. With ds², the squared distance from q to the cell
+// box, it makes a lower bound of g(p) = |p − q|² + w²·(E(p) − dr)² over the
+// cell: a trilinear interpolant never leaves the range of its corners.
+func doseGap2(c *[8]float64, dr, w float64) float64 {
 	cmin, cmax := c[0], c[0]
 	for _, v := range c[1:] {
 		if v < cmin {
@@ -190,54 +183,7 @@ func (f *field) cellBound(ci, cj, ck int, q [3]float64, dr, w, limit float64) fl
 	} else if dr > cmax {
 		gap = dr - cmax
 	}
-	lb := ds2 + w*w*gap*gap
-	if lb >= limit {
-		return lb
-	}
-	// The rate at which |E − dr| can fall per unit move from p_n, per
-	// axis. ∂E/∂x_a is a bilinear blend of the slopes of the cell's four
-	// edges along a, so it stays within their range. Where q lies beyond
-	// the cell along a, p − p_n points one way along a, and only slopes that
-	// bring E towards dr in that direction count.
-	e := trilinear(&c, t) - dr
-	sigma := 1.0
-	if e < 0 {
-		sigma = -1
-	}
-	l2 := 0.0
-	for a, pairs := range edgePairs {
-		if h[a] == 0 {
-			continue
-		}
-		dir := 0.0 // 0: both ways; +1: into the cell along +a; −1: along −a
-		if u := f.off[a][idx[a]]; q[a] < u {
-			dir = 1
-		} else if q[a] > u+h[a] {
-			dir = -1
-		}
-		rate := 0.0
-		for _, p := range pairs {
-			s := (c[p[1]] - c[p[0]]) / h[a]
-			if dir == 0 {
-				rate = max(rate, abs(s))
-			} else {
-				rate = max(rate, -sigma*dir*s)
-			}
-		}
-		l2 += rate * rate
-	}
-	if lin := ds2 + w*w*e*e/(1+w*w*l2); lin > lb {
-		lb = lin
-	}
-	return lb
-}
-
-// edgePairs lists, per axis, the corner pairs (in corners' order) of the
-// cell's four edges along that axis.
-var edgePairs = [3][4][2]int{
-	{{0, 1}, {2, 3}, {4, 5}, {6, 7}},
-	{{0, 2}, {1, 3}, {4, 6}, {5, 7}},
-	{{0, 4}, {1, 5}, {2, 6}, {3, 7}},
+	return w * w * gap * gap
 }
 
 func abs(v float64) float64 {
@@ -247,9 +193,9 @@ func abs(v float64) float64 {
 	return v
 }
 
-// cellMin returns the minimum over cell (ci, cj, ck) of
-// |p − q|² + w²·(E(p) − dr)², found by minimiseTrilinear.
-func (f *field) cellMin(ci, cj, ck int, q [3]float64, dr, w float64) float64 {
+// cellMin returns the minimum over cell (ci, cj, ck), whose corners are c,
+// of |p − q|² + w²·(E(p) − dr)², found by minimiseTrilinear.
+func (f *field) cellMin(ci, cj, ck int, c *[8]float64, q [3]float64, dr, w float64) float64 {
 	idx := [3]int{ci, cj, ck}
 	var lo, h [3]float64
 	for a := 0; a < 3; a++ {
@@ -258,9 +204,7 @@ func (f *field) cellMin(ci, cj, ck int, q [3]float64, dr, w float64) float64 {
 			h[a] = f.off[a][idx[a]+1] - lo[a]
 		}
 	}
-	var c [8]float64
-	f.corners(ci, cj, ck, &c)
-	return minimiseTrilinear(&c, lo, h, q, dr, w)
+	return minimiseTrilinear(c, lo, h, q, dr, w)
 }
 
 // minimiseTrilinear minimises g(t) = Σ_a (lo_a + t_a·h_a − q_a)² +
@@ -291,47 +235,35 @@ func minimiseTrilinear(c *[8]float64, lo, h, q [3]float64, dr, w float64) float6
 	e := a0 + a1*t[0] + a2*t[1] + a3*t[2] + a4*t[0]*t[1] + a5*t[0]*t[2] + a6*t[1]*t[2] + a7*t[0]*t[1]*t[2]
 	rd := w * (e - dr)
 	g := r[0]*r[0] + r[1]*r[1] + r[2]*r[2] + rd*rd
-	var b, v [3]float64 // half-gradient of g and w·∇E, at t
-	var held [3]bool    // axes kept on a face of the box
-	// gradient fills b and v at t and reports whether t satisfies the
-	// optimality conditions on the held faces (a held axis must not want
-	// to move into the box).
-	gradient := func() bool {
+	for iter := 0; iter < maxIterations && g > 0; iter++ {
+		// Half-gradient b of g and v = w·∇E at t; an axis on a face whose
+		// gradient points out of the box is held there.
 		x, y, z := t[0], t[1], t[2]
 		grad := [3]float64{a1 + a4*y + a5*z + a7*y*z, a2 + a4*x + a6*z + a7*x*z, a3 + a5*x + a6*y + a7*x*y}
-		kkt := true
+		var b, v [3]float64
+		var held [3]bool
 		for a := 0; a < 3; a++ {
-			held[a] = h[a] == 0
-			if held[a] {
-				b[a], v[a] = 0, 0
+			if h[a] == 0 {
+				held[a] = true
 				continue
 			}
 			v[a] = w * grad[a]
 			b[a] = r[a]*h[a] + rd*v[a]
-			if (t[a] <= 0 && b[a] > 0) || (t[a] >= 1 && b[a] < 0) {
-				held[a] = true
-			} else if t[a] <= 0 || t[a] >= 1 {
-				kkt = false
-			}
+			held[a] = (t[a] <= 0 && b[a] > 0) || (t[a] >= 1 && b[a] < 0)
 		}
-		return kkt
-	}
-	gradient()
-	for iter := 0; iter < maxIterations && g > 0; iter++ {
 		// Newton step on the free axes: the half-Hessian of g is
 		// H = diag(h²) + v vᵀ + rd·w·∇²E (∇²E has only the cross terms of the
 		// multilinear form). Far from a zero residual the last term matters;
 		// where it makes H indefinite the Gauss-Newton matrix (without it),
 		// always positive definite, is used. A free axis on a face whose step
 		// would leave the box is held too and the step recomputed.
-		x, y, z := t[0], t[1], t[2]
 		rw := rd * w
 		cross := [3]float64{rw * (a4 + a7*z), rw * (a5 + a7*y), rw * (a6 + a7*x)} // rd·w·(E_xy, E_xz, E_yz)
 		var step [3]float64
 		for pass := 0; pass < 3; pass++ {
 			var ok bool
-			if step, ok = newtonStep(&held, &h, &v, &b, cross); !ok {
-				if step, ok = newtonStep(&held, &h, &v, &b, [3]float64{}); !ok {
+			if step, ok = newtonStep(&held, &h, &v, &b, &cross, true); !ok {
+				if step, ok = newtonStep(&held, &h, &v, &b, &cross, false); !ok {
 					step = [3]float64{}
 					break
 				}
@@ -376,13 +308,14 @@ func minimiseTrilinear(c *[8]float64, lo, h, q [3]float64, dr, w float64) float6
 				decrease := g - gn
 				t, r, rd, g = tn, rn, rdn, gn
 				accepted = true
-				kkt := gradient()
-				// Done when the step was tiny, or when a full, unclipped
-				// step fell just as the quadratic model said (the model is
-				// then exact to rounding and t is its minimum) and no held
-				// face wants to be released.
-				if change < stepTolerance || decrease < 1e-12 ||
-					(alpha == 1 && !clipped && kkt && abs(decrease-predicted) <= 1e-9*g+1e-12) {
+				if change < stepTolerance || decrease < 1e-12 {
+					return g
+				}
+				// A full, unclipped step that fell just as the quadratic
+				// model said has reached the model's minimum, which is
+				// then exact to rounding; done if no held face wants to
+				// be released.
+				if alpha == 1 && !clipped && abs(decrease-predicted) <= 1e-9*g+1e-12 && facesHold(&t, &r, &h, rd, w, a1, a2, a3, a4, a5, a6, a7) {
 					return g
 				}
 				break
@@ -399,30 +332,73 @@ func minimiseTrilinear(c *[8]float64, lo, h, q [3]float64, dr, w float64) float6
 	return g
 }
 
-// newtonStep returns −H⁻¹b on the free axes, with
-// H = diag(h²) + v vᵀ + the symmetric cross terms (xy, xz, yz); held axes
-// get a zero step. It reports false when H is not positive definite.
-func newtonStep(held *[3]bool, h, v, b *[3]float64, cross [3]float64) ([3]float64, bool) {
+// facesHold reports whether, at t, no axis on a face of the box has a
+// gradient pointing into the box: the optimality condition on the faces.
+func facesHold(t, r, h *[3]float64, rd, w, a1, a2, a3, a4, a5, a6, a7 float64) bool {
+	x, y, z := t[0], t[1], t[2]
+	for a := 0; a < 3; a++ {
+		if h[a] == 0 || (t[a] > 0 && t[a] < 1) {
+			continue
+		}
+		var ga float64
+		switch a {
+		case 0:
+			ga = a1 + a4*y + a5*z + a7*y*z
+		case 1:
+			ga = a2 + a4*x + a6*z + a7*x*z
+		default:
+			ga = a3 + a5*x + a6*y + a7*x*y
+		}
+		b := r[a]*h[a] + rd*w*ga
+		if (t[a] <= 0 && b < 0) || (t[a] >= 1 && b > 0) {
+			return false
+		}
+	}
+	return true
+}
+
+// newtonStep returns −H⁻¹b on the free axes, with H = diag(h²) + v vᵀ plus,
+// when full, the symmetric cross terms (xy, xz, yz); held axes get a zero
+// step. It reports false when H is not positive definite.
+func newtonStep(held *[3]bool, h, v, b, cross *[3]float64, full bool) ([3]float64, bool) {
 	var m [3][3]float64
 	var rhs [3]float64
+	free := 0
 	for a := 0; a < 3; a++ {
 		if held[a] {
 			m[a][a] = 1
 			continue
 		}
+		free++
 		m[a][a] = h[a]*h[a] + v[a]*v[a]
 		rhs[a] = -b[a]
 	}
+	if free == 0 {
+		return [3]float64{}, true
+	}
+	if free == 1 {
+		var s [3]float64
+		for a := 0; a < 3; a++ {
+			if !held[a] {
+				s[a] = rhs[a] / m[a][a]
+			}
+		}
+		return s, true
+	}
+	var cx [3]float64
+	if full {
+		cx = *cross
+	}
 	if !held[0] && !held[1] {
-		m[0][1] = v[0]*v[1] + cross[0]
+		m[0][1] = v[0]*v[1] + cx[0]
 		m[1][0] = m[0][1]
 	}
 	if !held[0] && !held[2] {
-		m[0][2] = v[0]*v[2] + cross[1]
+		m[0][2] = v[0]*v[2] + cx[1]
 		m[2][0] = m[0][2]
 	}
 	if !held[1] && !held[2] {
-		m[1][2] = v[1]*v[2] + cross[2]
+		m[1][2] = v[1]*v[2] + cx[2]
 		m[2][1] = m[1][2]
 	}
 	return solve3(&m, rhs)

@@ -37,7 +37,22 @@ type Stats struct {
 // points when indices is nil.
 func (r *Result) StatsOver(indices []int) Stats {
 	var s Stats
-	var values []float64
+	n := 0
+	count := func(i int) {
+		if st := r.Status[i]; st == Evaluated || st == Capped {
+			n++
+		}
+	}
+	if indices == nil {
+		for i := range r.Status {
+			count(i)
+		}
+	} else {
+		for _, i := range indices {
+			count(i)
+		}
+	}
+	values := make([]float64, 0, n)
 	add := func(n int) {
 		switch r.Status[n] {
 		case NotSelected:
