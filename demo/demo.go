@@ -124,14 +124,14 @@ func Structures(frame string) (*structure.Set, error) {
 
 // planDose is the reference dose at p: each target at the prescription
 // with an error-function fall-off (σ 2.5 mm) from its surface, on a low
-// bath that spreads 8 % of the prescription over the head.
+// bath that spreads up to 15 % of the prescription over the head.
 func planDose(p [3]float64) float64 {
 	d := 0.0
 	for _, t := range targets {
 		r := dist(p, t.sphere.Centre)
 		d = math.Max(d, Prescription*0.5*math.Erfc((r-t.sphere.Radius)/(2.5*math.Sqrt2)))
 	}
-	bath := 0.08 * Prescription * math.Exp(-(p[0]*p[0]+p[1]*p[1]+p[2]*p[2])/(2*45*45))
+	bath := 0.15 * Prescription * math.Exp(-(p[0]*p[0]+p[1]*p[1]+p[2]*p[2])/(2*45*45))
 	return d + bath*(1-d/Prescription)
 }
 

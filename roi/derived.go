@@ -83,7 +83,7 @@ func Isodose(ref *volume.Grid, percent, norm float64, opt Options) (*Region, err
 	}
 	level := percent / 100 * norm
 	r := &Region{
-		Name:    fmt.Sprintf("isodose %g%% of %g Gy", percent, norm),
+		Name:    fmt.Sprintf("isodose %g%% of %.4g Gy", percent, norm),
 		Kind:    Other,
 		Derived: fmt.Sprintf("voxels of the reference dose ≥ %g Gy (%g %% of %g Gy)", level, percent, norm),
 		Box:     emptyBox(),

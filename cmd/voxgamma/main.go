@@ -1,0 +1,126 @@
+// Command voxgamma compares a reference and an evaluated 3D radiotherapy
+// dose with the volumetric gamma index and reports per structure: pass rates
+// and dose-volume differences for every target and organ at risk.
+//
+// Exit status: 0 = evaluated and every rule of the protocol met; 2 =
+// evaluated and at least one rule not met; 1 = could not evaluate (bad input,
+// bad option, an output that could not be written). One line on stderr says
+// which.
+//
+// voxgamma is a verification aid for qualified medical physicists; local
+// protocols and licensed practice decide.
+package main
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+
+	"github.com/spf13/cobra"
+)
+
+// version is the voxgamma version recorded in every result.
+var version = "0.1.0"
+
+// Exit statuses.
+const (
+	exitPass     = 0
+	exitError    = 1
+	exitRuleFail = 2
+)
+
+// verdictError carries a completed comparison whose rules were not all met:
+// not a failure of the program, but exit status 2.
+type verdictError struct{ msg string }
+
+func (e *verdictError) Error() string { return e.msg }
+
+func main() {
+	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
+}
+
+// run executes the command line and returns the exit status. Every error
+// ends as one line on stderr.
+func run(args []string, stdout, stderr io.Writer) (status int) {
+	defer func() {
+		if p := recover(); p != nil {
+			fmt.Fprintf(stderr, "voxgamma: internal error: %v (please report it with the command line)\n", p)
+			status = exitError
+		}
+	}()
+	root := newRoot(stdout, stderr)
+	root.SetArgs(args)
+	err := root.Execute()
+	var v *verdictError
+	switch {
+	case err == nil:
+		return exitPass
+	case errors.As(err, &v):
+		fmt.Fprintf(stderr, "voxgamma: %s\n", v.msg)
+		return exitRuleFail
+	default:
+		fmt.Fprintf(stderr, "voxgamma: error: %s\n", oneLine(err.Error()))
+		return exitError
+	}
+}
+
+func oneLine(s string) string {
+	out := make([]rune, 0, len(s))
+	for _, r := range s {
+		if r == '\n' || r == '\r' {
+			r = ';'
+			if len(out) > 0 && out[len(out)-1] == ';' {
+				continue
+			}
+			out = append(out, ';', ' ')
+			continue
+		}
+		out = append(out, r)
+	}
+	return string(out)
+}
+
+// globals are the options every command shares.
+type globals struct {
+	quiet, verbose bool
+	stdout, stderr io.Writer
+	log            *slog.Logger
+}
+
+func newRoot(stdout, stderr io.Writer) *cobra.Command {
+	g := &globals{stdout: stdout, stderr: stderr}
+	root := &cobra.Command{
+		Use:   "voxgamma",
+		Short: "Volumetric gamma comparison of radiotherapy doses, per structure",
+		Long: `voxgamma compares a reference 3D dose (the planning system's) with an evaluated
+3D dose (a Monte Carlo recalculation, or a dose reconstructed from portal images)
+using the gamma index of Low et al. (Med Phys 25 (1998) 656), and reports pass
+rates and dose-volume differences for every target and organ at risk.
+
+It is a verification aid for qualified medical physicists. Results depend on the
+criteria and inputs shown; local protocols and licensed practice decide.
+
+Exit status: 0 every rule met, 2 a rule not met, 1 could not evaluate.`,
+		SilenceUsage:  true,
+		SilenceErrors: true,
+		PersistentPreRun: func(cmd *cobra.Command, args []string) {
+			level := slog.LevelWarn
+			if g.verbose {
+				level = slog.LevelDebug
+			}
+			if g.quiet {
+				level = slog.LevelError
+			}
+			g.log = slog.New(slog.NewTextHandler(g.stderr, &slog.HandlerOptions{Level: level}))
+		},
+	}
+	root.SetOut(stdout)
+	root.SetErr(stderr)
+	root.PersistentFlags().BoolVarP(&g.quiet, "quiet", "q", false, "print nothing but errors and the verdict line")
+	root.PersistentFlags().BoolVarP(&g.verbose, "verbose", "v", false, "print diagnostics (may include patient names from the files)")
+	root.AddCommand(newCompare(g), newDemo(g), newInspect(g), newSweep(g))
+	root.Version = version
+	return root
+}
