@@ -280,7 +280,7 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		}
 	}
 	if todo == 0 {
-		res.Stats = res.StatsOver(nil)
+		res.Stats = res.StatsAll()
 		return res, nil
 	}
 
@@ -358,7 +358,7 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 	if err := ctx.Err(); err != nil {
 		return nil, fmt.Errorf("gamma: %w", err)
 	}
-	res.Stats = res.StatsOver(nil)
+	res.Stats = res.StatsAll()
 	return res, nil
 }
 

@@ -33,9 +33,14 @@ type Stats struct {
 	NotSelected int
 }
 
-// StatsOver summarises the reference points listed in indices, or all
-// points when indices is nil.
-func (r *Result) StatsOver(indices []int) Stats {
+// StatsAll summarises every reference point.
+func (r *Result) StatsAll() Stats { return r.stats(nil, true) }
+
+// StatsOver summarises the reference points listed in indices (none when
+// indices is empty).
+func (r *Result) StatsOver(indices []int) Stats { return r.stats(indices, false) }
+
+func (r *Result) stats(indices []int, all bool) Stats {
 	var s Stats
 	n := 0
 	count := func(i int) {
@@ -43,7 +48,7 @@ func (r *Result) StatsOver(indices []int) Stats {
 			n++
 		}
 	}
-	if indices == nil {
+	if all {
 		for i := range r.Status {
 			count(i)
 		}
@@ -71,7 +76,7 @@ func (r *Result) StatsOver(indices []int) Stats {
 			}
 		}
 	}
-	if indices == nil {
+	if all {
 		for n := range r.Status {
 			add(n)
 		}
