@@ -2,27 +2,19 @@ package main
 
 import (
 	"context"
-	"crypto/sha256"
-	"encoding/hex"
 	"errors"
 	"fmt"
 	"os"
 	"os/signal"
-	"path/filepath"
 	"strings"
 	"syscall"
 
 	"github.com/spf13/cobra"
 
 	"voxgamma/analysis"
-	"voxgamma/dicomio"
-	"voxgamma/gamma"
-	"voxgamma/metaimage"
+	"voxgamma/job"
 	"voxgamma/protocol"
-	"voxgamma/report"
 	"voxgamma/result"
-	"voxgamma/roi"
-	"voxgamma/volume"
 )
 
 // compareFlags are the options of compare (and of the commands built on it).
@@ -121,351 +113,95 @@ func verdictOf(r *result.Result) error {
 
 // settingsFrom resolves the protocol and the command-line overrides into
 // analysis settings.
-func settingsFrom(cmd *cobra.Command, f *compareFlags) (analysis.Settings, *protocol.Protocol, []string, error) {
-	var s analysis.Settings
-	var warnings []string
-	p, err := loadProtocol(f.protocol)
+func settingsFrom(cmd *cobra.Command, f *compareFlags) (analysis.Settings, error) {
+	p, err := job.LoadProtocol(f.protocol)
 	if err != nil {
-		return s, nil, nil, err
-	}
-	c, err := p.GammaCriteria()
-	if err != nil {
-		return s, nil, nil, fmt.Errorf("protocol %s: %w", p.Name, err)
+		return analysis.Settings{}, fmt.Errorf("--protocol: %w", err)
 	}
 	changed := func(name string) bool { return cmd.Flags().Changed(name) }
+	ov := job.Overrides{
+		KindRules: f.kindRules, VDoses: f.vDoses, SubGrid: f.subgrid, SubGridStep: f.subgridStep,
+		MinClusterCC: f.minClusterCC, Workers: f.workers, Exhaustive: f.exhaustive, Version: version,
+	}
 	if changed("criteria") {
-		if c.DosePercent, c.DTA, err = gamma.ParseCriteria(f.criteria); err != nil {
-			return s, nil, nil, fmt.Errorf("--criteria: %w", err)
-		}
+		ov.Criteria = f.criteria
 	}
 	if changed("local") {
-		c.Normalisation = gamma.Global
-		if f.local {
-			c.Normalisation = gamma.Local
-		}
+		ov.Local = &f.local
 	}
 	if changed("threshold") {
-		c.ThresholdPercent = f.threshold
+		ov.Threshold = &f.threshold
 	}
 	if changed("norm-dose") {
-		if !(f.normDose > 0) {
-			return s, nil, nil, fmt.Errorf("--norm-dose %g: want a dose above 0 Gy", f.normDose)
-		}
-		c.NormDose = f.normDose
+		ov.NormDose = &f.normDose
 	}
 	if changed("search") {
-		if !(f.search > 0) {
-			return s, nil, nil, fmt.Errorf("--search %g: want a distance above 0 mm", f.search)
-		}
-		c.Search = f.search
+		ov.Search = &f.search
 	}
-	if err := c.Validate(); err != nil {
-		return s, nil, nil, err
-	}
-	rules, err := p.ROIRules()
-	if err != nil {
-		return s, nil, nil, fmt.Errorf("protocol %s: %w", p.Name, err)
-	}
-	for _, kr := range f.kindRules {
-		r, err := roi.ParseRule(kr)
-		if err != nil {
-			return s, nil, nil, fmt.Errorf("--kind %q: %w", kr, err)
-		}
-		rules = append([]roi.Rule{r}, rules...) // command-line rules first
-	}
-	iso := p.Isodose
 	if changed("isodose") {
-		iso = f.isodose
+		ov.Isodose = append([]float64{}, f.isodose...)
 	}
-	for _, v := range iso {
-		if !(v > 0 && v <= 100) {
-			return s, nil, nil, fmt.Errorf("isodose level %g %%: want a percentage above 0 and at most 100", v)
-		}
-	}
-	for _, v := range f.vDoses {
-		if !(v >= 0) {
-			return s, nil, nil, fmt.Errorf("--v-dose %g: want a dose of 0 Gy or more", v)
-		}
-	}
-	if f.subgridStep <= 0 {
-		return s, nil, nil, fmt.Errorf("--subgrid-step %g: want a step above 0 mm", f.subgridStep)
-	}
-	if f.workers < 0 {
-		return s, nil, nil, fmt.Errorf("--workers %d: want 0 (all cores) or more", f.workers)
-	}
-	s = analysis.Settings{
-		Criteria: c, KindRules: rules, IsodosePercents: iso, VDoses: f.vDoses,
-		SubGridROIs: f.subgrid, SubGridStep: f.subgridStep, MinClusterCC: f.minClusterCC,
-		Workers: f.workers, Checker: p, Protocol: p, Version: version,
-	}
-	if c.NormDose > 0 {
-		s.NormDoseSource = "user"
-		if !changed("norm-dose") {
-			s.NormDoseSource = "protocol"
-		}
-	}
-	if f.exhaustive {
-		s.Method = gamma.Exhaustive
-	}
-	return s, p, warnings, nil
+	return job.Settings(p, ov)
 }
 
-func loadProtocol(name string) (*protocol.Protocol, error) {
-	if _, err := os.Stat(name); err == nil {
-		p, err := protocol.Load(name)
-		if err != nil {
-			return nil, err
-		}
-		return p, nil
-	}
-	if p, ok := protocol.Preset(name); ok {
-		return p, nil
-	}
-	return nil, fmt.Errorf("--protocol %q: no such file, and not a preset (%s)", name, strings.Join(protocol.PresetNames(), ", "))
-}
-
-// outputs are the files compare writes, checked before any computation.
-type outputs struct {
-	json, csv, gammaMap, diffMap, report string
-}
-
-func (o outputs) list() []string {
-	var l []string
-	for _, p := range []string{o.json, o.csv, o.gammaMap, o.diffMap, o.report} {
-		if p != "" {
-			l = append(l, p)
-		}
-	}
-	return l
-}
-
-// checkOutputs refuses output paths that would replace an input or another
-// output, existing files unless force, missing directories, unwritable
-// directories and map names without a known extension.
-func checkOutputs(o outputs, inputs []string, force bool) error {
-	seen := map[string]string{}
-	in := map[string]bool{}
-	for _, p := range inputs {
-		if p != "" {
-			in[canonical(p)] = true
-		}
-	}
-	for _, m := range []struct{ flag, path string }{{"--gamma-map", o.gammaMap}, {"--difference-map", o.diffMap}} {
-		if m.path != "" {
-			ext := strings.ToLower(filepath.Ext(m.path))
-			if ext != ".dcm" && ext != ".mha" {
-				return fmt.Errorf("%s %s: the name must end in .dcm (RT Dose) or .mha (MetaImage)", m.flag, m.path)
-			}
-		}
-	}
-	for _, p := range o.list() {
-		c := canonical(p)
-		if in[c] {
-			return fmt.Errorf("output %s is an input file: refusing to overwrite it", p)
-		}
-		if other, dup := seen[c]; dup {
-			return fmt.Errorf("output %s is named twice (also as %s)", p, other)
-		}
-		seen[c] = p
-		if st, err := os.Stat(p); err == nil {
-			if st.IsDir() {
-				return fmt.Errorf("output %s is a directory", p)
-			}
-			if !force {
-				return fmt.Errorf("output %s exists (pass --force to overwrite)", p)
-			}
-		}
-		dir := filepath.Dir(p)
-		st, err := os.Stat(dir)
-		if err != nil || !st.IsDir() {
-			return fmt.Errorf("output %s: directory %s does not exist", p, dir)
-		}
-		tmp, err := os.CreateTemp(dir, ".voxgamma-write-test-*")
-		if err != nil {
-			return fmt.Errorf("output %s: directory %s is not writable: %v", p, dir, err)
-		}
-		tmp.Close()
-		os.Remove(tmp.Name())
-	}
-	return nil
-}
-
-// canonical returns an absolute, symlink-resolved form of path for
-// comparisons (the path as given when it cannot be resolved).
-func canonical(p string) string {
-	a, err := filepath.Abs(p)
-	if err != nil {
-		return p
-	}
-	if r, err := filepath.EvalSymlinks(a); err == nil {
-		return r
-	}
-	if r, err := filepath.EvalSymlinks(filepath.Dir(a)); err == nil {
-		return filepath.Join(r, filepath.Base(a))
-	}
-	return a
+func (f *compareFlags) outputs() job.Outputs {
+	return job.Outputs{JSON: f.jsonOut, CSV: f.csvOut, GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.reportOut}
 }
 
 // runCompare is compare from flags to written outputs.
 func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFlags) (*analysis.Outcome, error) {
-	s, _, warnings, err := settingsFrom(cmd, f)
+	s, err := settingsFrom(cmd, f)
 	if err != nil {
 		return nil, err
 	}
-	outs := outputs{json: f.jsonOut, csv: f.csvOut, gammaMap: f.gammaMap, diffMap: f.diffMap, report: f.reportOut}
-	if f.referencePoints != "" && (f.gammaMap != "" || f.diffMap != "") {
-		return nil, errors.New("--gamma-map and --difference-map need a reference grid, not --reference-points")
+	if f.referencePoints != "" && (f.gammaMap != "" || f.diffMap != "" || f.reportOut != "") {
+		return nil, errors.New("--gamma-map, --difference-map and --report need a reference grid, not --reference-points")
 	}
-	if err := checkOutputs(outs, []string{f.reference, f.referencePoints, f.evaluated, f.structures}, f.force); err != nil {
+	if f.reference == "" && f.referencePoints == "" {
+		return nil, errors.New("--reference (or --reference-points) is required")
+	}
+	if f.evaluated == "" {
+		return nil, errors.New("--evaluated is required")
+	}
+	outs := f.outputs()
+	if err := outs.Check([]string{f.reference, f.referencePoints, f.evaluated, f.structures}, f.force); err != nil {
 		return nil, err
 	}
 	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated,
 		Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch}
-	if in.Reference == "" && in.ReferencePoints == "" {
-		return nil, errors.New("--reference (or --reference-points) is required")
-	}
-	if in.Evaluated == "" {
-		return nil, errors.New("--evaluated is required")
-	}
-	out, err := compareInputs(ctx, g, in, s, warnings)
+	out, err := compareInputs(ctx, g, in, s)
 	if err != nil {
 		return nil, err
 	}
-	if err := writeOutputs(g, outs, out, f.force, f.deidentify); err != nil {
+	if err := job.Write(outs, out, f.deidentify); err != nil {
 		return nil, err
+	}
+	for _, p := range outs.List() {
+		g.log.Info("wrote", "file", p)
 	}
 	return out, nil
 }
 
-// compareInputs loads, prepares and runs one comparison, with a progress bar
-// on a terminal.
-func compareInputs(ctx context.Context, g *globals, in analysis.Inputs, s analysis.Settings, warnings []string) (*analysis.Outcome, error) {
+// compareInputs runs one comparison with a progress bar on a terminal and
+// prints its summary.
+func compareInputs(ctx context.Context, g *globals, in analysis.Inputs, s analysis.Settings) (*analysis.Outcome, error) {
 	if ctx == nil {
 		ctx = context.Background()
 	}
 	ctx, stop := signal.NotifyContext(ctx, os.Interrupt, syscall.SIGTERM)
 	defer stop()
 	g.log.Debug("loading", "reference", in.Reference, "points", in.ReferencePoints, "evaluated", in.Evaluated, "structures", in.Structures)
-	l, err := analysis.Load(in)
-	if err != nil {
-		return nil, err
-	}
-	p, err := analysis.Prepare(l, s)
-	if err != nil {
-		return nil, err
-	}
 	bar := newProgress(g.stderr, g.quiet, "gamma")
 	s.Progress = bar.update
-	out, err := p.Run(ctx, s)
+	out, err := job.Compare(ctx, in, s)
 	bar.done()
 	if err != nil {
 		return nil, err
 	}
-	r := out.Result
-	r.Warnings = append(r.Warnings, warnings...)
-	if pr, ok := s.Protocol.(*protocol.Protocol); ok {
-		if err := pr.CheckCriteria(r.Criteria); err != nil {
-			r.Warnings = append(r.Warnings, fmt.Sprintf("criteria differ from protocol %q (its limits were set for its own criteria): %v", pr.Name, oneLine(err.Error())))
-		}
-	}
 	if !g.quiet {
-		printSummary(g, r)
+		printSummary(g, out.Result)
 	}
 	return out, nil
-}
-
-// writeOutputs writes every requested output; the first failure is the
-// command's error (exit status 1).
-func writeOutputs(g *globals, o outputs, out *analysis.Outcome, force, deidentify bool) error {
-	r := out.Result
-	ids := referenceIdentifiers(out)
-	if deidentify {
-		deidentifyResult(r)
-		ids = deidentifyIDs(ids)
-	}
-	if o.json != "" {
-		if err := report.WriteJSON(o.json, r); err != nil {
-			return err
-		}
-	}
-	if o.csv != "" {
-		if err := report.WriteCSV(o.csv, r); err != nil {
-			return err
-		}
-	}
-	if o.gammaMap != "" {
-		desc := "gamma index " + r.Criteria.Label + ", unitless"
-		if err := writeMap(o.gammaMap, out.Gamma, ids, dicomio.GammaOptions(desc)); err != nil {
-			return err
-		}
-	}
-	if o.diffMap != "" {
-		if err := writeMap(o.diffMap, out.Difference, ids, dicomio.DifferenceOptions("dose difference evaluated-reference, Gy")); err != nil {
-			return err
-		}
-	}
-	if o.report != "" {
-		page := report.Page{Result: r, Reference: out.Reference, Gamma: out.Gamma}
-		for i, reg := range out.Regions {
-			if len(reg.Centres) == 0 || reg.Number == 0 {
-				continue
-			}
-			page.ROIs = append(page.ROIs, report.PageROI{Name: reg.Name, Color: out.Colors[i], Mask: reg.Mask()})
-		}
-		if !deidentify {
-			page.Generated = r.Run.Started
-		}
-		if err := report.WriteHTML(o.report, page); err != nil {
-			return err
-		}
-	}
-	for _, p := range o.list() {
-		g.log.Info("wrote", "file", p)
-	}
-	return nil
-}
-
-func writeMap(path string, grid *volume.Grid, ids dicomio.Identifiers, opt dicomio.WriteOptions) error {
-	if grid == nil {
-		return fmt.Errorf("%s: no map to write (the reference is not a grid)", path)
-	}
-	if strings.EqualFold(filepath.Ext(path), ".mha") {
-		return metaimage.Write(path, grid)
-	}
-	_, err := dicomio.WriteDose(path, grid, ids, opt)
-	return err
-}
-
-func referenceIdentifiers(out *analysis.Outcome) dicomio.Identifiers {
-	if out.ReferenceInfo != nil {
-		return out.ReferenceInfo.Identifiers
-	}
-	return dicomio.Identifiers{}
-}
-
-// pseudonym is a stable hash standing in for a patient name or ID.
-func pseudonym(s string) string {
-	if s == "" {
-		return ""
-	}
-	h := sha256.Sum256([]byte("voxgamma-deidentify:" + s))
-	return "ANON-" + strings.ToUpper(hex.EncodeToString(h[:6]))
-}
-
-func deidentifyResult(r *result.Result) {
-	for i := range r.Inputs {
-		r.Inputs[i].PatientName = pseudonym(r.Inputs[i].PatientName)
-		r.Inputs[i].PatientID = pseudonym(r.Inputs[i].PatientID)
-	}
-	r.Run.Started = ""
-	r.Notes = append(r.Notes, "de-identified: patient names and IDs replaced with hashes, dates left out")
-}
-
-func deidentifyIDs(ids dicomio.Identifiers) dicomio.Identifiers {
-	return dicomio.Identifiers{
-		PatientName: pseudonym(ids.PatientName), PatientID: pseudonym(ids.PatientID),
-		StudyInstanceUID: dicomio.NewUID(), FrameOfReferenceUID: dicomio.NewUID(),
-	}
 }
 
 func printSummary(g *globals, r *result.Result) {

@@ -9,6 +9,7 @@ import (
 	"voxgamma/analysis"
 	"voxgamma/demo"
 	"voxgamma/dicomio"
+	"voxgamma/job"
 )
 
 func newDemo(g *globals) *cobra.Command {
@@ -39,34 +40,34 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 				fmt.Fprintf(g.stdout, "demo case written to %s (reference.dcm, evaluated.dcm, structures.dcm)\n", dir)
 			}
 			f := &compareFlags{protocol: "tg218", subgridStep: 0.5, minClusterCC: 0.01, workers: workers}
-			s, _, warnings, err := settingsFrom(cmd, f)
+			s, err := settingsFrom(cmd, f)
 			if err != nil {
 				return err
 			}
 			s.IsodosePercents = []float64{50}
 			s.VDoses = []float64{12}
-			out := outputs{
-				json: filepath.Join(dir, "result.json"), csv: filepath.Join(dir, "result.csv"),
-				gammaMap: filepath.Join(dir, "gamma.dcm"), diffMap: filepath.Join(dir, "difference.dcm"),
-				report: filepath.Join(dir, "report.html"),
+			out := job.Outputs{
+				JSON: filepath.Join(dir, "result.json"), CSV: filepath.Join(dir, "result.csv"),
+				GammaMap: filepath.Join(dir, "gamma.dcm"), DifferenceMap: filepath.Join(dir, "difference.dcm"),
+				Report: filepath.Join(dir, "report.html"),
 			}
 			in := analysis.Inputs{Reference: files.Reference, Evaluated: files.Evaluated, Structures: files.Structures}
-			if err := checkOutputs(out, []string{files.Reference, files.Evaluated, files.Structures}, true); err != nil {
+			if err := out.Check([]string{files.Reference, files.Evaluated, files.Structures}, true); err != nil {
 				return err
 			}
-			o, err := compareInputs(cmd.Context(), g, in, s, warnings)
+			o, err := compareInputs(cmd.Context(), g, in, s)
 			if err != nil {
 				return err
 			}
-			if err := writeOutputs(g, out, o, true, false); err != nil {
+			if err := job.Write(out, o, false); err != nil {
 				return err
 			}
 			mha := filepath.Join(dir, "gamma.mha")
-			if err := writeMap(mha, o.Gamma, referenceIdentifiers(o), dicomio.GammaOptions("gamma index "+o.Result.Criteria.Label+", unitless")); err != nil {
+			if err := job.WriteMap(mha, o.Gamma, dicomio.Identifiers{}, dicomio.GammaOptions("")); err != nil {
 				return err
 			}
 			if !g.quiet {
-				fmt.Fprintf(g.stdout, "outputs: %s, %s, %s, %s, %s, %s\n", out.json, out.csv, out.gammaMap, mha, out.diffMap, out.report)
+				fmt.Fprintf(g.stdout, "outputs: %s, %s, %s, %s, %s, %s\n", out.JSON, out.CSV, out.GammaMap, mha, out.DifferenceMap, out.Report)
 			}
 			return nil
 		},

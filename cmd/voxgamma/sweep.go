@@ -14,6 +14,7 @@ import (
 	"voxgamma/analysis"
 	"voxgamma/gamma"
 	"voxgamma/internal/atomicfile"
+	"voxgamma/job"
 	"voxgamma/result"
 )
 
@@ -76,7 +77,7 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 	if f.gammaMap != "" || f.diffMap != "" || f.reportOut != "" {
 		return fmt.Errorf("sweep writes tables only: use compare for maps and the review page")
 	}
-	s, _, _, err := settingsFrom(cmd, f)
+	s, err := settingsFrom(cmd, f)
 	if err != nil {
 		return err
 	}
@@ -104,7 +105,7 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 	if len(doses) == 0 || len(dtas) == 0 || len(normList) == 0 {
 		return fmt.Errorf("a sweep needs at least one dose criterion, one DTA and one normalisation")
 	}
-	if err := checkOutputs(outputs{json: f.jsonOut, csv: f.csvOut}, []string{f.reference, f.referencePoints, f.evaluated, f.structures}, f.force); err != nil {
+	if err := (job.Outputs{JSON: f.jsonOut, CSV: f.csvOut}).Check([]string{f.reference, f.referencePoints, f.evaluated, f.structures}, f.force); err != nil {
 		return err
 	}
 	if f.reference == "" && f.referencePoints == "" {

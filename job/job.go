@@ -1,0 +1,363 @@
+// Package job runs one voxgamma comparison from a protocol and settings to
+// written output files: the unit of work that the compare command, the demo
+// and batch runs share. It resolves a protocol (file or preset) and the
+// caller's overrides into analysis settings, checks the requested outputs
+// before any computation (never over an input, never over an existing file
+// unless forced, directories that exist and are writable), runs the
+// comparison and writes every output atomically, de-identified on request.
+package job
+
+import (
+	"context"
+	"crypto/sha256"
+	"encoding/hex"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"voxgamma/analysis"
+	"voxgamma/dicomio"
+	"voxgamma/gamma"
+	"voxgamma/metaimage"
+	"voxgamma/protocol"
+	"voxgamma/report"
+	"voxgamma/result"
+	"voxgamma/roi"
+	"voxgamma/volume"
+)
+
+// LoadProtocol returns the protocol in the file name, or the built-in
+// preset of that name when no such file exists.
+func LoadProtocol(name string) (*protocol.Protocol, error) {
+	if _, err := os.Stat(name); err == nil {
+		return protocol.Load(name)
+	}
+	if p, ok := protocol.Preset(name); ok {
+		return p, nil
+	}
+	return nil, fmt.Errorf("protocol %q: no such file, and not a preset (%s)", name, strings.Join(protocol.PresetNames(), ", "))
+}
+
+// Overrides are settings given besides the protocol (on a command line);
+// nil pointers and empty strings leave the protocol's value.
+type Overrides struct {
+	// Criteria in the trade's notation, e.g. "2%/1mm".
+	Criteria string
+	// Local selects local (true) or global (false) normalisation.
+	Local *bool
+	// Threshold in percent, NormDose in Gy, Search in mm.
+	Threshold, NormDose, Search *float64
+	// KindRules in roi.ParseRule's form ("PTV*=target"), applied before
+	// the protocol's.
+	KindRules []string
+	// Isodose replaces the protocol's isodose ROIs when not nil.
+	Isodose []float64
+	// VDoses are the doses (Gy) at which V_d is reported.
+	VDoses []float64
+	// SubGrid names ROIs to evaluate on a sub-grid of step SubGridStep mm.
+	SubGrid     []string
+	SubGridStep float64
+	// MinClusterCC is the smallest failing cluster listed.
+	MinClusterCC float64
+	// Workers for the gamma search; 0 means all cores.
+	Workers int
+	// Exhaustive selects the exhaustive search.
+	Exhaustive bool
+	// Version is recorded in the result.
+	Version string
+}
+
+// Settings resolves a protocol and overrides into analysis settings. Every
+// error names the option or the protocol at fault.
+func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
+	var s analysis.Settings
+	c, err := p.GammaCriteria()
+	if err != nil {
+		return s, fmt.Errorf("protocol %s: %w", p.Name, err)
+	}
+	if ov.Criteria != "" {
+		if c.DosePercent, c.DTA, err = gamma.ParseCriteria(ov.Criteria); err != nil {
+			return s, fmt.Errorf("--criteria: %w", err)
+		}
+	}
+	if ov.Local != nil {
+		c.Normalisation = gamma.Global
+		if *ov.Local {
+			c.Normalisation = gamma.Local
+		}
+	}
+	if ov.Threshold != nil {
+		c.ThresholdPercent = *ov.Threshold
+	}
+	if ov.NormDose != nil {
+		if !(*ov.NormDose > 0) {
+			return s, fmt.Errorf("--norm-dose %g: want a dose above 0 Gy", *ov.NormDose)
+		}
+		c.NormDose = *ov.NormDose
+	}
+	if ov.Search != nil {
+		if !(*ov.Search > 0) {
+			return s, fmt.Errorf("--search %g: want a distance above 0 mm", *ov.Search)
+		}
+		c.Search = *ov.Search
+	}
+	if err := c.Validate(); err != nil {
+		return s, err
+	}
+	rules, err := p.ROIRules()
+	if err != nil {
+		return s, fmt.Errorf("protocol %s: %w", p.Name, err)
+	}
+	var cli []roi.Rule
+	for _, kr := range ov.KindRules {
+		r, err := roi.ParseRule(kr)
+		if err != nil {
+			return s, fmt.Errorf("--kind %q: %w", kr, err)
+		}
+		cli = append(cli, r)
+	}
+	rules = append(cli, rules...)
+	iso := p.Isodose
+	if ov.Isodose != nil {
+		iso = ov.Isodose
+	}
+	for _, v := range iso {
+		if !(v > 0 && v <= 100) {
+			return s, fmt.Errorf("isodose level %g %%: want a percentage above 0 and at most 100", v)
+		}
+	}
+	for _, v := range ov.VDoses {
+		if !(v >= 0) {
+			return s, fmt.Errorf("--v-dose %g: want a dose of 0 Gy or more", v)
+		}
+	}
+	step := ov.SubGridStep
+	if step == 0 {
+		step = 0.5
+	}
+	if !(step > 0) {
+		return s, fmt.Errorf("--subgrid-step %g: want a step above 0 mm", step)
+	}
+	if ov.Workers < 0 {
+		return s, fmt.Errorf("--workers %d: want 0 (all cores) or more", ov.Workers)
+	}
+	if ov.MinClusterCC < 0 {
+		return s, fmt.Errorf("--min-cluster %g: want 0 cc or more", ov.MinClusterCC)
+	}
+	s = analysis.Settings{
+		Criteria: c, KindRules: rules, IsodosePercents: iso, VDoses: ov.VDoses,
+		SubGridROIs: ov.SubGrid, SubGridStep: step, MinClusterCC: ov.MinClusterCC,
+		Workers: ov.Workers, Checker: p, Protocol: p, Version: ov.Version,
+	}
+	if c.NormDose > 0 {
+		s.NormDoseSource = "protocol"
+		if ov.NormDose != nil {
+			s.NormDoseSource = "user"
+		}
+	}
+	if ov.Exhaustive {
+		s.Method = gamma.Exhaustive
+	}
+	return s, nil
+}
+
+// Outputs are the files one comparison writes; empty names are not written.
+type Outputs struct {
+	JSON, CSV, GammaMap, DifferenceMap, Report string
+}
+
+// List returns the names of the outputs to write.
+func (o Outputs) List() []string {
+	var l []string
+	for _, p := range []string{o.JSON, o.CSV, o.GammaMap, o.DifferenceMap, o.Report} {
+		if p != "" {
+			l = append(l, p)
+		}
+	}
+	return l
+}
+
+// Check refuses, before any computation, output paths that would replace an
+// input or another output, existing files unless force, missing or
+// unwritable directories and map names without a known extension.
+func (o Outputs) Check(inputs []string, force bool) error {
+	seen := map[string]string{}
+	in := map[string]bool{}
+	for _, p := range inputs {
+		if p != "" {
+			in[canonical(p)] = true
+		}
+	}
+	for _, m := range []struct{ flag, path string }{{"--gamma-map", o.GammaMap}, {"--difference-map", o.DifferenceMap}} {
+		if m.path != "" {
+			ext := strings.ToLower(filepath.Ext(m.path))
+			if ext != ".dcm" && ext != ".mha" {
+				return fmt.Errorf("%s %s: the name must end in .dcm (RT Dose) or .mha (MetaImage)", m.flag, m.path)
+			}
+		}
+	}
+	for _, p := range o.List() {
+		c := canonical(p)
+		if in[c] {
+			return fmt.Errorf("output %s is an input file: refusing to overwrite it", p)
+		}
+		if other, dup := seen[c]; dup {
+			return fmt.Errorf("output %s is named twice (also as %s)", p, other)
+		}
+		seen[c] = p
+		if st, err := os.Stat(p); err == nil {
+			if st.IsDir() {
+				return fmt.Errorf("output %s is a directory", p)
+			}
+			if !force {
+				return fmt.Errorf("output %s exists (pass --force to overwrite)", p)
+			}
+		}
+		dir := filepath.Dir(p)
+		st, err := os.Stat(dir)
+		if err != nil || !st.IsDir() {
+			return fmt.Errorf("output %s: directory %s does not exist", p, dir)
+		}
+		tmp, err := os.CreateTemp(dir, ".voxgamma-write-test-*")
+		if err != nil {
+			return fmt.Errorf("output %s: directory %s is not writable: %v", p, dir, err)
+		}
+		tmp.Close()
+		os.Remove(tmp.Name())
+	}
+	return nil
+}
+
+// canonical returns an absolute, symlink-resolved form of path for
+// comparisons (as absolute as it gets when it cannot be resolved).
+func canonical(p string) string {
+	a, err := filepath.Abs(p)
+	if err != nil {
+		return p
+	}
+	if r, err := filepath.EvalSymlinks(a); err == nil {
+		return r
+	}
+	if r, err := filepath.EvalSymlinks(filepath.Dir(a)); err == nil {
+		return filepath.Join(r, filepath.Base(a))
+	}
+	return a
+}
+
+// Compare loads, prepares and runs one comparison. A protocol whose
+// criteria differ from those applied (overridden) adds a warning.
+func Compare(ctx context.Context, in analysis.Inputs, s analysis.Settings) (*analysis.Outcome, error) {
+	l, err := analysis.Load(in)
+	if err != nil {
+		return nil, err
+	}
+	p, err := analysis.Prepare(l, s)
+	if err != nil {
+		return nil, err
+	}
+	out, err := p.Run(ctx, s)
+	if err != nil {
+		return nil, err
+	}
+	r := out.Result
+	if pr, ok := s.Protocol.(*protocol.Protocol); ok {
+		if err := pr.CheckCriteria(r.Criteria); err != nil {
+			r.Warnings = append(r.Warnings, fmt.Sprintf("criteria differ from protocol %q (its limits were set for its own criteria): %s",
+				pr.Name, strings.ReplaceAll(err.Error(), "\n", "; ")))
+		}
+	}
+	return out, nil
+}
+
+// Write writes every requested output of a finished comparison; the first
+// failure is returned, naming the file. With deidentify, patient names and
+// IDs become hashes, dates are left out, and DICOM maps get new study and
+// frame-of-reference UIDs.
+func Write(o Outputs, out *analysis.Outcome, deidentify bool) error {
+	r := out.Result
+	var ids dicomio.Identifiers
+	if out.ReferenceInfo != nil {
+		ids = out.ReferenceInfo.Identifiers
+	}
+	if deidentify {
+		DeidentifyResult(r)
+		ids = deidentifyIDs(ids)
+	}
+	if o.JSON != "" {
+		if err := report.WriteJSON(o.JSON, r); err != nil {
+			return err
+		}
+	}
+	if o.CSV != "" {
+		if err := report.WriteCSV(o.CSV, r); err != nil {
+			return err
+		}
+	}
+	if o.GammaMap != "" {
+		if err := WriteMap(o.GammaMap, out.Gamma, ids, dicomio.GammaOptions("gamma index "+r.Criteria.Label+", unitless")); err != nil {
+			return err
+		}
+	}
+	if o.DifferenceMap != "" {
+		if err := WriteMap(o.DifferenceMap, out.Difference, ids, dicomio.DifferenceOptions("dose difference evaluated-reference, Gy")); err != nil {
+			return err
+		}
+	}
+	if o.Report != "" {
+		page := report.Page{Result: r, Reference: out.Reference, Gamma: out.Gamma}
+		for i, reg := range out.Regions {
+			if len(reg.Centres) == 0 || reg.Number == 0 {
+				continue
+			}
+			page.ROIs = append(page.ROIs, report.PageROI{Name: reg.Name, Color: out.Colors[i], Mask: reg.Mask()})
+		}
+		if !deidentify {
+			page.Generated = r.Run.Started
+		}
+		if err := report.WriteHTML(o.Report, page); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// WriteMap writes a map as RT Dose (.dcm) or MetaImage (.mha, by the name).
+func WriteMap(path string, grid *volume.Grid, ids dicomio.Identifiers, opt dicomio.WriteOptions) error {
+	if grid == nil {
+		return fmt.Errorf("%s: no map to write (the reference is not a grid)", path)
+	}
+	if strings.EqualFold(filepath.Ext(path), ".mha") {
+		return metaimage.Write(path, grid)
+	}
+	_, err := dicomio.WriteDose(path, grid, ids, opt)
+	return err
+}
+
+// Pseudonym is the stable hash that stands in for a patient name or ID in
+// de-identified outputs ("" stays "").
+func Pseudonym(s string) string {
+	if s == "" {
+		return ""
+	}
+	h := sha256.Sum256([]byte("voxgamma-deidentify:" + s))
+	return "ANON-" + strings.ToUpper(hex.EncodeToString(h[:6]))
+}
+
+// DeidentifyResult replaces patient names and IDs in r with pseudonyms and
+// removes the run's date.
+func DeidentifyResult(r *result.Result) {
+	for i := range r.Inputs {
+		r.Inputs[i].PatientName = Pseudonym(r.Inputs[i].PatientName)
+		r.Inputs[i].PatientID = Pseudonym(r.Inputs[i].PatientID)
+	}
+	r.Run.Started = ""
+	r.Notes = append(r.Notes, "de-identified: patient names and IDs replaced with hashes, dates left out")
+}
+
+func deidentifyIDs(ids dicomio.Identifiers) dicomio.Identifiers {
+	return dicomio.Identifiers{
+		PatientName: Pseudonym(ids.PatientName), PatientID: Pseudonym(ids.PatientID),
+		StudyInstanceUID: dicomio.NewUID(), FrameOfReferenceUID: dicomio.NewUID(),
+	}
+}

@@ -1,0 +1,89 @@
+package report
+
+import (
+	"encoding/csv"
+	"fmt"
+	"io"
+	"strconv"
+
+	"voxgamma/internal/atomicfile"
+	"voxgamma/result"
+)
+
+// csvHeader lists the columns of the CSV table, in order.
+var csvHeader = []string{
+	"name", "kind", "source", "volume_cc", "voxels", "evaluated", "passed", "pass_rate",
+	"gamma_mean", "gamma_p95", "gamma_max", "failing_volume_cc", "status",
+	"ref_mean_gy", "eval_mean_gy", "ref_d95_gy", "eval_d95_gy", "diff_d95_percent",
+	"ref_d2_gy", "eval_d2_gy", "diff_d2_percent",
+}
+
+// CSVColumns returns the names of the CSV table's columns, in order.
+func CSVColumns() []string { return append([]string(nil), csvHeader...) }
+
+// EncodeCSV writes the CSV table of r to w: a header row ([CSVColumns]), a row
+// named "overall" with the statistics over every evaluated point, then one
+// row per ROI in the result's order. A number that does not exist (null in
+// the JSON, or a column that does not apply to the overall row) is an empty
+// cell. Numbers are written in the shortest form that reads back to the same
+// float64; pass_rate is the exact rate, not the rounded-down text the page
+// shows.
+func EncodeCSV(w io.Writer, r *result.Result) error {
+	if r == nil {
+		return fmt.Errorf("report: encoding CSV: no result")
+	}
+	cw := csv.NewWriter(w)
+	rows := make([][]string, 0, len(r.ROIs)+2)
+	rows = append(rows, csvHeader)
+	o := r.Overall
+	rows = append(rows, []string{
+		"overall", "", "", "", "",
+		strconv.Itoa(o.Evaluated), strconv.Itoa(o.Passed), csvNum(o.PassRate),
+		csvNum(o.GammaMean), csvNum(o.GammaP95), csvNum(o.GammaMax), "", "",
+		"", "", "", "", "", "", "", "",
+	})
+	for _, roi := range r.ROIs {
+		var dvh result.DVHPair
+		if roi.DVH != nil {
+			dvh = *roi.DVH
+		}
+		rows = append(rows, []string{
+			roi.Name, roi.Kind, roi.Source, csvFloat(roi.VolumeCC), strconv.Itoa(roi.Voxels),
+			strconv.Itoa(roi.Evaluated), strconv.Itoa(roi.Passed), csvNum(roi.PassRate),
+			csvNum(roi.GammaMean), csvNum(roi.GammaP95), csvNum(roi.GammaMax),
+			csvFloat(roi.FailingVolumeCC), roi.Status,
+			csvNum(dvh.Reference.MeanGy), csvNum(dvh.Evaluated.MeanGy),
+			csvNum(dvh.Reference.D95Gy), csvNum(dvh.Evaluated.D95Gy), csvNum(dvh.DifferencePercent.D95Gy),
+			csvNum(dvh.Reference.D2Gy), csvNum(dvh.Evaluated.D2Gy), csvNum(dvh.DifferencePercent.D2Gy),
+		})
+	}
+	if err := cw.WriteAll(rows); err != nil {
+		return fmt.Errorf("report: encoding CSV: %w", err)
+	}
+	return nil
+}
+
+// WriteCSV writes the CSV table of r (see [EncodeCSV]) to the file at path,
+// atomically.
+func WriteCSV(path string, r *result.Result) error {
+	if err := atomicfile.Write(path, func(w io.Writer) error { return EncodeCSV(w, r) }); err != nil {
+		return fmt.Errorf("report: CSV: %w", err)
+	}
+	return nil
+}
+
+// csvNum formats a nullable number; nil (and NaN, which a result should
+// never hold) is the empty cell.
+func csvNum(p *float64) string {
+	if p == nil {
+		return ""
+	}
+	return csvFloat(*p)
+}
+
+func csvFloat(v float64) string {
+	if v != v {
+		return ""
+	}
+	return strconv.FormatFloat(v, 'f', -1, 64)
+}
