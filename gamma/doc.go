@@ -10,33 +10,46 @@
 //
 // # The evaluated distribution is continuous
 //
-// The evaluated grid is treated as a continuous field, trilinear inside each
-// cell of eight voxel centres, and Γ is the minimum over that field, not over
-// its nodes; results therefore do not depend on the evaluated grid's spacing
-// beyond interpolation error. (Sampling the field at a step of about Δd/10
-// already makes statistics converge, Wendling et al., Med Phys 34 (2007) 1647;
-// Ju et al., Med Phys 35 (2008) 879, take the exact distance to a piecewise-
-// linear surface. This package takes the exact minimum over the trilinear
-// surface, up to the convergence tolerance of a local solver.)
+// The evaluated grid is treated as a continuous field and Γ is the minimum
+// over that field, not over its nodes, so results do not depend on the
+// evaluated grid's spacing beyond interpolation error. The field is the
+// piecewise-linear interpolant on the Kuhn triangulation of each cell (six
+// tetrahedra per cube, cut the same way in every cell, so the field is
+// continuous and reproduces linear doses exactly): the surface of Ju et al.,
+// Med Phys 35 (2008) 879, on which Γ is the exact distance from the reference
+// point to a piecewise-linear surface in (x/Δd, y/Δd, z/Δd, D/ΔD) space. On
+// each tetrahedron that distance is a convex problem with one minimum, found
+// in closed form; a trilinear field would allow several local minima in one
+// cell, which no local solver can be trusted to resolve. (Sampling a field at
+// a step of about Δd/10 already makes statistics converge, Wendling et al.,
+// Med Phys 34 (2007) 1647; the exhaustive method below samples far finer.)
 //
 // The fast search, for one reference point q with dose D_r, in the evaluated
 // grid's local frame scaled to DTA units:
 //
-//  1. Upper bound from the evaluated dose at q itself: Γ² ≤ (D_e(q) − D_r)²/ΔD².
-//  2. Upper bound from the nearest evaluated node in the renormalised space
-//     (x/Δd, y/Δd, z/Δd, D/ΔD), found with a k-d tree (Yuan and Chen, Med Phys
-//     37 (2010) 4868). The tree takes ΔD per query, so local normalisation uses
-//     the same tree.
+//  1. Upper bound from the evaluated dose at q itself and the exact minimum
+//     over the cell holding q, which usually is the answer.
+//  2. Where that bound is still Γ > 1 (the point fails at home, and the
+//     search ball may hold thousands of cells), the nearest evaluated node in
+//     the renormalised space (x/Δd, y/Δd, z/Δd, D/ΔD), found with a k-d tree
+//     (Yuan and Chen, Med Phys 37 (2010) 4868), can shrink it. The tree takes
+//     ΔD per query, so local normalisation uses the same tree, and it is built
+//     only over the nodes within the search distance of such points.
 //  3. Exact refinement: every cell within the current bound (and the search
 //     distance) is bounded below by its distance to q and by the gap between
-//     D_r and the range of its eight corner doses (a trilinear interpolant
-//     never leaves that range); cells whose bound cannot beat the current
-//     minimum are skipped, and in the rest the minimum of the trilinear field is
-//     found by a projected Gauss-Newton iteration on the cell box.
+//     D_r and the range of its eight corner doses (a piecewise-linear
+//     interpolant never leaves that range); cells are taken in increasing
+//     order of that bound until it cannot beat the minimum found, and in each,
+//     every tetrahedron that could still beat it is solved exactly: the
+//     distance to its hyperplane (the closed form for a linear dose) when the
+//     foot of the perpendicular lies inside, else the nearest of the faces the
+//     foot sees.
 //
 // An exhaustive method (a lattice at Δd/10 over the whole search sphere, no
-// pruning, polished by a pattern search) serves audits and is the tests'
-// oracle; the fast method agrees with it to |ΔΓ| ≤ 0.005.
+// pruning, then zooming lattices around the best positions) samples the same
+// field point by point through a separate code path; it serves audits and is
+// the tests' oracle. The fast method is never above it by more than rounding
+// and agrees with it to |ΔΓ| ≤ 0.005.
 //
 // # What is counted
 //

@@ -19,11 +19,12 @@ import (
 type Method int
 
 const (
-	// Fast: k-d tree candidates at grid nodes, then the exact minimum of the
-	// trilinear field in every cell that could still hold a smaller value.
+	// Fast: the exact minimum of the piecewise-linear field over every cell
+	// that could still hold a smaller value, with k-d tree candidates at grid
+	// nodes where the first bound is poor.
 	Fast Method = iota
 	// Exhaustive: every position of a fine lattice within the search
-	// distance, no pruning, then a local pattern search around the best
+	// distance, no pruning, then finer lattices zooming in on the best
 	// lattice positions. Slow; for audits and as the tests' oracle.
 	Exhaustive
 )
@@ -371,6 +372,7 @@ const maxSorted = 64
 // to point, so the search allocates and clears nothing per point.
 type scratch struct {
 	lb      [maxSorted]float64
+	ds2     [maxSorted]float64
 	cell    [maxSorted][3]int32
 	corners [maxSorted][8]float64
 	order   [maxSorted]uint8
@@ -554,12 +556,12 @@ func (s *searcher) home(q [3]float64, dr, w float64) float64 {
 	}
 	var corners [8]float64
 	f.corners(c[0], c[1], c[2], &corners)
-	e0 := trilinear(&corners, t)
+	e0 := plValue(&corners, t)
 	best2 := w * w * (e0 - dr) * (e0 - dr)
 	if best2 == 0 || doseGap2(&corners, dr, w) >= best2 {
 		return best2
 	}
-	return math.Min(best2, f.cellMin(c[0], c[1], c[2], &corners, q, dr, w))
+	return f.cellMin(c[0], c[1], c[2], &corners, q, dr, w, 0, best2)
 }
 
 // rest finishes the search from the bound best2 that home returned: the
@@ -625,11 +627,11 @@ func (s *searcher) rest(q [3]float64, dr, w, best2 float64, useTree bool, sc *sc
 				}
 				if nc == maxSorted {
 					// Too many to sort: take this one at once.
-					best2 = math.Min(best2, f.cellMin(ci, cj, ck, &c, q, dr, w))
+					best2 = f.cellMin(ci, cj, ck, &c, q, dr, w, ds2, best2)
 					continue
 				}
 				// Keep the candidate; its rank goes into the sorted order.
-				sc.lb[nc], sc.cell[nc], sc.corners[nc] = lb, [3]int32{int32(ci), int32(cj), int32(ck)}, c
+				sc.lb[nc], sc.ds2[nc], sc.cell[nc], sc.corners[nc] = lb, ds2, [3]int32{int32(ci), int32(cj), int32(ck)}, c
 				at := nc
 				for at > 0 && sc.lb[sc.order[at-1]] > lb {
 					sc.order[at] = sc.order[at-1]
@@ -645,7 +647,7 @@ func (s *searcher) rest(q [3]float64, dr, w, best2 float64, useTree bool, sc *sc
 			break
 		}
 		cl := sc.cell[i]
-		best2 = math.Min(best2, f.cellMin(int(cl[0]), int(cl[1]), int(cl[2]), &sc.corners[i], q, dr, w))
+		best2 = f.cellMin(int(cl[0]), int(cl[1]), int(cl[2]), &sc.corners[i], q, dr, w, sc.ds2[i], best2)
 	}
 	return best2
 }
