@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"runtime"
 	"sort"
 	"strings"
 	"time"
@@ -215,7 +216,11 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 			res.Verdict = "fail"
 		}
 	}
-	res.Run = result.Run{Started: started.UTC().Format(time.RFC3339), Seconds: time.Since(started).Seconds(), GammaSeconds: gammaSeconds, Workers: s.Workers}
+	workers := s.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	res.Run = result.Run{Started: started.UTC().Format(time.RFC3339), Seconds: time.Since(started).Seconds(), GammaSeconds: gammaSeconds, Workers: workers}
 	return out, nil
 }
 

@@ -33,11 +33,11 @@ func runDemo(t *testing.T) (dir string, r *result.Result) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	out, err := job.Compare(context.Background(), analysis.Inputs{Reference: files.Reference, Evaluated: files.Evaluated, Structures: files.Structures}, s)
+	outs := job.Outputs{JSON: filepath.Join(dir, "result.json"), Report: filepath.Join(dir, "report.html")}
+	out, err := job.CompareFor(context.Background(), analysis.Inputs{Reference: files.Reference, Evaluated: files.Evaluated, Structures: files.Structures}, s, outs, false)
 	if err != nil {
 		t.Fatal(err)
 	}
-	outs := job.Outputs{JSON: filepath.Join(dir, "result.json"), Report: filepath.Join(dir, "report.html")}
 	if err := job.Write(outs, out, false); err != nil {
 		t.Fatal(err)
 	}

@@ -172,9 +172,14 @@ func checkLen(what string, s string, max int) error {
 // Common (PS3.3 C.12.1), Patient (C.7.1.1), General Study (C.7.2.1), the
 // series and equipment attributes of RT Series (C.8.8.1) and General
 // Equipment (C.7.5.1).
+//
+// A zero now leaves the instance creation date and time out (de-identified
+// files carry no dates).
 func (b *builder) addCommon(sopClass, sopInstance, modality, seriesUID, seriesDescription string, seriesNumber int, id Identifiers, now time.Time) {
-	b.add(tagInstanceCreationDate, now.Format("20060102"))
-	b.add(tagInstanceCreationTime, now.Format("150405"))
+	if !now.IsZero() {
+		b.add(tagInstanceCreationDate, now.Format("20060102"))
+		b.add(tagInstanceCreationTime, now.Format("150405"))
+	}
 	b.add(tagSOPClassUID, sopClass)
 	b.add(tagSOPInstanceUID, sopInstance)
 	b.add(tagStudyDate, id.StudyDate)

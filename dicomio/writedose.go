@@ -41,6 +41,10 @@ type WriteOptions struct {
 	NaNValue float32
 	// SeriesNumber (0020,0011); 1 when 0.
 	SeriesNumber int
+	// OmitDates leaves the instance creation and content dates and times
+	// out (empty where the standard needs the attribute present), for
+	// de-identified maps. The study date comes from the Identifiers.
+	OmitDates bool
 }
 
 // GammaOptions returns the options for a gamma index map: unitless
@@ -227,6 +231,9 @@ func buildDose(path string, g *volume.Grid, ids Identifiers, opt WriteOptions) (
 	}
 
 	now := time.Now()
+	if opt.OmitDates {
+		now = time.Time{}
+	}
 	info := &DoseInfo{
 		Identifiers:           ids,
 		Path:                  path,
@@ -262,8 +269,14 @@ func buildDose(path string, g *volume.Grid, ids Identifiers, opt WriteOptions) (
 
 	b := &builder{}
 	b.addCommon(RTDoseStorage, info.SOPInstanceUID, "RTDOSE", info.SeriesInstanceUID, opt.Description, opt.SeriesNumber, ids, now)
-	b.add(tagContentDate, now.Format("20060102"))
-	b.add(tagContentTime, now.Format("150405"))
+	if now.IsZero() {
+		// Type 2: present, empty.
+		b.add(tagContentDate, "")
+		b.add(tagContentTime, "")
+	} else {
+		b.add(tagContentDate, now.Format("20060102"))
+		b.add(tagContentTime, now.Format("150405"))
+	}
 	// Image Plane (C.7.6.2).
 	if s, ok := g.Spacing(2); ok && s > 0 {
 		b.addDS(tagSliceThickness, s)

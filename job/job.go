@@ -11,9 +11,11 @@ import (
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
+	"errors"
 	"fmt"
 	"os"
 	"path/filepath"
+	"sort"
 	"strings"
 
 	"voxgamma/analysis"
@@ -88,6 +90,9 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 		}
 	}
 	if ov.Threshold != nil {
+		if t := *ov.Threshold; !(t >= 0 && t < 100) {
+			return s, fmt.Errorf("--threshold %g: want a percentage from 0 to below 100", t)
+		}
 		c.ThresholdPercent = *ov.Threshold
 	}
 	if ov.NormDose != nil {
@@ -245,11 +250,28 @@ func canonical(p string) string {
 	return a
 }
 
-// Compare loads, prepares and runs one comparison. A protocol whose
-// criteria differ from those applied (overridden) adds a warning.
+// ErrNothingEvaluated is returned by Compare when no reference point could
+// be evaluated (all below the threshold, or outside the evaluated grid): a
+// comparison that could not evaluate, whatever the protocol says.
+var ErrNothingEvaluated = errors.New("nothing was evaluated: every reference point is below the low-dose threshold or outside the evaluated grid")
+
+// Compare loads the inputs, prepares and runs one comparison. A protocol
+// whose criteria differ from those applied (overridden) adds a warning. A
+// comparison that evaluated nothing is ErrNothingEvaluated.
 func Compare(ctx context.Context, in analysis.Inputs, s analysis.Settings) (*analysis.Outcome, error) {
+	return CompareFor(ctx, in, s, Outputs{}, false)
+}
+
+// CompareFor is Compare for the given outputs: once the inputs are read, it
+// checks the outputs against every file actually read (the files chosen in
+// a folder too) before computing anything.
+func CompareFor(ctx context.Context, in analysis.Inputs, s analysis.Settings, outs Outputs, force bool) (*analysis.Outcome, error) {
 	l, err := analysis.Load(in)
 	if err != nil {
+		return nil, err
+	}
+	given := []string{in.Reference, in.ReferencePoints, in.Evaluated, in.Structures}
+	if err := outs.Check(append(given, l.Paths...), force); err != nil {
 		return nil, err
 	}
 	p, err := analysis.Prepare(l, s)
@@ -261,6 +283,9 @@ func Compare(ctx context.Context, in analysis.Inputs, s analysis.Settings) (*ana
 		return nil, err
 	}
 	r := out.Result
+	if r.Overall.Evaluated == 0 {
+		return nil, ErrNothingEvaluated
+	}
 	if pr, ok := s.Protocol.(*protocol.Protocol); ok {
 		if err := pr.CheckCriteria(r.Criteria); err != nil {
 			r.Warnings = append(r.Warnings, fmt.Sprintf("criteria differ from protocol %q (its limits were set for its own criteria): %s",
@@ -280,9 +305,12 @@ func Write(o Outputs, out *analysis.Outcome, deidentify bool) error {
 	if out.ReferenceInfo != nil {
 		ids = out.ReferenceInfo.Identifiers
 	}
+	gammaOpt := dicomio.GammaOptions("gamma index " + r.Criteria.Label + ", unitless")
+	diffOpt := dicomio.DifferenceOptions("dose difference evaluated-reference, Gy")
 	if deidentify {
 		DeidentifyResult(r)
 		ids = deidentifyIDs(ids)
+		gammaOpt.OmitDates, diffOpt.OmitDates = true, true
 	}
 	if o.JSON != "" {
 		if err := report.WriteJSON(o.JSON, r); err != nil {
@@ -295,12 +323,12 @@ func Write(o Outputs, out *analysis.Outcome, deidentify bool) error {
 		}
 	}
 	if o.GammaMap != "" {
-		if err := WriteMap(o.GammaMap, out.Gamma, ids, dicomio.GammaOptions("gamma index "+r.Criteria.Label+", unitless")); err != nil {
+		if err := WriteMap(o.GammaMap, out.Gamma, ids, gammaOpt); err != nil {
 			return err
 		}
 	}
 	if o.DifferenceMap != "" {
-		if err := WriteMap(o.DifferenceMap, out.Difference, ids, dicomio.DifferenceOptions("dose difference evaluated-reference, Gy")); err != nil {
+		if err := WriteMap(o.DifferenceMap, out.Difference, ids, diffOpt); err != nil {
 			return err
 		}
 	}
@@ -344,15 +372,44 @@ func Pseudonym(s string) string {
 	return "ANON-" + strings.ToUpper(hex.EncodeToString(h[:6]))
 }
 
-// DeidentifyResult replaces patient names and IDs in r with pseudonyms and
-// removes the run's date.
+// DeidentifyResult replaces patient names and IDs in r with pseudonyms,
+// wherever they appear (inputs, warnings, notes), and removes the run's
+// date.
 func DeidentifyResult(r *result.Result) {
+	var pairs []string
 	for i := range r.Inputs {
-		r.Inputs[i].PatientName = Pseudonym(r.Inputs[i].PatientName)
-		r.Inputs[i].PatientID = Pseudonym(r.Inputs[i].PatientID)
+		for _, v := range []*string{&r.Inputs[i].PatientName, &r.Inputs[i].PatientID} {
+			if *v != "" {
+				pairs = append(pairs, *v, Pseudonym(*v))
+				*v = Pseudonym(*v)
+			}
+		}
+	}
+	// Longer values first, so a name containing an ID is replaced whole.
+	rep := strings.NewReplacer(longestFirst(pairs)...)
+	for i := range r.Warnings {
+		r.Warnings[i] = rep.Replace(r.Warnings[i])
+	}
+	for i := range r.Notes {
+		r.Notes[i] = rep.Replace(r.Notes[i])
 	}
 	r.Run.Started = ""
 	r.Notes = append(r.Notes, "de-identified: patient names and IDs replaced with hashes, dates left out")
+}
+
+// longestFirst orders old/new pairs by decreasing length of the old value.
+func longestFirst(pairs []string) []string {
+	type pair struct{ old, new string }
+	var ps []pair
+	for i := 0; i+1 < len(pairs); i += 2 {
+		ps = append(ps, pair{pairs[i], pairs[i+1]})
+	}
+	sort.SliceStable(ps, func(i, j int) bool { return len(ps[i].old) > len(ps[j].old) })
+	out := make([]string, 0, len(pairs))
+	for _, p := range ps {
+		out = append(out, p.old, p.new)
+	}
+	return out
 }
 
 func deidentifyIDs(ids dicomio.Identifiers) dicomio.Identifiers {

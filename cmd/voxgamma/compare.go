@@ -169,7 +169,7 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 	}
 	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated,
 		Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch}
-	out, err := compareInputs(ctx, g, in, s)
+	out, err := compareInputs(ctx, g, in, s, outs, f.force)
 	if err != nil {
 		return nil, err
 	}
@@ -184,7 +184,7 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 
 // compareInputs runs one comparison with a progress bar on a terminal and
 // prints its summary.
-func compareInputs(ctx context.Context, g *globals, in analysis.Inputs, s analysis.Settings) (*analysis.Outcome, error) {
+func compareInputs(ctx context.Context, g *globals, in analysis.Inputs, s analysis.Settings, outs job.Outputs, force bool) (*analysis.Outcome, error) {
 	if ctx == nil {
 		ctx = context.Background()
 	}
@@ -193,7 +193,7 @@ func compareInputs(ctx context.Context, g *globals, in analysis.Inputs, s analys
 	g.log.Debug("loading", "reference", in.Reference, "points", in.ReferencePoints, "evaluated", in.Evaluated, "structures", in.Structures)
 	bar := newProgress(g.stderr, g.quiet, "gamma")
 	s.Progress = bar.update
-	out, err := job.Compare(ctx, in, s)
+	out, err := job.CompareFor(ctx, in, s, outs, force)
 	bar.done()
 	if err != nil {
 		return nil, err

@@ -55,7 +55,7 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 			if err := out.Check([]string{files.Reference, files.Evaluated, files.Structures}, true); err != nil {
 				return err
 			}
-			o, err := compareInputs(cmd.Context(), g, in, s)
+			o, err := compareInputs(cmd.Context(), g, in, s, out, true)
 			if err != nil {
 				return err
 			}
