@@ -1,0 +1,90 @@
+package job
+
+import (
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"voxgamma/protocol"
+	"voxgamma/result"
+)
+
+func TestOutputsCheck(t *testing.T) {
+	dir := t.TempDir()
+	in := filepath.Join(dir, "ref.dcm")
+	if err := os.WriteFile(in, []byte("x"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	existing := filepath.Join(dir, "old.json")
+	if err := os.WriteFile(existing, []byte("{}"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	cases := []struct {
+		o     Outputs
+		force bool
+		want  string // "" = accepted
+	}{
+		{Outputs{JSON: filepath.Join(dir, "r.json")}, false, ""},
+		{Outputs{JSON: in}, true, "is an input file"},
+		{Outputs{JSON: filepath.Join(dir, ".", "ref.dcm")}, true, "is an input file"},
+		{Outputs{JSON: existing}, false, "exists"},
+		{Outputs{JSON: existing}, true, ""},
+		{Outputs{JSON: filepath.Join(dir, "a"), CSV: filepath.Join(dir, "a")}, false, "named twice"},
+		{Outputs{GammaMap: filepath.Join(dir, "g.png")}, false, ".dcm"},
+		{Outputs{DifferenceMap: filepath.Join(dir, "d.MHA")}, false, ""},
+		{Outputs{Report: filepath.Join(dir, "missing", "r.html")}, false, "does not exist"},
+		{Outputs{Report: dir}, true, "is a directory"},
+	}
+	for i, c := range cases {
+		err := c.o.Check([]string{in}, c.force)
+		switch {
+		case c.want == "" && err != nil:
+			t.Errorf("case %d: %v", i, err)
+		case c.want != "" && (err == nil || !strings.Contains(err.Error(), c.want)):
+			t.Errorf("case %d: error %v, want one containing %q", i, err, c.want)
+		}
+	}
+	entries, _ := os.ReadDir(dir)
+	if len(entries) != 2 {
+		t.Fatalf("Check left files behind: %d entries", len(entries))
+	}
+}
+
+func TestDeidentifyResult(t *testing.T) {
+	r := &result.Result{
+		Inputs:   []result.Input{{PatientName: "DOE^JANE", PatientID: "123"}, {PatientName: "DOE^JANE", PatientID: "124"}},
+		Warnings: []string{`patient IDs differ: reference "123", evaluated "124" (DOE^JANE)`},
+		Run:      result.Run{Started: "2026-12-01T10:00:00Z"},
+	}
+	DeidentifyResult(r)
+	all := strings.Join(r.Warnings, " ") + r.Inputs[0].PatientName + r.Inputs[0].PatientID + r.Inputs[1].PatientID + r.Run.Started
+	for _, leak := range []string{"DOE", "JANE", "123", "124", "2026"} {
+		if strings.Contains(all, leak) {
+			t.Fatalf("de-identified result still holds %q: %s", leak, all)
+		}
+	}
+	if r.Inputs[0].PatientID == r.Inputs[1].PatientID || r.Inputs[0].PatientName != r.Inputs[1].PatientName {
+		t.Fatal("pseudonyms must be stable per value and distinct for distinct values")
+	}
+}
+
+func TestSettingsOverrides(t *testing.T) {
+	p, _ := protocol.Preset("tg218")
+	local := true
+	thr, nd := 5.0, 2.0
+	s, err := Settings(p, Overrides{Criteria: "2%/1mm", Local: &local, Threshold: &thr, NormDose: &nd})
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := s.Criteria
+	if c.DosePercent != 2 || c.DTA != 1 || c.Normalisation.String() != "local" || c.ThresholdPercent != 5 || c.NormDose != 2 || s.NormDoseSource != "user" {
+		t.Fatalf("criteria %+v source %s", c, s.NormDoseSource)
+	}
+	bad := -1.0
+	for _, ov := range []Overrides{{Criteria: "3/2"}, {Threshold: &bad}, {NormDose: &bad}, {Search: &bad}, {KindRules: []string{"PTV*=tumour"}}, {Isodose: []float64{120}}, {Workers: -2}} {
+		if _, err := Settings(p, ov); err == nil {
+			t.Errorf("overrides %+v accepted", ov)
+		}
+	}
+}
