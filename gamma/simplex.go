@@ -65,26 +65,36 @@ func plValue(c *[8]float64, t [3]float64) float64 {
 // Otherwise the minimum lies on the tetrahedron's boundary, found exactly by
 // tetraDist2's faces. Tetrahedra whose bound cannot beat best2 are skipped.
 func cellMinPL(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) float64 {
-	// The corners as points of the renormalised space, relative to the
-	// reference point (q, w·dr).
-	var pts [8][4]float64
-	for m := 0; m < 8; m++ {
-		for a := 0; a < 3; a++ {
-			x := lo[a] - q[a]
-			if m&(1<<a) != 0 {
-				x += h[a]
-			}
-			pts[m][a] = x
-		}
-		pts[m][3] = w * (c[m] - dr)
+	if h[0] == 0 || h[1] == 0 || h[2] == 0 {
+		return cellMinFlat(c, lo, h, q, dr, w, ds2, best2)
 	}
-	flat := h[0] == 0 || h[1] == 0 || h[2] == 0
+	// Weighted dose differences from dr at the corners, and q's position
+	// relative to the cell's lower corner, in cell fractions.
+	var d [8]float64
+	for m := range d {
+		d[m] = w * (c[m] - dr)
+	}
+	var u, inv [3]float64
+	for a := 0; a < 3; a++ {
+		inv[a] = 1 / h[a]
+		u[a] = (q[a] - lo[a]) * inv[a]
+	}
+	var pts [8][4]float64 // built on first need
+	built := false
 	for ti := range kuhn {
 		tet := &kuhn[ti]
-		v0, v1, v2, v3 := &pts[tet[0]], &pts[tet[1]], &pts[tet[2]], &pts[tet[3]]
+		d0, d1, d2, d3 := d[tet[0]], d[tet[1]], d[tet[2]], d[tet[3]]
 		// Lower bound: the box distance and the gap between dr and the
 		// tetrahedron's dose range.
-		lo4, hi4 := min(v0[3], v1[3], v2[3], v3[3]), max(v0[3], v1[3], v2[3], v3[3])
+		lo4, hi4 := d0, d0
+		for _, v := range [3]float64{d1, d2, d3} {
+			if v < lo4 {
+				lo4 = v
+			}
+			if v > hi4 {
+				hi4 = v
+			}
+		}
 		gap := 0.0
 		if lo4 > 0 {
 			gap = lo4
@@ -94,33 +104,28 @@ func cellMinPL(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) fl
 		if ds2+gap*gap >= best2 {
 			continue
 		}
-		if flat {
-			best2 = tetraDist2(v0, v1, v2, v3, ds2, best2)
-			continue
-		}
 		// The weighted dose gradient G (per DTA unit) along the Kuhn path
 		// v0 → v1 → v2 → v3, one axis per step.
 		perm := &kuhnPerm[ti]
+		a0, a1, a2 := perm[0], perm[1], perm[2]
 		var g [3]float64
-		g[perm[0]] = (v1[3] - v0[3]) / h[perm[0]]
-		g[perm[1]] = (v2[3] - v1[3]) / h[perm[1]]
-		g[perm[2]] = (v3[3] - v2[3]) / h[perm[2]]
-		// e: the weighted dose difference of the linear extension at q
-		// (relative position −v0 from v0).
-		e := v0[3] - g[0]*v0[0] - g[1]*v0[1] - g[2]*v0[2]
+		g[a0] = (d1 - d0) * inv[a0]
+		g[a1] = (d2 - d1) * inv[a1]
+		g[a2] = (d3 - d2) * inv[a2]
+		// e: the weighted dose difference of the linear extension at q.
+		e := d0 + g[0]*u[0]*h[0] + g[1]*u[1]*h[1] + g[2]*u[2]*h[2]
 		den := 1 + g[0]*g[0] + g[1]*g[1] + g[2]*g[2]
 		plane := e * e / den
 		if plane >= best2 {
 			continue
 		}
-		// The foot of the perpendicular, in cell fractions.
+		// The foot of the perpendicular, q − (e/den)·G, in cell fractions,
+		// and its barycentric coordinates in the tetrahedron.
 		k := e / den
-		var t [3]float64
-		for a := 0; a < 3; a++ {
-			t[a] = (-v0[a] - k*g[a]) / h[a] // (q − k·G − lo)/h
-		}
-		// Barycentric coordinates of the foot in the tetrahedron.
-		lam := [4]float64{1 - t[perm[0]], t[perm[0]] - t[perm[1]], t[perm[1]] - t[perm[2]], t[perm[2]]}
+		t0 := u[a0] - k*g[a0]*inv[a0]
+		t1 := u[a1] - k*g[a1]*inv[a1]
+		t2 := u[a2] - k*g[a2]*inv[a2]
+		lam := [4]float64{1 - t0, t0 - t1, t1 - t2, t2}
 		if lam[0] >= 0 && lam[1] >= 0 && lam[2] >= 0 && lam[3] >= 0 {
 			best2 = plane
 			continue
@@ -129,23 +134,28 @@ func cellMinPL(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) fl
 		// plus the squared distance from the foot to the tetrahedron, which
 		// is at least the spatial distance from the foot to the cell box.
 		out := 0.0
-		for a := 0; a < 3; a++ {
-			if t[a] < 0 {
-				out += t[a] * t[a] * h[a] * h[a]
-			} else if t[a] > 1 {
-				out += (t[a] - 1) * (t[a] - 1) * h[a] * h[a]
+		for i, ti := range [3]float64{t0, t1, t2} {
+			a := perm[i]
+			if ti < 0 {
+				out += ti * ti * h[a] * h[a]
+			} else if ti > 1 {
+				out += (ti - 1) * (ti - 1) * h[a] * h[a]
 			}
 		}
 		if plane+out >= best2 {
 			continue
 		}
 		// The nearest point lies on a face that the foot sees: one opposite
-		// a vertex whose barycentric coordinate is negative (for the
-		// Euclidean projection onto a simplex within its hyperplane).
-		vs := [4]*vec4{v0, v1, v2, v3}
+		// a vertex whose barycentric coordinate is negative (the Euclidean
+		// projection onto a simplex within its hyperplane).
+		if !built {
+			cornerPoints(&pts, &d, lo, h, q)
+			built = true
+		}
+		vs := [4]*vec4{&pts[tet[0]], &pts[tet[1]], &pts[tet[2]], &pts[tet[3]]}
 		for i := 0; i < 4; i++ {
 			if lam[i] < 0 {
-				f := [3]*vec4{}
+				var f [3]*vec4
 				n := 0
 				for j := 0; j < 4; j++ {
 					if j != i {
@@ -156,6 +166,39 @@ func cellMinPL(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) fl
 				best2 = triDist2(f[0], f[1], f[2], ds2, best2)
 			}
 		}
+	}
+	return best2
+}
+
+// cornerPoints sets pts to the cell's corners as points of the renormalised
+// space relative to the reference point (q, w·dr): spatial offsets from q
+// and the weighted dose differences d.
+func cornerPoints(pts *[8][4]float64, d *[8]float64, lo, h, q [3]float64) {
+	for m := 0; m < 8; m++ {
+		for a := 0; a < 3; a++ {
+			x := lo[a] - q[a]
+			if m&(1<<a) != 0 {
+				x += h[a]
+			}
+			pts[m][a] = x
+		}
+		pts[m][3] = d[m]
+	}
+}
+
+// cellMinFlat is cellMinPL for a cell with no extent along some axis (a
+// grid with a single sample along that axis): its tetrahedra are flat, and
+// each is solved through its faces by tetraDist2.
+func cellMinFlat(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) float64 {
+	var d [8]float64
+	for m := range d {
+		d[m] = w * (c[m] - dr)
+	}
+	var pts [8][4]float64
+	cornerPoints(&pts, &d, lo, h, q)
+	for ti := range kuhn {
+		tet := &kuhn[ti]
+		best2 = tetraDist2(&pts[tet[0]], &pts[tet[1]], &pts[tet[2]], &pts[tet[3]], ds2, best2)
 	}
 	return best2
 }
