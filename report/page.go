@@ -1,6 +1,7 @@
 package report
 
 import (
+	"bytes"
 	"encoding/json"
 	"fmt"
 	"html/template"
@@ -449,10 +450,16 @@ func protocolText(p any) (name, full string) {
 	if s, ok := p.(string); ok {
 		return s, ""
 	}
-	b, err := json.MarshalIndent(p, "", "  ")
-	if err != nil {
+	// No HTML escaping here: the page's template escapes the text, and
+	// "\u003e=" would hide a rule's ">=" from the reader.
+	var buf bytes.Buffer
+	enc := json.NewEncoder(&buf)
+	enc.SetEscapeHTML(false)
+	enc.SetIndent("", "  ")
+	if err := enc.Encode(p); err != nil {
 		return "(protocol cannot be shown: " + err.Error() + ")", ""
 	}
+	b := bytes.TrimRight(buf.Bytes(), "\n")
 	var fields map[string]any
 	if json.Unmarshal(b, &fields) == nil {
 		keys := make([]string, 0, len(fields))
