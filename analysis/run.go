@@ -152,6 +152,17 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		Notes:    append(append([]string{}, p.Loaded.Notes...), p.notes...),
 		ROIs:     []result.ROI{}, Clusters: []result.Cluster{}, Rules: []result.RuleOutcome{},
 	}
+	// A search distance below the evaluated grid's spacing cannot reach a
+	// neighbouring voxel from a reference point at a voxel: refuse it.
+	coarsest := 0.0
+	for a := 0; a < 3; a++ {
+		if sp, _ := p.Evaluated.Spacing(a); sp > coarsest {
+			coarsest = sp
+		}
+	}
+	if r := s.Criteria.SearchRadius(); r < coarsest {
+		return nil, badInput("search distance %g mm is smaller than the evaluated grid's spacing %g mm: the search could not reach a neighbouring voxel (use --search %g or more)", r, coarsest, coarsest)
+	}
 	opt := gamma.Options{Workers: s.Workers, Progress: s.Progress, Method: s.Method}
 	t0 := time.Now()
 	var gres *gamma.Result
