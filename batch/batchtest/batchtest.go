@@ -1,0 +1,127 @@
+// Package batchtest writes small invented radiotherapy cases (an RT Dose
+// reference, an RT Dose evaluated dose and an RT Structure Set) for the
+// tests of the batch and watch commands. Everything in them is made up: a
+// Gaussian dose cloud on a 2 mm grid, a spherical target and a spherical
+// organ at risk, a phantom patient (dicomio.DemoPatientName). No patient
+// data is involved.
+package batchtest
+
+import (
+	"fmt"
+	"os"
+	"path/filepath"
+
+	"voxgamma/dicomio"
+	"voxgamma/phantom"
+	"voxgamma/structure"
+	"voxgamma/volume"
+)
+
+// Spec describes one invented case. The zero value is a small case whose
+// evaluated dose equals the reference: it passes any protocol.
+type Spec struct {
+	// Dims of both grids; zero means 24×24×16 (2 mm voxels).
+	Dims [3]int
+	// Scale multiplies the evaluated dose; zero means 1. The reference is
+	// a Gaussian of peak 2 Gy, so with global 3 % criteria a scale of 0.85
+	// fails near the peak (a uniform scale k in a flat region gives
+	// Γ = |k−1|·D/ΔD, domain NOTES "closed form").
+	Scale float64
+	// Peak is the reference maximum in Gy; zero means 2.
+	Peak float64
+	// EvaluatedFrame puts the evaluated dose in a new frame of reference
+	// of its own (a broken case) when true.
+	EvaluatedFrame bool
+	// NoStructures leaves the structure set out.
+	NoStructures bool
+	// Reference, Evaluated and Structures are the file names written in
+	// the case folder; empty means reference.dcm, evaluated.dcm and
+	// structures.dcm.
+	Reference, Evaluated, Structures string
+	// PatientID is the phantom's ID; empty means dicomio.DemoPatientID.
+	PatientID string
+}
+
+// Files are the paths of a written case ("" for a file left out).
+type Files struct {
+	Dir, Reference, Evaluated, Structures string
+	// FrameOfReferenceUID of the reference dose and the structures.
+	FrameOfReferenceUID string
+}
+
+// Write writes the case described by spec into dir (created if needed).
+func Write(dir string, spec Spec) (*Files, error) {
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return nil, fmt.Errorf("batchtest: %w", err)
+	}
+	dims := spec.Dims
+	if dims == [3]int{} {
+		dims = [3]int{24, 24, 16}
+	}
+	scale, peak := spec.Scale, spec.Peak
+	if scale == 0 {
+		scale = 1
+	}
+	if peak == 0 {
+		peak = 2
+	}
+	name := func(n, def string) string {
+		if n == "" {
+			n = def
+		}
+		return filepath.Join(dir, n)
+	}
+	f := &Files{Dir: dir, Reference: name(spec.Reference, "reference.dcm"), Evaluated: name(spec.Evaluated, "evaluated.dcm")}
+	ids := dicomio.PhantomIdentifiers(dicomio.DemoPatientName, spec.PatientID)
+	ids.StudyDate, ids.StudyTime = "20260101", "090000"
+	f.FrameOfReferenceUID = ids.FrameOfReferenceUID
+
+	origin := [3]float64{-float64(dims[0]-1) / 2 * 2, -float64(dims[1]-1) / 2 * 2, -float64(dims[2]-1) / 2 * 2}
+	ref, err := volume.NewUniform(dims, origin, [3]float64{2, 2, 2}, volume.Identity)
+	if err != nil {
+		return nil, fmt.Errorf("batchtest: %w", err)
+	}
+	cloud := phantom.Gaussian([3]float64{0, 0, 0}, 9, peak)
+	if err := phantom.Fill(ref, cloud); err != nil {
+		return nil, fmt.Errorf("batchtest: %w", err)
+	}
+	eval := ref.EmptyLike()
+	for i, v := range ref.Data {
+		eval.Data[i] = v * float32(scale)
+	}
+	if _, err := dicomio.WriteDose(f.Reference, ref, ids, dicomio.DoseOptions("invented planning dose, Gy")); err != nil {
+		return nil, fmt.Errorf("batchtest: %w", err)
+	}
+	evalIDs := ids
+	if spec.EvaluatedFrame {
+		evalIDs.FrameOfReferenceUID = dicomio.NewUID()
+	}
+	opt := dicomio.DoseOptions("invented recalculation, Gy")
+	opt.SeriesNumber = 2
+	if _, err := dicomio.WriteDose(f.Evaluated, eval, evalIDs, opt); err != nil {
+		return nil, fmt.Errorf("batchtest: %w", err)
+	}
+	if spec.NoStructures {
+		return f, nil
+	}
+	f.Structures = name(spec.Structures, "structures.dcm")
+	set := &structure.Set{Label: "INVENTED", FrameOfReferenceUID: ids.FrameOfReferenceUID}
+	for i, it := range []struct {
+		name, kind string
+		shape      phantom.Shape
+	}{
+		{"PTV_A", "PTV", phantom.Sphere{Centre: [3]float64{0, 0, 0}, Radius: 8}},
+		{"Organ_B", "ORGAN", phantom.Sphere{Centre: [3]float64{14, 0, 0}, Radius: 5}},
+	} {
+		r, err := phantom.NewROI(it.shape, phantom.ROISpec{Name: it.name, Number: i + 1, InterpretedType: it.kind,
+			Color: [3]uint8{200, uint8(60 * i), 60}, FrameOfReferenceUID: ids.FrameOfReferenceUID, PlaneSpacing: 2, PointsPerContour: 32})
+		if err != nil {
+			return nil, fmt.Errorf("batchtest: %w", err)
+		}
+		set.ROIs = append(set.ROIs, r)
+	}
+	if _, err := dicomio.WriteStructureSet(f.Structures, set, ids); err != nil {
+		return nil, fmt.Errorf("batchtest: %w", err)
+	}
+	return f, nil
+}

@@ -1,0 +1,235 @@
+package batch
+
+import (
+	"bufio"
+	"bytes"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+
+	"voxgamma/dicomio"
+)
+
+// Memory estimate coefficients (bytes). See [EstimateBytes].
+const (
+	// BytesPerReferenceVoxel: the reference grid (4, float32), Γ per point
+	// (4) and its status (1), the Γ map grid (4), the evaluated dose
+	// resampled onto the reference grid (4), the difference map (4), the
+	// sorted Γ values for the statistics (8, float64), the cluster labels
+	// (4) and a margin of 24 for the ROI masks (about one body-sized ROI
+	// with its centre index, partial-volume index and fractions).
+	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 8 + 4 + 24
+	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), the k-d tree
+	// selection mask (1) and a margin of 8 for the k-d tree over the
+	// evaluated nodes near points that need it.
+	BytesPerEvaluatedVoxel = 4 + 1 + 8
+	// FixedBytesPerCase covers decoding buffers, the result document and
+	// the review page's figures.
+	FixedBytesPerCase = 16 << 20
+	// DefaultBudgetFraction is the share of the available memory a batch
+	// uses by default.
+	DefaultBudgetFraction = 0.70
+	// FallbackBudget is the budget used when the available memory cannot
+	// be read (no /proc/meminfo).
+	FallbackBudget = 2 << 30
+)
+
+// EstimateBytes is the estimated peak memory of one comparison whose
+// reference grid has nr voxels and whose evaluated grid has ne voxels:
+//
+//	BytesPerReferenceVoxel·nr + BytesPerEvaluatedVoxel·ne + FixedBytesPerCase
+//	= 57·nr + 13·ne + 16 MiB
+//
+// It is an admission estimate, deliberately on the high side: measured live
+// heaps of the comparison are about 28 bytes per reference voxel with small
+// ROIs. The Go runtime may take more than the live heap between
+// collections; the batch command sets the runtime's soft memory limit to the
+// budget so that it collects before exceeding it.
+func EstimateBytes(nr, ne int64) int64 {
+	return BytesPerReferenceVoxel*nr + BytesPerEvaluatedVoxel*ne + FixedBytesPerCase
+}
+
+// doseVoxels returns the voxel count of the RT Dose at path, read from its
+// header only (Rows × Columns × NumberOfFrames). For a folder it is the
+// largest dose in it (the one compared is chosen later).
+func doseVoxels(path string) (int64, error) {
+	st, err := os.Stat(path)
+	if err != nil {
+		return 0, err
+	}
+	if !st.IsDir() {
+		info, err := dicomio.ReadDoseInfo(path)
+		if err != nil {
+			return 0, err
+		}
+		return int64(info.Rows) * int64(info.Columns) * int64(max(info.NumberOfFrames, 1)), nil
+	}
+	entries, err := os.ReadDir(path)
+	if err != nil {
+		return 0, err
+	}
+	var best int64
+	found := false
+	for _, e := range entries {
+		if e.IsDir() {
+			continue
+		}
+		info, err := dicomio.ReadDoseInfo(filepath.Join(path, e.Name()))
+		if err != nil {
+			continue
+		}
+		found = true
+		best = max(best, int64(info.Rows)*int64(info.Columns)*int64(max(info.NumberOfFrames, 1)))
+	}
+	if !found {
+		return 0, fmt.Errorf("%s: no readable RT Dose file in the folder", path)
+	}
+	return best, nil
+}
+
+// EstimateCase estimates the peak memory of case c from its dose headers
+// (see [EstimateBytes]); errors name the file.
+func EstimateCase(c Case) (int64, error) {
+	nr, err := doseVoxels(c.Reference)
+	if err != nil {
+		return 0, fmt.Errorf("case %s: estimating memory from the reference %s: %w", c.ID, c.Reference, err)
+	}
+	ne, err := doseVoxels(c.Evaluated)
+	if err != nil {
+		return 0, fmt.Errorf("case %s: estimating memory from the evaluated dose %s: %w", c.ID, c.Evaluated, err)
+	}
+	return EstimateBytes(nr, ne), nil
+}
+
+// ParseBytes parses a memory size: a number with an optional unit B, KB,
+// MB, GB, TB (powers of 1000) or KiB, MiB, GiB, TiB (powers of 1024), K, M,
+// G, T (powers of 1024, as schedulers write them), case-insensitive,
+// e.g. "8GiB", "512MiB", "4G", "1500000000".
+func ParseBytes(s string) (int64, error) {
+	t := strings.TrimSpace(s)
+	i := len(t)
+	for i > 0 && (t[i-1] < '0' || t[i-1] > '9') && t[i-1] != '.' {
+		i--
+	}
+	num, unit := strings.TrimSpace(t[:i]), strings.ToLower(strings.TrimSpace(t[i:]))
+	mult := map[string]float64{"": 1, "b": 1,
+		"kb": 1e3, "mb": 1e6, "gb": 1e9, "tb": 1e12,
+		"kib": 1 << 10, "mib": 1 << 20, "gib": 1 << 30, "tib": 1 << 40,
+		"k": 1 << 10, "m": 1 << 20, "g": 1 << 30, "t": 1 << 40}[unit]
+	v, err := strconv.ParseFloat(num, 64)
+	if err != nil || mult == 0 || !(v > 0) || math.IsInf(v*mult, 0) || v*mult > math.MaxInt64/2 {
+		return 0, fmt.Errorf("memory size %q: want a positive number with a unit such as 512MiB, 8GiB or 4G", s)
+	}
+	return int64(v * mult), nil
+}
+
+// FormatBytes writes n in binary units with three significant digits
+// ("1.50 GiB").
+func FormatBytes(n int64) string {
+	v := float64(n)
+	for _, u := range []string{"B", "KiB", "MiB", "GiB", "TiB"} {
+		if v < 1024 || u == "TiB" {
+			if u == "B" {
+				return fmt.Sprintf("%d B", n)
+			}
+			return fmt.Sprintf("%.3g %s", v, u)
+		}
+		v /= 1024
+	}
+	return fmt.Sprintf("%d B", n)
+}
+
+// DefaultBudget returns the default memory budget of a batch and a phrase
+// saying where it came from: DefaultBudgetFraction of the memory available,
+// which is MemAvailable from /proc/meminfo, lowered to the room left under
+// the process's cgroup memory limit (cgroup v2 memory.max less
+// memory.current, or v1 memory.limit_in_bytes less memory.usage_in_bytes)
+// when there is one, as under Slurm or Kubernetes. Without /proc/meminfo it
+// is FallbackBudget.
+func DefaultBudget() (int64, string) {
+	avail, ok := memAvailable("/proc/meminfo")
+	if !ok {
+		return FallbackBudget, fmt.Sprintf("%s (fallback: /proc/meminfo not readable)", FormatBytes(FallbackBudget))
+	}
+	source := "MemAvailable"
+	if room, ok := cgroupRoom(); ok && room < avail {
+		avail, source = room, "the cgroup memory limit"
+	}
+	b := int64(float64(avail) * DefaultBudgetFraction)
+	return b, fmt.Sprintf("%s (%.0f %% of %s of %s)", FormatBytes(b), DefaultBudgetFraction*100, FormatBytes(avail), source)
+}
+
+func memAvailable(path string) (int64, bool) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return 0, false
+	}
+	sc := bufio.NewScanner(bytes.NewReader(data))
+	for sc.Scan() {
+		f := strings.Fields(sc.Text())
+		if len(f) >= 2 && f[0] == "MemAvailable:" {
+			kb, err := strconv.ParseInt(f[1], 10, 64)
+			if err != nil || kb <= 0 {
+				return 0, false
+			}
+			return kb << 10, true
+		}
+	}
+	return 0, false
+}
+
+func readInt(path string) (int64, bool) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return 0, false
+	}
+	v, err := strconv.ParseInt(strings.TrimSpace(string(data)), 10, 64)
+	return v, err == nil
+}
+
+// cgroupRoom returns the least memory left under a cgroup limit of this
+// process's cgroup or any of its ancestors, when one sets a limit: the
+// cgroup v2 memory.max less memory.current, or for cgroup v1
+// memory.limit_in_bytes less memory.usage_in_bytes. The cgroup's path is
+// read from /proc/self/cgroup (a job's cgroup under Slurm, a container's
+// under Kubernetes).
+func cgroupRoom() (int64, bool) {
+	data, err := os.ReadFile("/proc/self/cgroup")
+	if err != nil {
+		return 0, false
+	}
+	best, found := int64(math.MaxInt64), false
+	try := func(root, rel, limitName, usageName string) {
+		dir := filepath.Join(root, filepath.FromSlash(rel))
+		for {
+			limit, ok := readInt(filepath.Join(dir, limitName)) // "max" does not parse: no limit
+			if ok && limit > 0 && limit < 1<<60 {
+				used, _ := readInt(filepath.Join(dir, usageName))
+				room := limit - min(max(used, 0), limit)
+				if room < best {
+					best, found = room, true
+				}
+			}
+			if dir == root || !strings.HasPrefix(dir, root) {
+				return
+			}
+			dir = filepath.Dir(dir)
+		}
+	}
+	for _, line := range strings.Split(string(data), "\n") {
+		parts := strings.SplitN(line, ":", 3)
+		if len(parts) != 3 {
+			continue
+		}
+		switch {
+		case parts[0] == "0" && parts[1] == "":
+			try("/sys/fs/cgroup", parts[2], "memory.max", "memory.current")
+		case strings.Contains(","+parts[1]+",", ",memory,"):
+			try("/sys/fs/cgroup/memory", parts[2], "memory.limit_in_bytes", "memory.usage_in_bytes")
+		}
+	}
+	return best, found
+}

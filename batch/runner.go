@@ -1,0 +1,547 @@
+package batch
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"runtime"
+	"runtime/debug"
+	"sort"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"golang.org/x/sync/semaphore"
+
+	"voxgamma/analysis"
+	"voxgamma/job"
+	"voxgamma/result"
+)
+
+// DefaultProtocol is the protocol of cases that name none.
+const DefaultProtocol = "tg218"
+
+// Output file names in a case folder.
+const (
+	// ResultJSON is the result document (always written).
+	ResultJSON = "result.json"
+	// ResultCSV is the per-ROI table (always written).
+	ResultCSV = "result.csv"
+	// GammaMapFile is the Γ map as RT Dose (with Outputs.GammaMap).
+	GammaMapFile = "gamma.dcm"
+	// DifferenceFile is the dose difference map as RT Dose (with
+	// Outputs.DifferenceMap).
+	DifferenceFile = "difference.dcm"
+	// ReportFile is the review page (with Outputs.Report).
+	ReportFile = "report.html"
+)
+
+// Outputs are the optional outputs of every case; result.json and
+// result.csv are always written.
+type Outputs struct {
+	// GammaMap writes gamma.dcm, DifferenceMap difference.dcm (RT Dose),
+	// Report report.html.
+	GammaMap, DifferenceMap, Report bool
+	// Deidentify replaces patient names and IDs with hashes in every
+	// output (see job.Write).
+	Deidentify bool
+}
+
+// Options configure a batch run.
+type Options struct {
+	// Out is the batch's output folder (created if needed).
+	Out string
+	// DefaultProtocol is used by cases that name none; empty means
+	// DefaultProtocol ("tg218").
+	DefaultProtocol string
+	// Overrides are the settings given for every case besides its
+	// protocol (criteria, ROI rules, ...). Overrides.Workers is the gamma
+	// workers per case; 0 means the cores divided among the jobs (at
+	// least 1).
+	Overrides job.Overrides
+	// Outputs are the optional outputs of every case.
+	Outputs Outputs
+	// AllowFrameMismatch compares doses and structures of different
+	// frames of reference (see analysis.Inputs).
+	AllowFrameMismatch bool
+	// MaxMemory is the memory budget in bytes; 0 means [DefaultBudget].
+	// MemorySource says where it came from, for the log ("--max-memory").
+	MaxMemory    int64
+	MemorySource string
+	// Jobs is the number of cases run at once; 0 means the core count.
+	// The memory budget may hold fewer at once.
+	Jobs int
+	// Shard selects the cases of this process (see [Shard]).
+	Shard Shard
+	// Rerun computes every case again, ignoring the resume rule.
+	Rerun bool
+	// Log receives one line per case start and finish (nil: none).
+	Log *slog.Logger
+	// Progress is called after each case with the cases done and the
+	// total (nil: none).
+	Progress func(done, total int)
+}
+
+// Report is the outcome of [Run].
+type Report struct {
+	// Summary covers the cases of this run (the shard's, or all).
+	Summary *Summary
+	// Computed counts the cases computed, Skipped those found up to date,
+	// NotRun those not finished because the run was interrupted.
+	Computed, Skipped, NotRun int
+	// Budget is the memory budget used, BudgetSource where it came from.
+	Budget       int64
+	BudgetSource string
+	// Jobs and Workers are the cases at once and the gamma workers each.
+	Jobs, Workers int
+	// SummaryFiles are the summary files written.
+	SummaryFiles []string
+	// Cleaned lists stale temporary folders removed or restored at start.
+	Cleaned []string
+}
+
+// caseWork is one case resolved and ready to compute.
+type caseWork struct {
+	c            Case
+	protocolName string
+	settings     analysis.Settings
+	settingsHash string
+	outs         Outputs
+	allowFM      bool
+	watchKey     string
+}
+
+// settingsFor resolves a protocol and the overrides into settings and
+// their hash.
+func settingsFor(name string, ov job.Overrides, outs Outputs, allowFM bool) (analysis.Settings, string, error) {
+	p, err := job.LoadProtocol(name)
+	if err != nil {
+		return analysis.Settings{}, "", err
+	}
+	s, err := job.Settings(p, ov)
+	if err != nil {
+		return analysis.Settings{}, "", err
+	}
+	h, err := SettingsHash(p, s, outs, allowFM)
+	if err != nil {
+		return analysis.Settings{}, "", err
+	}
+	return s, h, nil
+}
+
+// Run runs the cases of the shard opt.Shard of a manifest: each case is
+// skipped when up to date (see the package documentation's resume rule),
+// else computed into its own folder Out/cases/<id>, as many at once as the
+// jobs and the memory budget allow. A failing case never stops the others.
+// At the end it writes the summary from the case folders: Out/summary.csv
+// and Out/summary.json, or Out/summary-shard-i-of-n.json for a shard.
+//
+// It returns an error, before any case runs, for options that cannot work
+// (an output folder that cannot be made, bad overrides, an unknown default
+// protocol), and the context's error, with the report so far, when ctx is
+// cancelled: cases under way are then abandoned without leaving a folder.
+func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
+	if opt.Out == "" {
+		return nil, errors.New("batch: no output folder given")
+	}
+	shard := opt.Shard
+	if shard.Count == 0 {
+		shard.Count = 1
+	}
+	if err := shard.check(); err != nil {
+		return nil, err
+	}
+	defProto := opt.DefaultProtocol
+	if defProto == "" {
+		defProto = DefaultProtocol
+	}
+	if _, _, err := settingsFor(defProto, opt.Overrides, opt.Outputs, opt.AllowFrameMismatch); err != nil {
+		return nil, fmt.Errorf("batch: %w", err)
+	}
+	log := opt.Log
+	if log == nil {
+		log = slog.New(slog.NewTextHandler(io.Discard, nil))
+	}
+	rep := &Report{}
+	rep.Budget, rep.BudgetSource = opt.MaxMemory, opt.MemorySource
+	if rep.BudgetSource == "" {
+		rep.BudgetSource = "given"
+	}
+	if rep.Budget <= 0 {
+		rep.Budget, rep.BudgetSource = DefaultBudget()
+	}
+	seen := map[string]bool{}
+	for _, c := range cases {
+		if err := ValidID(c.ID); err != nil {
+			return nil, fmt.Errorf("batch: case %d: %w", c.Index+1, err)
+		}
+		if seen[strings.ToLower(c.ID)] {
+			return nil, fmt.Errorf("batch: case id %q given twice", c.ID)
+		}
+		seen[strings.ToLower(c.ID)] = true
+	}
+	mine := shard.Select(cases)
+	rep.Jobs = opt.Jobs
+	if rep.Jobs <= 0 {
+		rep.Jobs = runtime.NumCPU()
+	}
+	rep.Jobs = max(1, min(rep.Jobs, len(mine)))
+	rep.Workers = opt.Overrides.Workers
+	if rep.Workers <= 0 {
+		rep.Workers = max(1, runtime.NumCPU()/rep.Jobs)
+	}
+
+	casesDir := filepath.Join(opt.Out, CasesDir)
+	if err := os.MkdirAll(casesDir, 0o755); err != nil {
+		return nil, fmt.Errorf("batch: creating the output folder: %w", err)
+	}
+	owned := map[string]bool{}
+	for _, c := range mine {
+		owned[c.ID] = true
+	}
+	cleaned, err := cleanStale(casesDir, func(id string) bool { return owned[id] })
+	rep.Cleaned = cleaned
+	for _, l := range cleaned {
+		log.Info(l)
+	}
+	if err != nil {
+		return rep, fmt.Errorf("batch: %w", err)
+	}
+
+	// Resolve each protocol once.
+	type resolved struct {
+		s    analysis.Settings
+		hash string
+		err  error
+	}
+	protos := map[string]*resolved{}
+	ov := opt.Overrides
+	ov.Workers = rep.Workers
+	for _, c := range mine {
+		name := c.Protocol
+		if name == "" {
+			name = defProto
+		}
+		if _, ok := protos[name]; !ok {
+			r := &resolved{}
+			r.s, r.hash, r.err = settingsFor(name, ov, opt.Outputs, opt.AllowFrameMismatch)
+			protos[name] = r
+		}
+	}
+
+	log.Info("batch started", "cases", len(mine), "manifest_cases", len(cases), "shard", shard.String(),
+		"jobs", rep.Jobs, "workers_per_case", rep.Workers, "memory_budget", FormatBytes(rep.Budget), "budget_source", rep.BudgetSource)
+
+	mem := semaphore.NewWeighted(rep.Budget)
+	work := make(chan Case)
+	var done atomic.Int64
+	var computed, skipped, notRun atomic.Int64
+	var wg sync.WaitGroup
+	var reachedMu sync.Mutex
+	reached := map[string]bool{}
+	for range rep.Jobs {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for c := range work {
+				name := c.Protocol
+				if name == "" {
+					name = defProto
+				}
+				r := protos[name]
+				w := caseWork{c: c, protocolName: name, settings: r.s, settingsHash: r.hash, outs: opt.Outputs, allowFM: opt.AllowFrameMismatch}
+				outcome := runOne(ctx, casesDir, w, r.err, opt.Rerun, mem, rep.Budget, log)
+				switch outcome {
+				case outcomeComputed:
+					computed.Add(1)
+				case outcomeSkipped:
+					skipped.Add(1)
+				default:
+					notRun.Add(1)
+				}
+				if outcome != outcomeInterrupted {
+					reachedMu.Lock()
+					reached[c.ID] = true
+					reachedMu.Unlock()
+					if opt.Progress != nil {
+						opt.Progress(int(done.Add(1)), len(mine))
+					}
+				}
+			}
+		}()
+	}
+	fed := 0
+feed:
+	for _, c := range mine {
+		select {
+		case work <- c:
+			fed++
+		case <-ctx.Done():
+			break feed
+		}
+	}
+	close(work)
+	wg.Wait()
+	rep.Computed, rep.Skipped = int(computed.Load()), int(skipped.Load())
+	rep.NotRun = int(notRun.Load()) + len(mine) - fed
+
+	sum := BuildSummary([]string{opt.Out}, mine)
+	if rep.NotRun > 0 {
+		// A folder left by an earlier run may not match this run's
+		// settings: a case this run did not reach is "not run".
+		for i := range sum.Rows {
+			if !reached[sum.Rows[i].ID] {
+				sum.replace(i, notRunRow(sum.Rows[i].ID))
+			}
+		}
+	}
+	if shard.Sharded() {
+		sum.Shard = &shard
+		path := filepath.Join(opt.Out, shard.SummaryName())
+		if err := writeSummaryJSON(path, sum); err != nil {
+			return rep, err
+		}
+		rep.SummaryFiles = []string{path}
+	} else {
+		files, err := WriteSummary(opt.Out, sum)
+		if err != nil {
+			return rep, err
+		}
+		rep.SummaryFiles = files
+	}
+	rep.Summary = sum
+	if err := ctx.Err(); err != nil {
+		return rep, fmt.Errorf("batch interrupted: %d of %d cases not finished (run the same command again to resume): %w", rep.NotRun, len(mine), err)
+	}
+	return rep, nil
+}
+
+type outcome int
+
+const (
+	outcomeComputed outcome = iota
+	outcomeSkipped
+	outcomeInterrupted
+)
+
+// runOne runs one case of a batch: the resume check, the memory
+// estimate, waiting for budget, the comparison, the case folder.
+func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, rerun bool, mem *semaphore.Weighted, budget int64, log *slog.Logger) outcome {
+	c := w.c
+	if ctx.Err() != nil {
+		return outcomeInterrupted
+	}
+	final := filepath.Join(casesDir, c.ID)
+	prev, _ := ReadStatus(final)
+	fail := func(err error) outcome {
+		st := newStatus(w, nil, prev)
+		st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, caseMessage(c.ID, err)
+		if ierr := writeErrorCase(casesDir, st); ierr != nil {
+			log.Error("case folder not written", "id", c.ID, "error", ierr.Error())
+		}
+		log.Info("case finished", "id", c.ID, "verdict", st.Verdict, "seconds", 0.0, "error", st.Error)
+		return outcomeComputed
+	}
+	if protoErr != nil {
+		return fail(fmt.Errorf("protocol %s: %w", w.protocolName, protoErr))
+	}
+	inputs, err := HashInputs(c)
+	if err != nil {
+		return fail(err)
+	}
+	if !rerun && upToDate(prev, inputs, w.settingsHash, final) {
+		log.Info("case skipped (up to date)", "id", c.ID, "verdict", prev.Verdict)
+		return outcomeSkipped
+	}
+	need, err := EstimateCase(c)
+	if err != nil {
+		return fail(err)
+	}
+	if need > budget {
+		return fail(fmt.Errorf("needs about %s of memory (estimated from its dose grids), more than the whole memory budget of %s: give more with --max-memory, or run it on a larger machine", FormatBytes(need), FormatBytes(budget)))
+	}
+	if err := mem.Acquire(ctx, need); err != nil {
+		return outcomeInterrupted
+	}
+	defer mem.Release(need)
+	log.Info("case started", "id", c.ID, "memory_estimate", FormatBytes(need))
+	st, _, err := compute(ctx, casesDir, w, inputs, prev)
+	if err != nil {
+		if ctx.Err() != nil {
+			log.Info("case interrupted", "id", c.ID)
+			return outcomeInterrupted
+		}
+		log.Error("case folder not written", "id", c.ID, "error", err.Error())
+		return outcomeComputed
+	}
+	attrs := []any{"id", c.ID, "verdict", st.Verdict, "seconds", round3(st.Seconds)}
+	if st.Error != "" {
+		attrs = append(attrs, "error", st.Error)
+	}
+	log.Info("case finished", attrs...)
+	return outcomeComputed
+}
+
+// caseMessage is err in one line for a case's status and the summary,
+// which name the case already: without a leading "case <id>: ".
+func caseMessage(id string, err error) string {
+	return strings.TrimPrefix(oneLine(err.Error()), "case "+id+": ")
+}
+
+func round3(v float64) float64 { return float64(int64(v*1000+0.5)) / 1000 }
+
+func oneLine(s string) string {
+	return strings.Join(strings.Fields(strings.ReplaceAll(s, "\n", "; ")), " ")
+}
+
+// upToDate is the resume rule: the case folder holds a status of a case
+// that was evaluated (pass or fail) from the same inputs (paths and
+// SHA-256) with the same settings, and every output it lists is there.
+func upToDate(prev *Status, inputs []InputHash, settingsHash, dir string) bool {
+	if prev == nil || prev.Verdict == VerdictError || prev.SettingsSHA256 != settingsHash || !sameInputs(prev.Inputs, inputs) {
+		return false
+	}
+	for _, o := range prev.Outputs {
+		if _, err := os.Stat(filepath.Join(dir, o)); err != nil {
+			return false
+		}
+	}
+	return true
+}
+
+func newStatus(w caseWork, inputs []InputHash, prev *Status) *Status {
+	st := &Status{SchemaVersion: StatusSchemaVersion, ID: w.c.ID, Inputs: inputs, Protocol: w.protocolName,
+		SettingsSHA256: w.settingsHash, Runs: 1, Outputs: []string{}, WatchKey: w.watchKey}
+	if st.Inputs == nil {
+		st.Inputs = []InputHash{}
+		for _, in := range [][2]string{{"reference", w.c.Reference}, {"evaluated", w.c.Evaluated}, {"structures", w.c.Structures}} {
+			if in[1] != "" {
+				st.Inputs = append(st.Inputs, InputHash{Role: in[0], Path: in[1]})
+			}
+		}
+	}
+	if prev != nil {
+		st.Runs = prev.Runs + 1
+	}
+	st.Finished = time.Now().UTC().Format(time.RFC3339)
+	return st
+}
+
+// writeErrorCase installs a case folder holding only the status of a case
+// that could not be evaluated.
+func writeErrorCase(parent string, st *Status) error {
+	tmp, err := newCaseTemp(parent, st.ID)
+	if err != nil {
+		return err
+	}
+	if err := writeStatus(tmp, st); err != nil {
+		os.RemoveAll(tmp)
+		return err
+	}
+	if err := installCase(parent, st.ID, tmp); err != nil {
+		os.RemoveAll(tmp)
+		return err
+	}
+	return nil
+}
+
+// compute runs the comparison of w into a new temporary folder under
+// parent, writes its outputs and status there and installs the folder as
+// parent/<id>. A comparison that fails, or panics, makes a case folder
+// with the error in its status. It returns the status; an error only when
+// the folder could not be made or installed, or the context was cancelled
+// (nothing is installed then). caseErr is the comparison's error, if any.
+func compute(ctx context.Context, parent string, w caseWork, inputs []InputHash, prev *Status) (st *Status, caseErr, err error) {
+	c := w.c
+	tmp, err := newCaseTemp(parent, c.ID)
+	if err != nil {
+		return nil, nil, err
+	}
+	installed := false
+	defer func() {
+		if !installed {
+			os.RemoveAll(tmp)
+		}
+	}()
+	t0 := time.Now()
+	outs := job.Outputs{JSON: filepath.Join(tmp, ResultJSON), CSV: filepath.Join(tmp, ResultCSV)}
+	if w.outs.GammaMap {
+		outs.GammaMap = filepath.Join(tmp, GammaMapFile)
+	}
+	if w.outs.DifferenceMap {
+		outs.DifferenceMap = filepath.Join(tmp, DifferenceFile)
+	}
+	if w.outs.Report {
+		outs.Report = filepath.Join(tmp, ReportFile)
+	}
+	res, cerr := protect(func() (*result.Result, error) {
+		if err := outs.Check([]string{c.Reference, c.Evaluated, c.Structures}, false); err != nil {
+			return nil, err
+		}
+		out, err := job.Compare(ctx, analysis.Inputs{Reference: c.Reference, Evaluated: c.Evaluated, Structures: c.Structures,
+			AllowFrameMismatch: w.allowFM}, w.settings)
+		if err != nil {
+			return nil, err
+		}
+		if err := job.Write(outs, out, w.outs.Deidentify); err != nil {
+			return nil, err
+		}
+		return out.Result, nil
+	})
+	if err := ctx.Err(); err != nil {
+		return nil, nil, err
+	}
+	st = newStatus(w, inputs, prev)
+	st.Seconds = time.Since(t0).Seconds()
+	if cerr != nil {
+		st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, caseMessage(c.ID, cerr)
+		// Leave no partial outputs beside the status of a failed case.
+		if entries, err := os.ReadDir(tmp); err == nil {
+			for _, e := range entries {
+				os.RemoveAll(filepath.Join(tmp, e.Name()))
+			}
+		}
+	} else {
+		st.Summary = Figures(res)
+		st.Verdict, st.ExitClass = VerdictFail, ExitRuleFail
+		if res.Verdict == "pass" {
+			st.Verdict, st.ExitClass = VerdictPass, ExitPass
+		}
+		for _, p := range outs.List() {
+			st.Outputs = append(st.Outputs, filepath.Base(p))
+		}
+		sort.Strings(st.Outputs)
+	}
+	if err := writeStatus(tmp, st); err != nil {
+		return nil, cerr, fmt.Errorf("case %s: %w", c.ID, err)
+	}
+	if err := installCase(parent, c.ID, tmp); err != nil {
+		return nil, cerr, err
+	}
+	installed = true
+	return st, cerr, nil
+}
+
+// protect runs f, turning a panic into an error (with the stack, for a
+// report).
+func protect(f func() (*result.Result, error)) (r *result.Result, err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			stack := string(debug.Stack())
+			if i := strings.Index(stack, "\n"); i > 0 {
+				stack = stack[i+1:]
+			}
+			lines := strings.Split(stack, "\n")
+			if len(lines) > 12 {
+				lines = lines[:12]
+			}
+			r, err = nil, fmt.Errorf("internal error: %v (please report it; at %s)", p, strings.Join(strings.Fields(strings.Join(lines, " ")), " "))
+		}
+	}()
+	return f()
+}
