@@ -430,7 +430,14 @@ func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) error {
 	blocks := (p.n + blockSize - 1) / blockSize
 	g, gctx := errgroup.WithContext(p.ctx)
 	for w := 0; w < min(p.workers, blocks); w++ {
-		g.Go(func() error {
+		g.Go(func() (err error) {
+			// A panic in a worker would end the whole process, whatever
+			// the caller's recovery: turn it into this comparison's error.
+			defer func() {
+				if r := recover(); r != nil {
+					err = fmt.Errorf("internal error in the gamma search: %v", r)
+				}
+			}()
 			sc := new(scratch)
 			for {
 				b := int(next.Add(1)) - 1
