@@ -52,10 +52,10 @@ func EstimateBytes(nr, ne int64) int64 {
 	return BytesPerReferenceVoxel*nr + BytesPerEvaluatedVoxel*ne + FixedBytesPerCase
 }
 
-// doseVoxels returns the voxel count of the RT Dose at path, read from its
+// DoseVoxels returns the voxel count of the RT Dose at path, read from its
 // header only (Rows × Columns × NumberOfFrames). For a folder it is the
 // largest dose in it (the one compared is chosen later).
-func doseVoxels(path string) (int64, error) {
+func DoseVoxels(path string) (int64, error) {
 	st, err := os.Stat(path)
 	if err != nil {
 		return 0, err
@@ -93,11 +93,11 @@ func doseVoxels(path string) (int64, error) {
 // EstimateCase estimates the peak memory of case c from its dose headers
 // (see [EstimateBytes]); errors name the file.
 func EstimateCase(c Case) (int64, error) {
-	nr, err := doseVoxels(c.Reference)
+	nr, err := DoseVoxels(c.Reference)
 	if err != nil {
 		return 0, fmt.Errorf("case %s: estimating memory from the reference %s: %w", c.ID, c.Reference, err)
 	}
-	ne, err := doseVoxels(c.Evaluated)
+	ne, err := DoseVoxels(c.Evaluated)
 	if err != nil {
 		return 0, fmt.Errorf("case %s: estimating memory from the evaluated dose %s: %w", c.ID, c.Evaluated, err)
 	}

@@ -12,6 +12,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"voxgamma/analysis"
+	"voxgamma/batch"
 	"voxgamma/job"
 	"voxgamma/protocol"
 	"voxgamma/result"
@@ -34,6 +35,7 @@ type compareFlags struct {
 	exhaustive                                        bool
 	allowFrameMismatch, force, deidentify             bool
 	minClusterCC                                      float64
+	maxMemory                                         string
 }
 
 func (f *compareFlags) register(cmd *cobra.Command) {
@@ -64,6 +66,36 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 	fl.BoolVar(&f.force, "force", false, "overwrite existing output files")
 	fl.BoolVar(&f.deidentify, "deidentify", false, "replace patient names and IDs with a hash and leave dates out of every output")
 	fl.Float64Var(&f.minClusterCC, "min-cluster", 0.01, "smallest failing cluster listed, cm³")
+	fl.StringVar(&f.maxMemory, "max-memory", "", "memory budget, e.g. 8GiB (default: 70 % of the available memory); a comparison estimated to need more is refused before loading")
+}
+
+// checkMemory refuses, before anything is loaded, a comparison whose grids
+// (read from the dose headers) need more memory than the budget.
+func checkMemory(f *compareFlags) error {
+	budget, source := batch.DefaultBudget()
+	if f.maxMemory != "" {
+		b, err := batch.ParseBytes(f.maxMemory)
+		if err != nil {
+			return fmt.Errorf("--max-memory: %w", err)
+		}
+		budget, source = b, "--max-memory"
+	}
+	var need int64
+	var err error
+	if f.referencePoints != "" {
+		ne, e := batch.DoseVoxels(f.evaluated)
+		if e != nil {
+			return e
+		}
+		need = batch.EstimateBytes(0, ne)
+	} else if need, err = batch.EstimateCase(batch.Case{ID: "compare", Reference: f.reference, Evaluated: f.evaluated}); err != nil {
+		return err
+	}
+	if need > budget {
+		return fmt.Errorf("the comparison needs about %s of memory (estimated from the dose grids' sizes); the budget is %s (%s): raise --max-memory or use coarser grids",
+			batch.FormatBytes(need), batch.FormatBytes(budget), source)
+	}
+	return nil
 }
 
 func newCompare(g *globals) *cobra.Command {
@@ -165,6 +197,9 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 	}
 	outs := f.outputs()
 	if err := outs.Check([]string{f.reference, f.referencePoints, f.evaluated, f.structures}, f.force); err != nil {
+		return nil, err
+	}
+	if err := checkMemory(f); err != nil {
 		return nil, err
 	}
 	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated,
