@@ -298,10 +298,11 @@ func ParsePoints(r io.Reader, name string) ([]gamma.Point, error) {
 		if err == io.EOF {
 			break
 		}
-		line, _ := cr.FieldPos(0)
 		if err != nil {
+			// A csv.ParseError carries its own line number.
 			return nil, fmt.Errorf("%s: %w", name, err)
 		}
+		line, _ := cr.FieldPos(0)
 		if len(rec) == 1 && strings.TrimSpace(rec[0]) == "" {
 			continue
 		}

@@ -125,6 +125,14 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 		}
 		p.regions = append(p.regions, reg)
 		p.sources[reg] = r
+		for _, sk := range reg.Skipped {
+			if sk.Type == structure.ClosedPlanar {
+				p.warnings = append(p.warnings, fmt.Sprintf("ROI %q: contour %d (CLOSED_PLANAR) not rasterised: %s", r.Name, sk.Contour+1, sk.Reason))
+			}
+		}
+		if n := len(reg.Skipped); n > 0 {
+			p.notes = append(p.notes, fmt.Sprintf("ROI %q: %d contours not rasterised (%s)", r.Name, n, skippedKinds(reg.Skipped)))
+		}
 		if reg.OutsideCC > 0.0005 {
 			p.warnings = append(p.warnings, fmt.Sprintf("ROI %q: %.3f cc of its %.3f cc lie outside the reference dose grid and are not evaluated", r.Name, reg.OutsideCC, reg.ContourCC))
 		}
@@ -133,6 +141,24 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 		"volumes and DVHs weight each voxel by the fraction inside it, from %d×%d sub-samples in plane and %d sub-slices",
 		orDefault(s.Raster.InPlane, roi.DefaultInPlane), orDefault(s.Raster.InPlane, roi.DefaultInPlane), orDefault(s.Raster.SubSlices, roi.DefaultSubSlices)))
 	return p, nil
+}
+
+// skippedKinds says which kinds of contours were skipped, e.g.
+// "2 POINT, 1 CLOSED_PLANAR".
+func skippedKinds(sk []roi.SkippedContour) string {
+	counts := map[structure.GeometricType]int{}
+	var order []structure.GeometricType
+	for _, s := range sk {
+		if counts[s.Type] == 0 {
+			order = append(order, s.Type)
+		}
+		counts[s.Type]++
+	}
+	var parts []string
+	for _, t := range order {
+		parts = append(parts, fmt.Sprintf("%d %s", counts[t], t))
+	}
+	return strings.Join(parts, ", ")
 }
 
 func orDefault(v, d int) int {
@@ -372,6 +398,11 @@ func regionStatus(reg *roi.Region, src *structure.ROI, st result.GammaStats) str
 	case reg.NoContours:
 		return "not evaluated: no contours"
 	case src != nil && reg.Planes == 0 && len(reg.Skipped) > 0:
+		for _, sk := range reg.Skipped {
+			if sk.Type == structure.ClosedPlanar {
+				return "not evaluated: no contour could be rasterised (" + sk.Reason + ")"
+			}
+		}
 		return "not evaluated: no closed planar contours (points or open contours only)"
 	case len(reg.Centres) == 0 && reg.OutsideCC > 0:
 		return "not evaluated: outside the dose grid"

@@ -71,7 +71,11 @@ func CheckConsistency(ref *DoseInfo, refGrid *volume.Grid, eval *DoseInfo, evalG
 	}
 	frameCheck(fmt.Sprintf("the reference (%s) and evaluated (%s) doses", rn, en), ref.FrameOfReferenceUID, eval.FrameOfReferenceUID)
 	if set != nil {
-		frameCheck(fmt.Sprintf("the reference dose (%s) and the structure set %q", rn, set.Label), ref.FrameOfReferenceUID, set.FrameOfReferenceUID)
+		sn := fmt.Sprintf("%q", set.Label)
+		if set.Path != "" {
+			sn = fmt.Sprintf("%q (%s)", set.Label, filepath.Base(set.Path))
+		}
+		frameCheck(fmt.Sprintf("the reference dose (%s) and the structure set %s", rn, sn), ref.FrameOfReferenceUID, set.FrameOfReferenceUID)
 		for _, r := range set.ROIs {
 			if r.FrameOfReferenceUID != "" && set.FrameOfReferenceUID != "" && r.FrameOfReferenceUID != set.FrameOfReferenceUID {
 				frameCheck(fmt.Sprintf("the reference dose (%s) and %s", rn, roiLabel(r.Number, r.Name)), ref.FrameOfReferenceUID, r.FrameOfReferenceUID)
@@ -94,17 +98,17 @@ func CheckConsistency(ref *DoseInfo, refGrid *volume.Grid, eval *DoseInfo, evalG
 		f.warnf("patient IDs differ: reference (%s) %q, evaluated (%s) %q", rn, ref.PatientID, en, eval.PatientID)
 	}
 	if refGrid != nil && evalGrid != nil {
-		coverage(f, ref, refGrid, evalGrid)
+		coverage(f, ref, refGrid, evalGrid, rn, en)
 	}
 	return f
 }
 
 // coverage checks that the evaluated grid covers the reference high-dose
 // region.
-func coverage(f *Findings, ref *DoseInfo, refGrid, evalGrid *volume.Grid) {
+func coverage(f *Findings, ref *DoseInfo, refGrid, evalGrid *volume.Grid, rn, en string) {
 	peak, _ := refGrid.Max()
 	if !(peak > 0) {
-		f.errorf("the reference dose has no positive value (maximum %g): nothing to compare", peak)
+		f.errorf("the reference dose (%s) has no positive value (maximum %g): nothing to compare", rn, peak)
 		return
 	}
 	thr := float32(HighDoseFraction) * peak
@@ -131,11 +135,12 @@ func coverage(f *Findings, ref *DoseInfo, refGrid, evalGrid *volume.Grid) {
 		}
 	}
 	region := fmt.Sprintf("the reference high-dose region (%d voxels at ≥ %g %% of the reference maximum %.4g %s)", total, HighDoseFraction*100, peak, ref.UnitLabel())
+	files := fmt.Sprintf("reference %s, evaluated %s", rn, en)
 	switch {
 	case outside == total:
-		f.errorf("the evaluated grid covers none of %s: the grids do not overlap where it matters", region)
+		f.errorf("the evaluated grid covers none of %s: the grids do not overlap where it matters (%s)", region, files)
 	case outside > 0:
-		f.warnf("%.1f %% (%d voxels) of %s lies outside the evaluated grid and cannot be compared", 100*float64(outside)/float64(total), outside, region)
+		f.warnf("%.1f %% (%d voxels) of %s lies outside the evaluated grid and cannot be compared (%s)", 100*float64(outside)/float64(total), outside, region, files)
 	}
 }
 

@@ -96,6 +96,7 @@ func (fo *Folder) scanFile(path string) {
 			fo.Ignored = append(fo.Ignored, Ignored{path, "unreadable RT Structure Set: " + err.Error()})
 			return
 		}
+		set.Path = path
 		fo.StructureSets = append(fo.StructureSets, StructureFile{path, set})
 	case "":
 		fo.Ignored = append(fo.Ignored, Ignored{path, "DICOM file without Modality (0008,0060)"})

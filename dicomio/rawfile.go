@@ -224,8 +224,17 @@ func (f *file) readMeta(off int64) error {
 	}
 	f.dataStart = off
 	if ts == "" {
+		// The file has "DICM": never report it as lacking one.
+		if off >= f.size {
+			return invalid(tagTransferSyntaxUID, "the file ends inside its file meta header, before the transfer syntax: truncated")
+		}
 		f.notes = append(f.notes, tagString(tagTransferSyntaxUID)+" missing from the file meta header: encoding inferred from the data set")
-		return f.infer(off)
+		if err := f.infer(off); err != nil {
+			if errors.Is(err, ErrNotDICOM) {
+				return invalid(tagTransferSyntaxUID, "missing from the file meta header, and the data set after it is not readable as implicit or explicit VR little endian (truncated or damaged)")
+			}
+			return err
+		}
 	}
 	implicit, err := checkTransferSyntax(ts)
 	if err != nil {

@@ -32,6 +32,7 @@ func ReadStructureSet(path string) (*structure.Set, error) {
 	if err != nil {
 		return nil, fmt.Errorf("reading %s: %w", path, err)
 	}
+	set.Path = path
 	return set, nil
 }
 

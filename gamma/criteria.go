@@ -84,6 +84,12 @@ func (c Criteria) Validate() error {
 		return fmt.Errorf("normalisation dose %g Gy: want a positive dose (or 0 for the reference maximum)", c.NormDose)
 	case c.Search < 0 || math.IsNaN(c.Search) || math.IsInf(c.Search, 0):
 		return fmt.Errorf("search distance %g mm: want a positive distance (or 0 for 3×DTA)", c.Search)
+	case c.Search > 0 && c.Search <= c.DTA:
+		// Any point with Γ ≤ 1 has its minimum within Δd of the reference
+		// point, and a point with none within the search distance is
+		// reported as Γ = search/Δd and failed: a search no longer than Δd
+		// would fail points that pass, with a Γ of at most 1.
+		return fmt.Errorf("search distance %g mm is not longer than the DTA %g mm: points that pass could be missed and reported failing", c.Search, c.DTA)
 	case c.Normalisation != Global && c.Normalisation != Local:
 		return fmt.Errorf("normalisation %d: want global or local", c.Normalisation)
 	}
@@ -100,8 +106,12 @@ func ParseCriteria(s string) (dosePercent, dtaMM float64, err error) {
 	if m == nil {
 		return 0, 0, fmt.Errorf("criteria %q: want the form DOSE%%/DTAmm, e.g. 3%%/2mm", s)
 	}
-	dosePercent, _ = strconv.ParseFloat(m[1], 64)
-	dtaMM, _ = strconv.ParseFloat(m[2], 64)
+	var err1, err2 error
+	dosePercent, err1 = strconv.ParseFloat(m[1], 64)
+	dtaMM, err2 = strconv.ParseFloat(m[2], 64)
+	if err1 != nil || err2 != nil || math.IsInf(dosePercent, 0) || math.IsInf(dtaMM, 0) {
+		return 0, 0, fmt.Errorf("criteria %q: a number is out of range", s)
+	}
 	if dosePercent <= 0 {
 		return 0, 0, fmt.Errorf("criteria %q: dose criterion must be above 0 %%", s)
 	}

@@ -13,6 +13,7 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"sort"
@@ -90,20 +91,23 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 		}
 	}
 	if ov.Threshold != nil {
-		if t := *ov.Threshold; !(t >= 0 && t < 100) {
+		if t := *ov.Threshold; !(t >= 0 && t < 100) || math.IsInf(t, 0) {
 			return s, fmt.Errorf("--threshold %g: want a percentage from 0 to below 100", t)
 		}
 		c.ThresholdPercent = *ov.Threshold
 	}
 	if ov.NormDose != nil {
-		if !(*ov.NormDose > 0) {
+		if !(*ov.NormDose > 0) || math.IsInf(*ov.NormDose, 0) {
 			return s, fmt.Errorf("--norm-dose %g: want a dose above 0 Gy", *ov.NormDose)
 		}
 		c.NormDose = *ov.NormDose
 	}
 	if ov.Search != nil {
-		if !(*ov.Search > 0) {
+		if !(*ov.Search > 0) || math.IsInf(*ov.Search, 0) {
 			return s, fmt.Errorf("--search %g: want a distance above 0 mm", *ov.Search)
+		}
+		if *ov.Search <= c.DTA {
+			return s, fmt.Errorf("--search %g mm is not longer than the DTA %g mm: points that pass could be missed and reported failing", *ov.Search, c.DTA)
 		}
 		c.Search = *ov.Search
 	}
@@ -129,7 +133,11 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 	}
 	for _, v := range iso {
 		if !(v > 0 && v <= 100) {
-			return s, fmt.Errorf("isodose level %g %%: want a percentage above 0 and at most 100", v)
+			what := "protocol " + p.Name + ": "
+			if ov.Isodose != nil {
+				what = "--isodose: "
+			}
+			return s, fmt.Errorf("%sisodose level %g %%: want a percentage above 0 and at most 100", what, v)
 		}
 	}
 	for _, v := range ov.VDoses {
@@ -295,11 +303,15 @@ func CompareFor(ctx context.Context, in analysis.Inputs, s analysis.Settings, ou
 	return out, nil
 }
 
-// Write writes every requested output of a finished comparison; the first
-// failure is returned, naming the file. With deidentify, patient names and
-// IDs become hashes, dates are left out, and DICOM maps get new study and
-// frame-of-reference UIDs.
-func Write(o Outputs, out *analysis.Outcome, deidentify bool) error {
+// Write writes every requested output of a finished comparison, all or
+// none: each is first written (atomically) under a staging name beside its
+// target, and only when every one has been written are they renamed into
+// place; on any failure the staged files are removed and the error, naming
+// the file, returned. With deidentify, patient names and IDs become hashes,
+// dates are left out, and DICOM maps get new study and frame-of-reference
+// UIDs. A reference without a study or frame-of-reference UID gets new ones
+// in the maps (the result says so).
+func Write(o Outputs, out *analysis.Outcome, deidentify bool) (err error) {
 	r := out.Result
 	var ids dicomio.Identifiers
 	if out.ReferenceInfo != nil {
@@ -312,27 +324,50 @@ func Write(o Outputs, out *analysis.Outcome, deidentify bool) error {
 		ids = deidentifyIDs(ids)
 		gammaOpt.OmitDates, diffOpt.OmitDates = true, true
 	}
-	if o.JSON != "" {
-		if err := report.WriteJSON(o.JSON, r); err != nil {
-			return err
+	if o.GammaMap != "" || o.DifferenceMap != "" {
+		if ids.StudyInstanceUID == "" {
+			ids.StudyInstanceUID = dicomio.NewUID()
+			r.Notes = append(r.Notes, "the reference has no StudyInstanceUID: the DICOM maps carry a new one")
+		}
+		if ids.FrameOfReferenceUID == "" {
+			ids.FrameOfReferenceUID = dicomio.NewUID()
+			r.Warnings = append(r.Warnings, "the reference has no FrameOfReferenceUID: the DICOM maps carry a new one, and a planning system will not place them on the reference without registration")
 		}
 	}
-	if o.CSV != "" {
-		if err := report.WriteCSV(o.CSV, r); err != nil {
-			return err
+	type staged struct{ tmp, final string }
+	var done []staged
+	defer func() {
+		if err != nil {
+			for _, s := range done {
+				os.Remove(s.tmp)
+			}
 		}
-	}
-	if o.GammaMap != "" {
-		if err := WriteMap(o.GammaMap, out.Gamma, ids, gammaOpt); err != nil {
-			return err
+	}()
+	stage := func(final string, write func(path string) error) error {
+		if final == "" {
+			return nil
 		}
-	}
-	if o.DifferenceMap != "" {
-		if err := WriteMap(o.DifferenceMap, out.Difference, ids, diffOpt); err != nil {
-			return err
+		tmp := filepath.Join(filepath.Dir(final), "."+filepath.Base(final)+".voxgamma-staging")
+		if err := write(tmp); err != nil {
+			os.Remove(tmp)
+			return fmt.Errorf("%w (nothing written)", renameErr(err, tmp, final))
 		}
+		done = append(done, staged{tmp, final})
+		return nil
 	}
-	if o.Report != "" {
+	if err := stage(o.JSON, func(p string) error { return report.WriteJSON(p, r) }); err != nil {
+		return err
+	}
+	if err := stage(o.CSV, func(p string) error { return report.WriteCSV(p, r) }); err != nil {
+		return err
+	}
+	if err := stage(o.GammaMap, func(p string) error { return writeMapAs(p, o.GammaMap, out.Gamma, ids, gammaOpt) }); err != nil {
+		return err
+	}
+	if err := stage(o.DifferenceMap, func(p string) error { return writeMapAs(p, o.DifferenceMap, out.Difference, ids, diffOpt) }); err != nil {
+		return err
+	}
+	if err := stage(o.Report, func(p string) error {
 		page := report.Page{Result: r, Reference: out.Reference, Gamma: out.Gamma}
 		for i, reg := range out.Regions {
 			if len(reg.Centres) == 0 || reg.Number == 0 {
@@ -343,23 +378,42 @@ func Write(o Outputs, out *analysis.Outcome, deidentify bool) error {
 		if !deidentify {
 			page.Generated = r.Run.Started
 		}
-		if err := report.WriteHTML(o.Report, page); err != nil {
-			return err
+		return report.WriteHTML(p, page)
+	}); err != nil {
+		return err
+	}
+	for i, s := range done {
+		if err := os.Rename(s.tmp, s.final); err != nil {
+			// Those already renamed stay (complete); the rest are removed.
+			done = done[i:]
+			return fmt.Errorf("writing %s: %w", s.final, err)
 		}
 	}
 	return nil
 }
 
-// WriteMap writes a map as RT Dose (.dcm) or MetaImage (.mha, by the name).
-func WriteMap(path string, grid *volume.Grid, ids dicomio.Identifiers, opt dicomio.WriteOptions) error {
+// renameErr rewrites an error about the staging file to name the output the
+// user asked for.
+func renameErr(err error, tmp, final string) error {
+	return errors.New(strings.ReplaceAll(err.Error(), tmp, final))
+}
+
+// writeMapAs writes a map to path in the format that the name final asks
+// for (the staging path's own extension is not the user's).
+func writeMapAs(path, final string, grid *volume.Grid, ids dicomio.Identifiers, opt dicomio.WriteOptions) error {
 	if grid == nil {
-		return fmt.Errorf("%s: no map to write (the reference is not a grid)", path)
+		return fmt.Errorf("%s: no map to write (the reference is not a grid)", final)
 	}
-	if strings.EqualFold(filepath.Ext(path), ".mha") {
+	if strings.EqualFold(filepath.Ext(final), ".mha") {
 		return metaimage.Write(path, grid)
 	}
 	_, err := dicomio.WriteDose(path, grid, ids, opt)
 	return err
+}
+
+// WriteMap writes a map as RT Dose (.dcm) or MetaImage (.mha, by the name).
+func WriteMap(path string, grid *volume.Grid, ids dicomio.Identifiers, opt dicomio.WriteOptions) error {
+	return writeMapAs(path, path, grid, ids, opt)
 }
 
 // Pseudonym is the stable hash that stands in for a patient name or ID in

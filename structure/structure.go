@@ -43,6 +43,8 @@ type ROI struct {
 
 // Set is a structure set: its ROIs and the identifiers that tie it to doses.
 type Set struct {
+	// Path is the file the set was read from; empty for a set made in code.
+	Path string
 	// FrameOfReferenceUID is the frame of reference the set's contours are in
 	// (the first ReferencedFrameOfReference; ROIs may name their own).
 	FrameOfReferenceUID string

@@ -80,17 +80,19 @@ func checkMemory(f *compareFlags) error {
 		}
 		budget, source = b, "--max-memory"
 	}
-	var need int64
-	var err error
-	if f.referencePoints != "" {
-		ne, e := batch.DoseVoxels(f.evaluated)
-		if e != nil {
-			return e
+	var nr int64
+	if f.reference != "" {
+		n, err := batch.DoseVoxels(f.reference)
+		if err != nil {
+			return fmt.Errorf("reference %s: %w", f.reference, err)
 		}
-		need = batch.EstimateBytes(0, ne)
-	} else if need, err = batch.EstimateCase(batch.Case{ID: "compare", Reference: f.reference, Evaluated: f.evaluated}); err != nil {
-		return err
+		nr = n
 	}
+	ne, err := batch.DoseVoxels(f.evaluated)
+	if err != nil {
+		return fmt.Errorf("evaluated dose %s: %w", f.evaluated, err)
+	}
+	need := batch.EstimateBytes(nr, ne)
 	if need > budget {
 		return fmt.Errorf("the comparison needs about %s of memory (estimated from the dose grids' sizes); the budget is %s (%s): raise --max-memory or use coarser grids",
 			batch.FormatBytes(need), batch.FormatBytes(budget), source)
@@ -214,11 +216,13 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 	for _, p := range outs.List() {
 		g.log.Info("wrote", "file", p)
 	}
+	if !g.quiet {
+		printSummary(g, out.Result)
+	}
 	return out, nil
 }
 
-// compareInputs runs one comparison with a progress bar on a terminal and
-// prints its summary.
+// compareInputs runs one comparison with a progress bar on a terminal.
 func compareInputs(ctx context.Context, g *globals, in analysis.Inputs, s analysis.Settings, outs job.Outputs, force bool) (*analysis.Outcome, error) {
 	if ctx == nil {
 		ctx = context.Background()
@@ -232,9 +236,6 @@ func compareInputs(ctx context.Context, g *globals, in analysis.Inputs, s analys
 	bar.done()
 	if err != nil {
 		return nil, err
-	}
-	if !g.quiet {
-		printSummary(g, out.Result)
 	}
 	return out, nil
 }

@@ -62,6 +62,9 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 			if err := job.Write(out, o, false); err != nil {
 				return err
 			}
+			if !g.quiet {
+				printSummary(g, o.Result)
+			}
 			mha := filepath.Join(dir, "gamma.mha")
 			if err := job.WriteMap(mha, o.Gamma, dicomio.Identifiers{}, dicomio.GammaOptions("")); err != nil {
 				return err
