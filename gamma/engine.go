@@ -473,39 +473,45 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 	f := s.f
 	s.nodes = nil
 	mask := make([]bool, len(f.data))
-	any := false
+	// Seeds, and the box that holds them and their dilation.
+	lo := [3]int{f.n[0], f.n[1], f.n[2]}
+	hi := [3]int{-1, -1, -1}
 	for i, st := range status {
 		if st != needsTree {
 			continue
 		}
-		any = true
 		q, _ := src.at(i)
 		var c [3]int
 		for a := 0; a < 3; a++ {
 			c[a] = f.cell(a, q[a])
+			lo[a], hi[a] = min(lo[a], c[a]), max(hi[a], c[a])
 		}
 		mask[c[0]+f.n[0]*(c[1]+f.n[1]*c[2])] = true
 	}
-	if !any {
+	if hi[0] < 0 {
 		s.tree = kdtree.Build(nil, wHint)
 		return
 	}
 	// The seed is each point's lower cell corner; the dilation covers the
 	// cell's far corner plus the search distance.
+	var span [3]int
 	for a := 0; a < 3; a++ {
-		span := int(math.Ceil(s.rn/f.minStep(a))) + 1
-		dilate(mask, f.n, a, span)
+		span[a] = int(math.Ceil(s.rn/f.minStep(a))) + 1
+		lo[a] = max(0, lo[a]-span[a])
+		hi[a] = min(f.n[a]-1, hi[a]+span[a])
+	}
+	for a := 0; a < 3; a++ {
+		dilate(mask, f.n, lo, hi, a, span[a])
 	}
 	var coords []float32
-	n := 0
-	for k := 0; k < f.n[2]; k++ {
-		for j := 0; j < f.n[1]; j++ {
-			for i := 0; i < f.n[0]; i++ {
-				if mask[n] {
+	for k := lo[2]; k <= hi[2]; k++ {
+		for j := lo[1]; j <= hi[1]; j++ {
+			row := f.n[0] * (j + f.n[1]*k)
+			for i := lo[0]; i <= hi[0]; i++ {
+				if n := row + i; mask[n] {
 					s.nodes = append(s.nodes, int32(n))
 					coords = append(coords, float32(f.off[0][i]), float32(f.off[1][j]), float32(f.off[2][k]), f.data[n])
 				}
-				n++
 			}
 		}
 	}
@@ -513,35 +519,35 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 }
 
 // dilate sets every element of mask (a grid of dims n) within span samples
-// of a set element along axis a, in one pass per line: a running count of
-// the steps since the last set element seen from either side.
-func dilate(mask []bool, n [3]int, a, span int) {
-	stride := [3]int{1, n[0], n[0] * n[1]}[a]
-	length := n[a]
-	out := make([]bool, length)
-	for base := 0; base < len(mask); base++ {
-		// base runs over the first element of each line along a.
-		if (base/stride)%length != 0 {
-			continue
-		}
-		last := -span - 1
-		for i := 0; i < length; i++ {
-			if mask[base+i*stride] {
-				last = i
+// of a set element along axis a, within the box lo..hi (inclusive), in one
+// pass per line: the steps since the last set element seen from either side.
+func dilate(mask []bool, n, lo, hi [3]int, a, span int) {
+	stride := [3]int{1, n[0], n[0] * n[1]}
+	// The two axes other than a index the lines.
+	b, c := (a+1)%3, (a+2)%3
+	out := make([]bool, hi[a]-lo[a]+1)
+	for ib := lo[b]; ib <= hi[b]; ib++ {
+		for ic := lo[c]; ic <= hi[c]; ic++ {
+			base := ib*stride[b] + ic*stride[c]
+			last := -span - 1
+			for i := lo[a]; i <= hi[a]; i++ {
+				if mask[base+i*stride[a]] {
+					last = i
+				}
+				out[i-lo[a]] = i-last <= span
 			}
-			out[i] = i-last <= span
-		}
-		last = length + span + 1
-		for i := length - 1; i >= 0; i-- {
-			if mask[base+i*stride] {
-				last = i
+			last = hi[a] + span + 1
+			for i := hi[a]; i >= lo[a]; i-- {
+				if mask[base+i*stride[a]] {
+					last = i
+				}
+				if last-i <= span {
+					out[i-lo[a]] = true
+				}
 			}
-			if last-i <= span {
-				out[i] = true
+			for i := lo[a]; i <= hi[a]; i++ {
+				mask[base+i*stride[a]] = out[i-lo[a]]
 			}
-		}
-		for i := 0; i < length; i++ {
-			mask[base+i*stride] = out[i]
 		}
 	}
 }

@@ -15,6 +15,7 @@ type field struct {
 	off    [3][]float64 // sample positions in DTA units, increasing, off[a][0] = 0
 	step   [3]float64   // uniform step in DTA units, 0 when not uniform or single-sample
 	stride [3]int       // index stride of each axis; 0 on a single-sample axis
+	invH   [3][]float64 // 1 / cell size along each axis, per cell (DTA units)
 	data   []float32
 }
 
@@ -32,6 +33,10 @@ func newField(g *volume.Grid, dta float64) *field {
 		}
 		if f.n[a] > 1 {
 			f.stride[a] = strides[a]
+			f.invH[a] = make([]float64, f.n[a]-1)
+			for c := range f.invH[a] {
+				f.invH[a][c] = 1 / (f.off[a][c+1] - f.off[a][c])
+			}
 		}
 	}
 	return f
@@ -189,12 +194,13 @@ func abs(v float64) float64 {
 // |p − q|² + w²·(E(p) − dr)²).
 func (f *field) cellMin(ci, cj, ck int, c *[8]float64, q [3]float64, dr, w, ds2, best2 float64) float64 {
 	idx := [3]int{ci, cj, ck}
-	var lo, h [3]float64
+	var lo, h, inv [3]float64
 	for a := 0; a < 3; a++ {
 		lo[a] = f.off[a][idx[a]]
 		if f.n[a] > 1 {
 			h[a] = f.off[a][idx[a]+1] - lo[a]
+			inv[a] = f.invH[a][idx[a]]
 		}
 	}
-	return cellMinPL(c, lo, h, q, dr, w, ds2, best2)
+	return cellMinPL(c, lo, h, inv, q, dr, w, ds2, best2)
 }

@@ -64,7 +64,9 @@ func plValue(c *[8]float64, t [3]float64) float64 {
 // the perpendicular, q − w²·e·G/(1 + w²|G|²), lies in the tetrahedron.
 // Otherwise the minimum lies on the tetrahedron's boundary, found exactly by
 // tetraDist2's faces. Tetrahedra whose bound cannot beat best2 are skipped.
-func cellMinPL(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) float64 {
+//
+// inv holds 1/h (0 along an axis with h = 0).
+func cellMinPL(c *[8]float64, lo, h, inv, q [3]float64, dr, w, ds2, best2 float64) float64 {
 	if h[0] == 0 || h[1] == 0 || h[2] == 0 {
 		return cellMinFlat(c, lo, h, q, dr, w, ds2, best2)
 	}
@@ -74,10 +76,10 @@ func cellMinPL(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) fl
 	for m := range d {
 		d[m] = w * (c[m] - dr)
 	}
-	var u, inv [3]float64
+	var u, qlo [3]float64 // q in cell fractions, and q − lo
 	for a := 0; a < 3; a++ {
-		inv[a] = 1 / h[a]
-		u[a] = (q[a] - lo[a]) * inv[a]
+		qlo[a] = q[a] - lo[a]
+		u[a] = qlo[a] * inv[a]
 	}
 	var pts [8][4]float64 // built on first need
 	built := false
@@ -86,23 +88,32 @@ func cellMinPL(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) fl
 		d0, d1, d2, d3 := d[tet[0]], d[tet[1]], d[tet[2]], d[tet[3]]
 		// Lower bound: the box distance and the gap between dr and the
 		// tetrahedron's dose range.
-		lo4, hi4 := d0, d0
-		for _, v := range [3]float64{d1, d2, d3} {
-			if v < lo4 {
-				lo4 = v
+		{
+			lo4, hi4 := d0, d0
+			if d1 < lo4 {
+				lo4 = d1
+			} else if d1 > hi4 {
+				hi4 = d1
 			}
-			if v > hi4 {
-				hi4 = v
+			if d2 < lo4 {
+				lo4 = d2
+			} else if d2 > hi4 {
+				hi4 = d2
 			}
-		}
-		gap := 0.0
-		if lo4 > 0 {
-			gap = lo4
-		} else if hi4 < 0 {
-			gap = -hi4
-		}
-		if ds2+gap*gap >= best2 {
-			continue
+			if d3 < lo4 {
+				lo4 = d3
+			} else if d3 > hi4 {
+				hi4 = d3
+			}
+			gap := 0.0
+			if lo4 > 0 {
+				gap = lo4
+			} else if hi4 < 0 {
+				gap = -hi4
+			}
+			if ds2+gap*gap >= best2 {
+				continue
+			}
 		}
 		// The weighted dose gradient G (per DTA unit) along the Kuhn path
 		// v0 → v1 → v2 → v3, one axis per step.
@@ -113,7 +124,7 @@ func cellMinPL(c *[8]float64, lo, h, q [3]float64, dr, w, ds2, best2 float64) fl
 		g[a1] = (d2 - d1) * inv[a1]
 		g[a2] = (d3 - d2) * inv[a2]
 		// e: the weighted dose difference of the linear extension at q.
-		e := d0 + g[0]*u[0]*h[0] + g[1]*u[1]*h[1] + g[2]*u[2]*h[2]
+		e := d0 + g[0]*qlo[0] + g[1]*qlo[1] + g[2]*qlo[2]
 		den := 1 + g[0]*g[0] + g[1]*g[1] + g[2]*g[2]
 		plane := e * e / den
 		if plane >= best2 {
