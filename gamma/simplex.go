@@ -153,6 +153,15 @@ func cellMinPL(c *[8]float64, lo, h, inv, q [3]float64, dr, w, ds2, best2 float6
 				out += (ti - 1) * (ti - 1) * h[a] * h[a]
 			}
 		}
+		// The same for the tetrahedron's slanted faces t_a = t_b and
+		// t_b = t_c, which the foot lies beyond when λ1 or λ2 < 0: in space,
+		// the plane t_x = t_y lies |t_x − t_y|/√(1/h_x² + 1/h_y²) away.
+		if lam[1] < 0 {
+			out = max(out, lam[1]*lam[1]/(inv[a0]*inv[a0]+inv[a1]*inv[a1]))
+		}
+		if lam[2] < 0 {
+			out = max(out, lam[2]*lam[2]/(inv[a1]*inv[a1]+inv[a2]*inv[a2]))
+		}
 		if plane+out >= best2 {
 			continue
 		}
