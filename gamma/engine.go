@@ -263,9 +263,10 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 	threshold := c.ThresholdPercent / 100 * c.NormDose
 	wGlobal := 1 / (c.DosePercent / 100 * c.NormDose)
 
-	// Classify every point.
-	todo := 0
-	for i := 0; i < n; i++ {
+	// Classify every point, in parallel.
+	var counted atomic.Int64
+	cls := &pool{ctx: ctx, n: n, workers: workers}
+	if err := cls.run(false, func(i int, _ *scratch) bool {
 		res.Gamma[i] = float32(math.NaN())
 		q, d := src.at(i)
 		switch {
@@ -277,9 +278,13 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 			res.Status[i] = Outside
 		default:
 			res.Status[i] = Evaluated // provisional: to be searched
-			todo++
+			counted.Add(1)
 		}
+		return false
+	}); err != nil {
+		return nil, fmt.Errorf("gamma: %w", err)
 	}
+	todo := int(counted.Load())
 	if todo == 0 {
 		res.Stats = res.StatsAll()
 		return res, nil

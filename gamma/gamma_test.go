@@ -4,6 +4,7 @@ import (
 	"context"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"voxgamma/volume"
@@ -556,6 +557,28 @@ func TestPercentile(t *testing.T) {
 	for _, tc := range [][2]float64{{0, 1}, {25, 1.75}, {50, 2.5}, {95, 3.85}, {100, 4}} {
 		if got := Percentile(v, tc[0]); math.Abs(got-tc[1]) > 1e-12 {
 			t.Errorf("P%g = %g, want %g", tc[0], got, tc[1])
+		}
+	}
+}
+
+// TestPercentileSelect checks the selection-based percentiles against the
+// sort-based definition (Hyndman and Fan definition 7) on random data with
+// ties.
+func TestPercentileSelect(t *testing.T) {
+	r := rand.New(rand.NewPCG(11, 12))
+	for trial := 0; trial < 200; trial++ {
+		n := 1 + r.IntN(300)
+		v := make([]float64, n)
+		for i := range v {
+			v[i] = float64(r.IntN(20)) / 7 // many ties
+		}
+		sorted := append([]float64(nil), v...)
+		slices.Sort(sorted)
+		for _, p := range []float64{0, 1, 50, 95, 99, 100} {
+			w := append([]float64(nil), v...)
+			if got, want := percentileSelect(w, p), Percentile(sorted, p); got != want {
+				t.Fatalf("n=%d p=%g: select %g, sort %g", n, p, got, want)
+			}
 		}
 	}
 }

@@ -2,7 +2,6 @@ package gamma
 
 import (
 	"math"
-	"slices"
 	"strconv"
 )
 
@@ -97,22 +96,89 @@ func fillDistribution(s *Stats, values []float64) {
 	if len(values) == 0 {
 		return
 	}
-	slices.Sort(values)
-	sum, above := 0.0, 0
+	sum, above, mx := 0.0, 0, values[0]
 	for _, v := range values {
 		sum += v
 		if v > 1.5 {
 			above++
 		}
+		mx = math.Max(mx, v)
 	}
 	n := float64(len(values))
 	s.PassRate = 100 * float64(s.Passed) / n
 	s.Mean = sum / n
-	s.Median = Percentile(values, 50)
-	s.P95 = Percentile(values, 95)
-	s.P99 = Percentile(values, 99)
-	s.Max = values[len(values)-1]
+	// Order statistics by selection, O(n), rather than a full sort; the
+	// values are reordered, which changes nothing else here.
+	s.Median = percentileSelect(values, 50)
+	s.P95 = percentileSelect(values, 95)
+	s.P99 = percentileSelect(values, 99)
+	s.Max = mx
 	s.AboveOneHalf = 100 * float64(above) / n
+}
+
+// percentileSelect returns Percentile(sorted(v), p) without sorting v: it
+// selects the two order statistics the linear interpolation needs
+// (Hyndman and Fan definition 7). v is reordered.
+func percentileSelect(v []float64, p float64) float64 {
+	h := (float64(len(v)) - 1) * p / 100
+	lo := int(math.Floor(h))
+	a := selectKth(v, lo)
+	if lo >= len(v)-1 {
+		return a
+	}
+	// After selection, the elements above position lo are ≥ a; the next
+	// order statistic is their minimum.
+	b := v[lo+1]
+	for _, x := range v[lo+1:] {
+		if x < b {
+			b = x
+		}
+	}
+	return a + (h-float64(lo))*(b-a)
+}
+
+// selectKth reorders v so that v[k] is the k-th smallest value (0-based),
+// everything before it ≤ and everything after it ≥, and returns v[k]
+// (Hoare's selection with a median-of-three pivot).
+func selectKth(v []float64, k int) float64 {
+	lo, hi := 0, len(v)-1
+	for lo < hi {
+		mid := lo + (hi-lo)/2
+		// Median of three to the middle.
+		if v[mid] < v[lo] {
+			v[mid], v[lo] = v[lo], v[mid]
+		}
+		if v[hi] < v[lo] {
+			v[hi], v[lo] = v[lo], v[hi]
+		}
+		if v[hi] < v[mid] {
+			v[hi], v[mid] = v[mid], v[hi]
+		}
+		pivot := v[mid]
+		i, j := lo, hi
+		for i <= j {
+			for v[i] < pivot {
+				i++
+			}
+			for v[j] > pivot {
+				j--
+			}
+			if i <= j {
+				v[i], v[j] = v[j], v[i]
+				i++
+				j--
+			}
+		}
+		switch {
+		case k <= j:
+			hi = j
+		case k >= i:
+			lo = i
+		default:
+			return v[k]
+		}
+	}
+	return v[k]
 }
 
 // Percentile returns the p-th percentile (0–100) of sorted values,
