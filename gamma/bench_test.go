@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"testing"
 
 	"voxgamma/volume"
@@ -47,6 +48,9 @@ func benchmarkCompare(b *testing.B, dims [3]int, dosePct, dta float64, norm Norm
 	c := Criteria{DosePercent: dosePct, DTA: dta, Normalisation: norm, ThresholdPercent: 10}
 	var res *Result
 	var err error
+	var before, after runtime.MemStats
+	runtime.GC()
+	runtime.ReadMemStats(&before)
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
@@ -56,6 +60,12 @@ func benchmarkCompare(b *testing.B, dims [3]int, dosePct, dta float64, norm Norm
 		}
 	}
 	b.StopTimer()
+	runtime.ReadMemStats(&after)
+	// Everything the comparison allocated, plus the two inputs, over the
+	// inputs: an upper bound of its peak memory in units of the inputs
+	// (allocated bytes include what was freed along the way).
+	inputs := float64(4 * (len(ref.Data) + len(eval.Data)))
+	b.ReportMetric((float64(after.TotalAlloc-before.TotalAlloc)/float64(b.N)+inputs)/inputs, "mem/inputs")
 	pts := float64(res.Stats.Evaluated)
 	nsPerOp := float64(b.Elapsed().Nanoseconds()) / float64(b.N)
 	b.ReportMetric(nsPerOp/pts, "ns/point")

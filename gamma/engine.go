@@ -118,10 +118,6 @@ type Result struct {
 // (Γ ≤ 1, not capped).
 func (r *Result) Passed(n int) bool { return r.Status[n] == Evaluated && r.Gamma[n] <= 1 }
 
-// ErrNothingAboveThreshold is returned when no reference point reaches the
-// low-dose threshold.
-var ErrNothingAboveThreshold = errors.New("no reference point is at or above the low-dose threshold")
-
 // CompareGrids computes Γ for every voxel of the reference grid against the
 // evaluated grid. The grids must be in the same patient coordinates (same
 // frame of reference); they may differ in spacing, offset, extent and axis
@@ -508,7 +504,19 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 	for a := 0; a < 3; a++ {
 		dilate(mask, f.n, lo, hi, a, span[a])
 	}
-	var coords []float32
+	count := 0
+	for k := lo[2]; k <= hi[2]; k++ {
+		for j := lo[1]; j <= hi[1]; j++ {
+			row := f.n[0] * (j + f.n[1]*k)
+			for _, in := range mask[row+lo[0] : row+hi[0]+1] {
+				if in {
+					count++
+				}
+			}
+		}
+	}
+	coords := make([]float32, 0, 4*count)
+	s.nodes = make([]int32, 0, count)
 	for k := lo[2]; k <= hi[2]; k++ {
 		for j := lo[1]; j <= hi[1]; j++ {
 			row := f.n[0] * (j + f.n[1]*k)
