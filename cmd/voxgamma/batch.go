@@ -17,7 +17,6 @@ import (
 	"github.com/spf13/cobra"
 
 	"voxgamma/batch"
-	"voxgamma/job"
 	"voxgamma/protocol"
 )
 
@@ -25,17 +24,10 @@ import (
 // the protocol for cases that name none, criteria overrides, ROI rules and
 // the optional outputs.
 type caseFlags struct {
+	comparisonFlags
 	protocol                        string
-	criteria                        string
-	local                           bool
-	threshold, normDose, search     float64
-	kindRules                       []string
-	isodose, vDoses                 []float64
-	subgrid                         []string
-	subgridStep, minClusterCC       float64
-	exhaustive, allowFrameMismatch  bool
+	allowFrameMismatch              bool
 	gammaMap, diffMap, report, deid bool
-	workers                         int
 }
 
 func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
@@ -59,33 +51,6 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 	fl.BoolVar(&f.report, "report", false, "also write each case's review page as report.html")
 	fl.BoolVar(&f.deid, "deidentify", false, "replace patient names and IDs with a hash and leave dates out of every output")
 	fl.IntVar(&f.workers, "workers", 0, "gamma worker goroutines per case (default: the cores divided among the cases run at once)")
-}
-
-// overrides turns the flags given into job overrides: flags not given
-// leave each protocol's value.
-func (f *caseFlags) overrides(cmd *cobra.Command) job.Overrides {
-	changed := func(name string) bool { return cmd.Flags().Changed(name) }
-	ov := job.Overrides{KindRules: f.kindRules, VDoses: f.vDoses, SubGrid: f.subgrid, SubGridStep: f.subgridStep,
-		MinClusterCC: f.minClusterCC, Workers: f.workers, Exhaustive: f.exhaustive, Version: version}
-	if changed("criteria") {
-		ov.Criteria = f.criteria
-	}
-	if changed("local") {
-		ov.Local = &f.local
-	}
-	if changed("threshold") {
-		ov.Threshold = &f.threshold
-	}
-	if changed("norm-dose") {
-		ov.NormDose = &f.normDose
-	}
-	if changed("search") {
-		ov.Search = &f.search
-	}
-	if changed("isodose") {
-		ov.Isodose = append([]float64{}, f.isodose...)
-	}
-	return ov
 }
 
 func (f *caseFlags) outputs() batch.Outputs {

@@ -20,22 +20,56 @@ import (
 
 // compareFlags are the options of compare (and of the commands built on it).
 type compareFlags struct {
+	comparisonFlags
 	reference, referencePoints, evaluated, structures string
-	criteria                                          string
-	local                                             bool
-	threshold, normDose, search                       float64
 	protocol                                          string
 	jsonOut, csvOut, gammaMap, diffMap, reportOut     string
-	workers                                           int
-	kindRules                                         []string
-	isodose                                           []float64
-	vDoses                                            []float64
-	subgrid                                           []string
-	subgridStep                                       float64
-	exhaustive                                        bool
 	allowFrameMismatch, force, deidentify             bool
-	minClusterCC                                      float64
 	maxMemory                                         string
+}
+
+// comparisonFlags are the options that shape a comparison beyond its
+// protocol, shared by compare, sweep, batch and watch (each registers them
+// with its own wording).
+type comparisonFlags struct {
+	criteria                    string
+	local                       bool
+	threshold, normDose, search float64
+	kindRules                   []string
+	isodose, vDoses             []float64
+	subgrid                     []string
+	subgridStep, minClusterCC   float64
+	exhaustive                  bool
+	workers                     int
+}
+
+// overrides turns the options given on the command line into job
+// overrides: options not given leave the protocol's values.
+func (f *comparisonFlags) overrides(cmd *cobra.Command) job.Overrides {
+	changed := func(name string) bool { return cmd.Flags().Changed(name) }
+	ov := job.Overrides{
+		KindRules: f.kindRules, VDoses: f.vDoses, SubGrid: f.subgrid, SubGridStep: f.subgridStep,
+		MinClusterCC: f.minClusterCC, Workers: f.workers, Exhaustive: f.exhaustive, Version: version,
+	}
+	if changed("criteria") {
+		ov.Criteria = f.criteria
+	}
+	if changed("local") {
+		ov.Local = &f.local
+	}
+	if changed("threshold") {
+		ov.Threshold = &f.threshold
+	}
+	if changed("norm-dose") {
+		ov.NormDose = &f.normDose
+	}
+	if changed("search") {
+		ov.Search = &f.search
+	}
+	if changed("isodose") {
+		ov.Isodose = append([]float64{}, f.isodose...)
+	}
+	return ov
 }
 
 func (f *compareFlags) register(cmd *cobra.Command) {
@@ -152,30 +186,7 @@ func settingsFrom(cmd *cobra.Command, f *compareFlags) (analysis.Settings, error
 	if err != nil {
 		return analysis.Settings{}, fmt.Errorf("--protocol: %w", err)
 	}
-	changed := func(name string) bool { return cmd.Flags().Changed(name) }
-	ov := job.Overrides{
-		KindRules: f.kindRules, VDoses: f.vDoses, SubGrid: f.subgrid, SubGridStep: f.subgridStep,
-		MinClusterCC: f.minClusterCC, Workers: f.workers, Exhaustive: f.exhaustive, Version: version,
-	}
-	if changed("criteria") {
-		ov.Criteria = f.criteria
-	}
-	if changed("local") {
-		ov.Local = &f.local
-	}
-	if changed("threshold") {
-		ov.Threshold = &f.threshold
-	}
-	if changed("norm-dose") {
-		ov.NormDose = &f.normDose
-	}
-	if changed("search") {
-		ov.Search = &f.search
-	}
-	if changed("isodose") {
-		ov.Isodose = append([]float64{}, f.isodose...)
-	}
-	return job.Settings(p, ov)
+	return job.Settings(p, f.overrides(cmd))
 }
 
 func (f *compareFlags) outputs() job.Outputs {

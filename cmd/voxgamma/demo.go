@@ -39,7 +39,7 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 			if !g.quiet {
 				fmt.Fprintf(g.stdout, "demo case written to %s (reference.dcm, evaluated.dcm, structures.dcm)\n", dir)
 			}
-			f := &compareFlags{protocol: "tg218", subgridStep: 0.5, minClusterCC: 0.01, workers: workers}
+			f := &compareFlags{protocol: "tg218", comparisonFlags: comparisonFlags{subgridStep: 0.5, minClusterCC: 0.01, workers: workers}}
 			s, err := settingsFrom(cmd, f)
 			if err != nil {
 				return err
