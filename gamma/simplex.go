@@ -83,56 +83,42 @@ func cellMinPL(c *[8]float64, lo, h, inv, q [3]float64, dr, w, ds2, best2 float6
 	}
 	var pts [8][4]float64 // built on first need
 	built := false
+	// First, for all six tetrahedra in straight-line code, the two lower
+	// bounds: the box distance with the gap between dr and the dose range,
+	// and the distance to the tetrahedron's hyperplane.
+	var lbs, planes, ks [6]float64
+	var gs [6][3]float64
 	for ti := range kuhn {
 		tet := &kuhn[ti]
 		d0, d1, d2, d3 := d[tet[0]], d[tet[1]], d[tet[2]], d[tet[3]]
-		// Lower bound: the box distance and the gap between dr and the
-		// tetrahedron's dose range.
-		{
-			lo4, hi4 := d0, d0
-			if d1 < lo4 {
-				lo4 = d1
-			} else if d1 > hi4 {
-				hi4 = d1
-			}
-			if d2 < lo4 {
-				lo4 = d2
-			} else if d2 > hi4 {
-				hi4 = d2
-			}
-			if d3 < lo4 {
-				lo4 = d3
-			} else if d3 > hi4 {
-				hi4 = d3
-			}
-			gap := 0.0
-			if lo4 > 0 {
-				gap = lo4
-			} else if hi4 < 0 {
-				gap = -hi4
-			}
-			if ds2+gap*gap >= best2 {
-				continue
-			}
-		}
+		lo4 := min(d0, d1, d2, d3)
+		hi4 := max(d0, d1, d2, d3)
+		gap := max(lo4, -hi4, 0)
 		// The weighted dose gradient G (per DTA unit) along the Kuhn path
 		// v0 → v1 → v2 → v3, one axis per step.
 		perm := &kuhnPerm[ti]
-		a0, a1, a2 := perm[0], perm[1], perm[2]
-		var g [3]float64
-		g[a0] = (d1 - d0) * inv[a0]
-		g[a1] = (d2 - d1) * inv[a1]
-		g[a2] = (d3 - d2) * inv[a2]
+		g := &gs[ti]
+		g[perm[0]] = (d1 - d0) * inv[perm[0]]
+		g[perm[1]] = (d2 - d1) * inv[perm[1]]
+		g[perm[2]] = (d3 - d2) * inv[perm[2]]
 		// e: the weighted dose difference of the linear extension at q.
 		e := d0 + g[0]*qlo[0] + g[1]*qlo[1] + g[2]*qlo[2]
 		den := 1 + g[0]*g[0] + g[1]*g[1] + g[2]*g[2]
-		plane := e * e / den
-		if plane >= best2 {
+		ks[ti] = e / den
+		planes[ti] = e * ks[ti]
+		lbs[ti] = max(ds2+gap*gap, planes[ti])
+	}
+	for ti := range kuhn {
+		if lbs[ti] >= best2 {
 			continue
 		}
+		tet := &kuhn[ti]
+		perm := &kuhnPerm[ti]
+		a0, a1, a2 := perm[0], perm[1], perm[2]
+		g := &gs[ti]
+		plane, k := planes[ti], ks[ti]
 		// The foot of the perpendicular, q − (e/den)·G, in cell fractions,
 		// and its barycentric coordinates in the tetrahedron.
-		k := e / den
 		t0 := u[a0] - k*g[a0]*inv[a0]
 		t1 := u[a1] - k*g[a1]*inv[a1]
 		t2 := u[a2] - k*g[a2]*inv[a2]
