@@ -164,21 +164,10 @@ func (f *field) slabDist2(a, c int, u float64) float64 {
 // cell: the piecewise-linear interpolant never leaves the range of its
 // corners.
 func doseGap2(c *[8]float64, dr, w float64) float64 {
-	cmin, cmax := c[0], c[0]
-	for _, v := range c[1:] {
-		if v < cmin {
-			cmin = v
-		}
-		if v > cmax {
-			cmax = v
-		}
-	}
-	gap := 0.0
-	if dr < cmin {
-		gap = cmin - dr
-	} else if dr > cmax {
-		gap = dr - cmax
-	}
+	// Straight-line code: branches on dose values mispredict.
+	cmin := min(c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7])
+	cmax := max(c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7])
+	gap := max(cmin-dr, dr-cmax, 0)
 	return w * w * gap * gap
 }
 
