@@ -259,10 +259,9 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 	threshold := c.ThresholdPercent / 100 * c.NormDose
 	wGlobal := 1 / (c.DosePercent / 100 * c.NormDose)
 
-	// Classify every point, in parallel.
-	var counted atomic.Int64
-	cls := &pool{ctx: ctx, n: n, workers: workers}
-	if err := cls.run(false, func(i int, _ *scratch) bool {
+	// classify sets point i's status (Evaluated: still to be searched) and
+	// returns its position and dose.
+	classify := func(i int) ([3]float64, float64, bool) {
 		res.Gamma[i] = float32(math.NaN())
 		q, d := src.at(i)
 		switch {
@@ -273,19 +272,11 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		case !f.inside(q):
 			res.Status[i] = Outside
 		default:
-			res.Status[i] = Evaluated // provisional: to be searched
-			counted.Add(1)
+			res.Status[i] = Evaluated
+			return q, d, true
 		}
-		return false
-	}); err != nil {
-		return nil, fmt.Errorf("gamma: %w", err)
+		return q, d, false
 	}
-	todo := int(counted.Load())
-	if todo == 0 {
-		res.Stats = res.StatsAll()
-		return res, nil
-	}
-
 	s := &searcher{f: f, rn: c.Search / c.DTA, treeFrom: treeFrom}
 	weight := func(d float64) float64 {
 		if c.Normalisation == Local {
@@ -303,7 +294,7 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 			res.Gamma[i] = float32(math.Sqrt(g2))
 		}
 	}
-	p := &pool{ctx: ctx, n: n, workers: workers, progress: opt.Progress, total: todo}
+	p := &pool{ctx: ctx, n: n, workers: workers, progress: opt.Progress}
 	var err error
 	if opt.Method == Exhaustive {
 		step := opt.ExhaustiveStep
@@ -313,23 +304,29 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		s.latStep = step / c.DTA
 		s.grid = eval
 		s.dta = c.DTA
-		err = p.run(true, func(i int, sc *scratch) bool {
-			if res.Status[i] != Evaluated {
-				return false
-			}
-			q, d := src.at(i)
-			finish(i, s.exhaustive(q, d, weight(d)))
-			return true
+		p.total, err = p.run(false, func(i int, _ *scratch) bool {
+			_, _, ok := classify(i)
+			return ok
 		})
+		if err == nil && p.total > 0 {
+			_, err = p.run(true, func(i int, sc *scratch) bool {
+				if res.Status[i] != Evaluated {
+					return false
+				}
+				q, d := src.at(i)
+				finish(i, s.exhaustive(q, d, weight(d)))
+				return true
+			})
+		}
 	} else {
-		// Pass 1: the bound from the cell holding each point, kept as Γ²
-		// in Gamma; points whose bound stays above treeFrom are marked for
-		// the k-d tree.
-		err = p.run(false, func(i int, sc *scratch) bool {
-			if res.Status[i] != Evaluated {
+		// Pass 1: classification, and the bound from the cell holding each
+		// point, kept as Γ² in Gamma; points whose bound stays above
+		// treeFrom are marked for the k-d tree.
+		p.total, err = p.run(false, func(i int, sc *scratch) bool {
+			q, d, ok := classify(i)
+			if !ok {
 				return false
 			}
-			q, d := src.at(i)
 			b2 := s.home(q, d, weight(d))
 			res.Gamma[i] = float32(b2)
 			if b2 > s.treeFrom {
@@ -337,13 +334,13 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 			}
 			return true
 		})
-		if err == nil {
+		if err == nil && p.total > 0 {
 			// The tree covers the evaluated nodes within the search
 			// distance of the marked points only.
 			s.buildTree(src, res.Status, wGlobal)
 			// Pass 2: the tree where marked, then every other cell that
 			// could beat the bound.
-			err = p.run(true, func(i int, sc *scratch) bool {
+			_, err = p.run(true, func(i int, sc *scratch) bool {
 				st := res.Status[i]
 				if st != Evaluated && st != needsTree {
 					return false
@@ -421,10 +418,10 @@ type pool struct {
 }
 
 // run calls fn for every point; fn reports whether it evaluated the point
-// (for progress, reported when report is set). Each worker goroutine takes
-// the next block from a shared counter and keeps one scratch for all its
-// blocks.
-func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) error {
+// (for progress, reported when report is set). It returns how many points
+// fn evaluated. Each worker goroutine takes the next block from a shared
+// counter and keeps one scratch for all its blocks.
+func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) (int, error) {
 	var mu sync.Mutex
 	var next atomic.Int64
 	done := 0
@@ -454,16 +451,17 @@ func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) error {
 						count++
 					}
 				}
+				mu.Lock()
+				done += count
 				if report && p.progress != nil {
-					mu.Lock()
-					done += count
 					p.progress(done, p.total)
-					mu.Unlock()
 				}
+				mu.Unlock()
 			}
 		})
 	}
-	return g.Wait()
+	err := g.Wait()
+	return done, err
 }
 
 // buildTree builds the k-d tree over the evaluated nodes within the search
