@@ -13,6 +13,8 @@ import (
 	"strings"
 	"sync"
 	"testing"
+
+	"voxgamma/internal/reftool"
 )
 
 // installHint says how to get every external reference tool the tests use.
@@ -22,58 +24,40 @@ const installHint = "apt-get install python3-pydicom python3-numpy dcmtk dicom3t
 // skips it elsewhere.
 func missingTool(t *testing.T, what string, err error) {
 	t.Helper()
-	msg := fmt.Sprintf("%s is not available (%v); install the reference tools with: %s", what, err, installHint)
-	if os.Getenv("CI") != "" {
-		t.Fatal(msg)
-	}
-	t.Skip(msg)
+	reftool.Missing(t, what, err, installHint)
 }
 
 // requireTool returns the path of an external program (dcmdump, dcmftest,
 // dciodvfy).
 func requireTool(t *testing.T, name string) string {
 	t.Helper()
-	p, err := exec.LookPath(name)
-	if err != nil {
-		missingTool(t, name, err)
-	}
-	return p
+	return reftool.Program(t, name, installHint)
 }
 
 var (
-	pythonOnce     sync.Once
-	pythonPath     string
-	pythonErr      error
+	dataDirOnce    sync.Once
 	pydicomDataDir string
+	dataDirErr     error
 )
 
-// requirePython returns a python3 that imports pydicom and numpy. The
-// python3 first on PATH may be another installation than Debian's, whose
-// packages live in /usr/lib/python3/dist-packages, so /usr/bin/python3 is
-// tried too.
+// requirePython returns a python3 that imports pydicom and numpy, and
+// finds where Debian's python3-pydicom keeps the pydicom project's test
+// files.
 func requirePython(t *testing.T) string {
 	t.Helper()
-	pythonOnce.Do(func() {
-		var cands []string
-		if p, err := exec.LookPath("python3"); err == nil {
-			cands = append(cands, p)
+	py := reftool.Python(t, installHint, "pydicom", "numpy")
+	dataDirOnce.Do(func() {
+		out, err := exec.Command(py, "-c", "import os, pydicom; print(os.path.join(os.path.dirname(pydicom.__file__), 'data', 'test_files'))").CombinedOutput()
+		if err != nil {
+			dataDirErr = fmt.Errorf("%s: %v: %s", py, err, strings.TrimSpace(string(out)))
+			return
 		}
-		cands = append(cands, "/usr/bin/python3")
-		pythonErr = fmt.Errorf("no python3 found")
-		for _, c := range cands {
-			out, err := exec.Command(c, "-c", "import os, pydicom, numpy; print(os.path.join(os.path.dirname(pydicom.__file__), 'data', 'test_files'))").CombinedOutput()
-			if err == nil {
-				pythonPath, pythonErr = c, nil
-				pydicomDataDir = strings.TrimSpace(string(out))
-				return
-			}
-			pythonErr = fmt.Errorf("%s: %v: %s", c, err, strings.TrimSpace(string(out)))
-		}
+		pydicomDataDir = strings.TrimSpace(string(out))
 	})
-	if pythonErr != nil {
-		missingTool(t, "python3 with pydicom and numpy", pythonErr)
+	if dataDirErr != nil {
+		missingTool(t, "pydicom's test files", dataDirErr)
 	}
-	return pythonPath
+	return py
 }
 
 // pydicomTestFile returns the path of one of the pydicom project's test

@@ -12,30 +12,15 @@ import (
 	"strings"
 	"testing"
 
+	"voxgamma/internal/reftool"
 	"voxgamma/phantom"
 )
 
-// numpyPython returns a Python 3 interpreter that imports numpy (Debian's
-// python3-numpy is for /usr/bin/python3, which may not be the python3 first
-// on PATH). Without one the test fails when the environment variable CI is
-// set and is skipped otherwise.
+// numpyPython returns a Python 3 interpreter that imports numpy, or fails
+// (CI) or skips the test.
 func numpyPython(t *testing.T) string {
 	t.Helper()
-	var cands []string
-	if p, err := exec.LookPath("python3"); err == nil {
-		cands = append(cands, p)
-	}
-	cands = append(cands, "/usr/bin/python3")
-	for _, p := range cands {
-		if err := exec.Command(p, "-c", "import numpy").Run(); err == nil {
-			return p
-		}
-	}
-	if os.Getenv("CI") != "" {
-		t.Fatalf("python3 with numpy not found (tried %v): CI must provide it (apt-get install python3-numpy)", cands)
-	}
-	t.Skipf("python3 with numpy not found (tried %v); apt-get install python3-numpy", cands)
-	return ""
+	return reftool.Python(t, "apt-get install python3-numpy", "numpy")
 }
 
 // numpyScript computes, from doses and volumes, the weighted D_x by the

@@ -10,14 +10,13 @@ import (
 	"fmt"
 	"math"
 	"os"
-	"os/exec"
 	"path/filepath"
 	"sort"
 	"strings"
-	"sync"
 	"testing"
 
 	"voxgamma/dicomio"
+	"voxgamma/internal/reftool"
 	"voxgamma/phantom"
 	"voxgamma/result"
 	"voxgamma/structure"
@@ -331,40 +330,9 @@ func newUniformCase(t *testing.T, d0, k float64) uniformCase {
 	return c
 }
 
-// python returns a python3 that imports pydicom and numpy: the first
-// python3 on PATH, else Debian's /usr/bin/python3 (where python3-pydicom
-// installs). When there is none the test fails on CI and is skipped
-// elsewhere.
-var (
-	pyOnce sync.Once
-	pyPath string
-	pyErr  error
-)
-
+// requirePydicom returns a python3 that imports pydicom and numpy, or fails
+// (CI) or skips the test.
 func requirePydicom(t *testing.T) string {
 	t.Helper()
-	pyOnce.Do(func() {
-		var cands []string
-		if p, err := exec.LookPath("python3"); err == nil {
-			cands = append(cands, p)
-		}
-		cands = append(cands, "/usr/bin/python3")
-		pyErr = fmt.Errorf("no python3 found")
-		for _, c := range cands {
-			out, err := exec.Command(c, "-c", "import pydicom, numpy").CombinedOutput()
-			if err == nil {
-				pyPath, pyErr = c, nil
-				return
-			}
-			pyErr = fmt.Errorf("%s: %v: %s", c, err, strings.TrimSpace(string(out)))
-		}
-	})
-	if pyErr != nil {
-		msg := fmt.Sprintf("python3 with pydicom and numpy is not available (%v): apt-get install python3-pydicom python3-numpy", pyErr)
-		if os.Getenv("CI") != "" {
-			t.Fatalf("%s", msg)
-		}
-		t.Skipf("%s", msg)
-	}
-	return pyPath
+	return reftool.Python(t, "apt-get install python3-pydicom python3-numpy", "pydicom", "numpy")
 }
