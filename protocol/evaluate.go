@@ -182,7 +182,11 @@ func measured(base result.RuleOutcome, m metric, o op, v float64) result.RuleOut
 		if o == opAbsLE {
 			what = "|value| "
 		}
-		base.Reason = fmt.Sprintf("measured %s%s, %snot %s %s%s", num(v), m.unit(), what, o.symbol(), num(base.Limit), m.unit())
+		text := measuredText(v)
+		if text == num(base.Limit) {
+			text = num(v) // all digits, so it does not read as the limit
+		}
+		base.Reason = fmt.Sprintf("measured %s%s, %snot %s %s%s", text, m.unit(), what, o.symbol(), num(base.Limit), m.unit())
 	}
 	return base
 }

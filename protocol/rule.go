@@ -329,3 +329,7 @@ func (r Rule) String() string {
 
 // num writes a number in the shortest form that reads back exactly.
 func num(v float64) string { return strconv.FormatFloat(v, 'f', -1, 64) }
+
+// measuredText formats a measured value with 8 significant digits (the
+// caller shows all digits when these would read as the limit itself).
+func measuredText(v float64) string { return strconv.FormatFloat(v, 'g', 8, 64) }
