@@ -12,7 +12,6 @@ import (
 	"os"
 	"path"
 	"path/filepath"
-	"regexp"
 	"sort"
 	"strings"
 	"time"
@@ -568,8 +567,6 @@ func (w *Watcher) Run(ctx context.Context, poll time.Duration) error {
 	}
 }
 
-var otherModality = regexp.MustCompile(`Modality \(0008,0060\): (is (\S+), want|missing)`)
-
 // classify reads a file's header (once per size and modification time).
 func (w *Watcher) classify(p string) *watchFile {
 	o := w.obs[p]
@@ -588,21 +585,21 @@ func (w *Watcher) classify(p string) *watchFile {
 	case errors.Is(err, dicomio.ErrNotDICOM):
 		f.kind, f.reason = kindOther, "not a DICOM file"
 	default:
-		m := otherModality.FindStringSubmatch(err.Error())
+		var me *dicomio.ModalityError
 		switch {
-		case m == nil:
+		case !errors.As(err, &me):
 			f.kind, f.reason = kindBroken, "unreadable RT Dose: "+err.Error()
-		case m[2] == "RTSTRUCT":
+		case me.Got == "RTSTRUCT":
 			set, err := dicomio.ReadStructureSet(p)
 			if err != nil {
 				f.kind, f.reason = kindBroken, "unreadable RT Structure Set: "+err.Error()
 			} else {
 				f.kind, f.frame = kindStruct, set.FrameOfReferenceUID
 			}
-		case m[2] == "":
+		case me.Got == "":
 			f.kind, f.reason = kindOther, "DICOM file without a Modality"
 		default:
-			f.kind, f.reason = kindOther, "modality "+m[2]
+			f.kind, f.reason = kindOther, "modality "+me.Got
 		}
 	}
 	if o != nil {

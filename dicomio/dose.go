@@ -180,12 +180,8 @@ func (d dataset) identifiers() Identifiers {
 
 // modality checks the Modality (0008,0060).
 func (d dataset) modality(want string) error {
-	m := d.str(tagModality)
-	if m == "" {
-		return missing(tagModality, "want "+want)
-	}
-	if m != want {
-		return invalid(tagModality, "is %s, want %s", m, want)
+	if m := d.str(tagModality); m != want {
+		return &ModalityError{Got: m, Want: want}
 	}
 	return nil
 }

@@ -57,3 +57,24 @@ func missing(t tag.Tag, why string) error {
 	}
 	return invalid(t, "missing")
 }
+
+// ModalityError is returned (wrapped, matching ErrInvalid) when a file's
+// Modality (0008,0060) is not the one asked for: an RT Structure Set where
+// a dose is expected, a CT image, a plan. Callers sorting files by kind use
+// errors.As to read Got instead of parsing the message.
+type ModalityError struct {
+	// Got is the file's Modality, empty when the file has none.
+	Got string
+	// Want is the modality asked for.
+	Want string
+}
+
+func (e *ModalityError) Error() string {
+	if e.Got == "" {
+		return tagString(tagModality) + ": missing (want " + e.Want + ")"
+	}
+	return tagString(tagModality) + ": is " + e.Got + ", want " + e.Want
+}
+
+// Unwrap makes a ModalityError match ErrInvalid.
+func (e *ModalityError) Unwrap() error { return ErrInvalid }

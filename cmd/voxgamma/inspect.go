@@ -121,11 +121,11 @@ func inspectPath(g *globals, path string, rules []roi.Rule) error {
 		fmt.Fprintln(w)
 		return nil
 	}
-	// Neither: report the more specific of the two reasons.
-	if errors.Is(derr, dicomio.ErrNotDICOM) {
-		return derr
-	}
-	if strings.Contains(derr.Error(), "RTSTRUCT") || strings.Contains(derr.Error(), "Modality") {
+	// Neither: report the more specific of the two reasons. A file that is
+	// not a dose says so through its modality; then the structure set
+	// reader's reason is the one that matters.
+	var me *dicomio.ModalityError
+	if errors.As(derr, &me) {
 		return serr
 	}
 	return derr
