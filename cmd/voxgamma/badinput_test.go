@@ -596,11 +596,7 @@ func TestBadInputWrongModality(t *testing.T) {
 // length, only for SQ, items and OB/OW/UN, PS3.5 section 7.1.2 and 7.5).
 func TestBadInputLengths(t *testing.T) {
 	f := newBadFixture(t)
-	for _, tc := range []struct {
-		name  string
-		data  []byte
-		cause []string
-	}{
+	refuseReferences(t, f, "RD_len.dcm", []patchedFile{
 		// A 4-byte length (OW) beyond the end of the file.
 		{"PixelData_length_beyond_file", setLength(t, f.refBytes, tgPixelData, 0xFFFFFFF0), []string{"PixelData (7FE0,0010): claims 4294967280 bytes"}},
 		// A 2-byte length (DS) running past the element after it, into
@@ -630,16 +626,32 @@ func TestBadInputLengths(t *testing.T) {
 		// NumberOfFrames beyond a 32-bit integer.
 		{"NumberOfFrames_overflow", setText(t, f.refBytes, tgFrames, "99999999999999999999"), []string{"NumberOfFrames (0028,0008)"}},
 		{"NumberOfFrames_negative", setText(t, f.refBytes, tgFrames, "-8"), []string{"NumberOfFrames (0028,0008): is -8"}},
-	} {
-		t.Run(tc.name, func(t *testing.T) {
-			p := f.file(t, "RD_len.dcm", tc.data)
-			refused(t, compareArgs(p, f.eval, ""), append([]string{"reading " + p + ": "}, tc.cause...)...)
-		})
-	}
+	})
 }
 
 // ---------------------------------------------------------------------------
 // Geometry, dose values and units.
+
+// patchedFile is a damaged copy of the fixture's reference dose and the
+// causes its refusal must name.
+type patchedFile struct {
+	name  string
+	data  []byte
+	cause []string
+}
+
+// refuseReferences gives each patched file as the reference dose (under the
+// file name given) and checks that compare refuses it, naming the file and
+// each cause.
+func refuseReferences(t *testing.T, f *badFixture, file string, cases []patchedFile) {
+	t.Helper()
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			p := f.file(t, file, tc.data)
+			refused(t, compareArgs(p, f.eval, ""), append([]string{"reading " + p + ": "}, tc.cause...)...)
+		})
+	}
+}
 
 // TestBadInputGeometry: the Image Plane module (PS3.3 C.7.6.2) and the
 // GridFrameOffsetVector (C.8.8.3.2) with values a grid cannot have, each
@@ -660,11 +672,7 @@ func TestBadInputGeometry(t *testing.T) {
 	if got := string(ref[findElem(t, ref, tgGFOV, 0).val:findElem(t, ref, tgGFOV, 0).end()]); strings.TrimSpace(got) != `0\2\4\6\8\10\12\14` {
 		t.Fatalf("GridFrameOffsetVector %q: the fixture changed", got)
 	}
-	for _, tc := range []struct {
-		name  string
-		data  []byte
-		cause []string
-	}{
+	refuseReferences(t, f, "RD_geom.dcm", []patchedFile{
 		{"PixelSpacing_zero", setText(t, ref, tgPixelSpacing, `0\2`), []string{"PixelSpacing (0028,0030): value 1 is 0 mm, want a positive finite spacing"}},
 		{"PixelSpacing_negative", setText(t, ref, tgPixelSpacing, `2\-2`), []string{"PixelSpacing (0028,0030): value 2 is -2 mm"}},
 		{"PixelSpacing_NaN", setText(t, ref, tgPixelSpacing, `NaN\2`), []string{"PixelSpacing (0028,0030): value 1 is NaN mm"}},
@@ -686,12 +694,7 @@ func TestBadInputGeometry(t *testing.T) {
 		{"Columns_too_few", setUS(t, ref, tgColumns, 11), []string{"= 12 × 11 × 8 voxels of 16 bits need 2112 bytes but PixelData (7FE0,0010) holds 2304"}},
 		{"NumberOfFrames_too_few", setText(t, ref, tgFrames, "7"), []string{"= 12 × 12 × 7 voxels of 16 bits need 2016 bytes but PixelData (7FE0,0010) holds 2304"}},
 		{"Rows_zero", setUS(t, ref, tgRows, 0), []string{"Rows (0028,0010): is 0, want at least 1"}},
-	} {
-		t.Run(tc.name, func(t *testing.T) {
-			p := f.file(t, "RD_geom.dcm", tc.data)
-			refused(t, compareArgs(p, f.eval, ""), append([]string{"reading " + p + ": "}, tc.cause...)...)
-		})
-	}
+	})
 }
 
 // TestBadInputDose: dose values that are not doses. RT Dose stores
@@ -725,11 +728,7 @@ func TestBadInputDose(t *testing.T) {
 	if _, err := dicomio.WriteDose(relative, f.evalFile.grid, f.ids, writeRelative); err != nil {
 		t.Fatal(err)
 	}
-	for _, tc := range []struct {
-		name  string
-		data  []byte
-		cause []string
-	}{
+	refuseReferences(t, f, "RD_dose.dcm", []patchedFile{
 		{"DoseGridScaling_NaN", setText(t, ref, tgScaling, "NaN"), []string{"DoseGridScaling (3004,000E): is NaN, want a positive finite number"}},
 		{"DoseGridScaling_Inf", setText(t, ref, tgScaling, "Inf"), []string{"DoseGridScaling (3004,000E): is +Inf, want a positive finite number"}},
 		{"DoseGridScaling_zero", setText(t, ref, tgScaling, "0"), []string{"DoseGridScaling (3004,000E): is 0, want a positive finite number"}},
@@ -744,12 +743,7 @@ func TestBadInputDose(t *testing.T) {
 		{"negative_dose_no_DoseType", dropElem(t, signedBytes, tgDoseType), []string{"has dose -0.5", "DoseType (3004,0004) is \"\""}},
 		{"DoseUnits_CGY", setText(t, ref, tgDoseUnits, "CGY"), []string{"DoseUnits (3004,0002): is CGY, want GY or RELATIVE"}},
 		{"DoseUnits_missing", dropElem(t, ref, tgDoseUnits), []string{"DoseUnits (3004,0002): missing"}},
-	} {
-		t.Run(tc.name, func(t *testing.T) {
-			p := f.file(t, "RD_dose.dcm", tc.data)
-			refused(t, compareArgs(p, f.eval, ""), append([]string{"reading " + p + ": "}, tc.cause...)...)
-		})
-	}
+	})
 	t.Run("RELATIVE_against_GY", func(t *testing.T) {
 		refused(t, compareArgs(f.ref, relative, ""), "dose units differ", filepath.Base(f.ref), "GY", filepath.Base(relative), "RELATIVE")
 	})
