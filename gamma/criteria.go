@@ -71,27 +71,49 @@ func (c Criteria) Label() string {
 
 func trim(v float64) string { return strconv.FormatFloat(v, 'f', -1, 64) }
 
-// Validate reports the first criterion that is out of range.
+// CriteriaError is the error of Validate: which criterion is out of
+// range, its value, and what is wanted.
+type CriteriaError struct {
+	// Field names the criterion: "dose", "dta", "threshold", "norm-dose",
+	// "search" or "normalisation" (the command-line option's name where
+	// there is one).
+	Field string
+	// Value is the value refused.
+	Value float64
+	// Want says what is wanted.
+	Want string
+}
+
+// Error names the criterion, its value and what is wanted.
+func (e *CriteriaError) Error() string {
+	names := map[string]string{"dose": "dose criterion", "dta": "DTA", "threshold": "threshold", "norm-dose": "normalisation dose",
+		"search": "search distance", "normalisation": "normalisation"}
+	return fmt.Sprintf("%s %g: %s", names[e.Field], e.Value, e.Want)
+}
+
+// Validate reports the first criterion that is out of range, as a
+// *CriteriaError.
 func (c Criteria) Validate() error {
+	bad := func(field string, v float64, want string) error { return &CriteriaError{field, v, want} }
 	switch {
 	case !(c.DosePercent > 0) || math.IsInf(c.DosePercent, 0):
-		return fmt.Errorf("dose criterion %g %%: want a positive percentage", c.DosePercent)
+		return bad("dose", c.DosePercent, "want a positive percentage")
 	case !(c.DTA > 0) || math.IsInf(c.DTA, 0):
-		return fmt.Errorf("DTA %g mm: want a positive distance", c.DTA)
+		return bad("dta", c.DTA, "want a positive distance in mm")
 	case !(c.ThresholdPercent >= 0 && c.ThresholdPercent < 100):
-		return fmt.Errorf("threshold %g %%: want a value from 0 to below 100", c.ThresholdPercent)
+		return bad("threshold", c.ThresholdPercent, "want a percentage from 0 to below 100")
 	case c.NormDose < 0 || math.IsNaN(c.NormDose) || math.IsInf(c.NormDose, 0):
-		return fmt.Errorf("normalisation dose %g Gy: want a positive dose (or 0 for the reference maximum)", c.NormDose)
+		return bad("norm-dose", c.NormDose, "want a positive dose in Gy (or 0 for the reference maximum)")
 	case c.Search < 0 || math.IsNaN(c.Search) || math.IsInf(c.Search, 0):
-		return fmt.Errorf("search distance %g mm: want a positive distance (or 0 for 3×DTA)", c.Search)
+		return bad("search", c.Search, "want a positive distance in mm (or 0 for 3×DTA)")
 	case c.Search > 0 && c.Search <= c.DTA:
 		// Any point with Γ ≤ 1 has its minimum within Δd of the reference
 		// point, and a point with none within the search distance is
 		// reported as Γ = search/Δd and failed: a search no longer than Δd
 		// would fail points that pass, with a Γ of at most 1.
-		return fmt.Errorf("search distance %g mm is not longer than the DTA %g mm: points that pass could be missed and reported failing", c.Search, c.DTA)
+		return bad("search", c.Search, fmt.Sprintf("not longer than the DTA %g mm: points that pass could be missed and reported failing", c.DTA))
 	case c.Normalisation != Global && c.Normalisation != Local:
-		return fmt.Errorf("normalisation %d: want global or local", c.Normalisation)
+		return bad("normalisation", float64(c.Normalisation), "want global or local")
 	}
 	return nil
 }

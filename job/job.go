@@ -13,7 +13,6 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
-	"math"
 	"os"
 	"path/filepath"
 	"sort"
@@ -90,29 +89,36 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 			c.Normalisation = gamma.Local
 		}
 	}
+	// In gamma.Criteria, 0 means "the default" for the normalisation dose
+	// and the search distance; given as an option, 0 is a mistake.
 	if ov.Threshold != nil {
-		if t := *ov.Threshold; !(t >= 0 && t < 100) || math.IsInf(t, 0) {
-			return s, fmt.Errorf("--threshold %g: want a percentage from 0 to below 100", t)
-		}
 		c.ThresholdPercent = *ov.Threshold
 	}
 	if ov.NormDose != nil {
-		if !(*ov.NormDose > 0) || math.IsInf(*ov.NormDose, 0) {
-			return s, fmt.Errorf("--norm-dose %g: want a dose above 0 Gy", *ov.NormDose)
+		if *ov.NormDose == 0 {
+			return s, fmt.Errorf("--norm-dose 0: want a dose above 0 Gy")
 		}
 		c.NormDose = *ov.NormDose
 	}
 	if ov.Search != nil {
-		if !(*ov.Search > 0) || math.IsInf(*ov.Search, 0) {
-			return s, fmt.Errorf("--search %g: want a distance above 0 mm", *ov.Search)
-		}
-		if *ov.Search <= c.DTA {
-			return s, fmt.Errorf("--search %g mm is not longer than the DTA %g mm: points that pass could be missed and reported failing", *ov.Search, c.DTA)
+		if *ov.Search == 0 {
+			return s, fmt.Errorf("--search 0: want a distance above 0 mm")
 		}
 		c.Search = *ov.Search
 	}
 	if err := c.Validate(); err != nil {
-		return s, err
+		// Name the option when the value came from one.
+		var ce *gamma.CriteriaError
+		given := map[string]bool{"dose": ov.Criteria != "", "dta": ov.Criteria != "",
+			"threshold": ov.Threshold != nil, "norm-dose": ov.NormDose != nil, "search": ov.Search != nil}
+		if errors.As(err, &ce) && given[ce.Field] {
+			opt := ce.Field
+			if opt == "dose" || opt == "dta" {
+				opt = "criteria"
+			}
+			return s, fmt.Errorf("--%s %g: %s", opt, ce.Value, ce.Want)
+		}
+		return s, fmt.Errorf("protocol %s: %w", p.Name, err)
 	}
 	rules, err := p.ROIRules()
 	if err != nil {
