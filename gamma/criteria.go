@@ -82,19 +82,25 @@ type CriteriaError struct {
 	Value float64
 	// Want says what is wanted.
 	Want string
+	// Zero, when set, says what 0 means for this criterion (the default).
+	Zero string
 }
 
 // Error names the criterion, its value and what is wanted.
 func (e *CriteriaError) Error() string {
 	names := map[string]string{"dose": "dose criterion", "dta": "DTA", "threshold": "threshold", "norm-dose": "normalisation dose",
 		"search": "search distance", "normalisation": "normalisation"}
-	return fmt.Sprintf("%s %g: %s", names[e.Field], e.Value, e.Want)
+	msg := fmt.Sprintf("%s %g: %s", names[e.Field], e.Value, e.Want)
+	if e.Zero != "" {
+		msg += " (or 0 for " + e.Zero + ")"
+	}
+	return msg
 }
 
 // Validate reports the first criterion that is out of range, as a
 // *CriteriaError.
 func (c Criteria) Validate() error {
-	bad := func(field string, v float64, want string) error { return &CriteriaError{field, v, want} }
+	bad := func(field string, v float64, want string) error { return &CriteriaError{Field: field, Value: v, Want: want} }
 	switch {
 	case !(c.DosePercent > 0) || math.IsInf(c.DosePercent, 0):
 		return bad("dose", c.DosePercent, "want a positive percentage")
@@ -103,9 +109,9 @@ func (c Criteria) Validate() error {
 	case !(c.ThresholdPercent >= 0 && c.ThresholdPercent < 100):
 		return bad("threshold", c.ThresholdPercent, "want a percentage from 0 to below 100")
 	case c.NormDose < 0 || math.IsNaN(c.NormDose) || math.IsInf(c.NormDose, 0):
-		return bad("norm-dose", c.NormDose, "want a positive dose in Gy (or 0 for the reference maximum)")
+		return &CriteriaError{Field: "norm-dose", Value: c.NormDose, Want: "want a positive dose in Gy", Zero: "the reference maximum"}
 	case c.Search < 0 || math.IsNaN(c.Search) || math.IsInf(c.Search, 0):
-		return bad("search", c.Search, "want a positive distance in mm (or 0 for 3×DTA)")
+		return &CriteriaError{Field: "search", Value: c.Search, Want: "want a positive distance in mm", Zero: "3×DTA"}
 	case c.Search > 0 && c.Search <= c.DTA:
 		// Any point with Γ ≤ 1 has its minimum within Δd of the reference
 		// point, and a point with none within the search distance is
