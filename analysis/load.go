@@ -79,7 +79,7 @@ func Load(in Inputs) (*Loaded, error) {
 	}
 
 	// Evaluated first: the reference points are in its coordinates.
-	evalPath, evalAccount, err := resolveDose(in.Evaluated)
+	evalPath, _, evalAccount, err := resolveDose(in.Evaluated)
 	if err != nil {
 		return nil, err
 	}
@@ -93,7 +93,7 @@ func Load(in Inputs) (*Loaded, error) {
 
 	structuresPath := in.Structures
 	if in.Reference != "" {
-		refPath, account, err := resolveDose(in.Reference)
+		refPath, folderRS, account, err := resolveDose(in.Reference)
 		if err != nil {
 			return nil, err
 		}
@@ -108,7 +108,7 @@ func Load(in Inputs) (*Loaded, error) {
 			return nil, err
 		}
 		if structuresPath == "" {
-			structuresPath = folderStructures(in.Reference)
+			structuresPath = folderRS
 		}
 	} else {
 		if l.Points, err = ReadPoints(in.ReferencePoints); err != nil {
@@ -144,9 +144,6 @@ func Load(in Inputs) (*Loaded, error) {
 		if err := f.Err(); err != nil {
 			return nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 		}
-		if l.ReferenceInfo.Relative() != l.EvaluatedInfo.Relative() {
-			return nil, badInput("dose units differ: reference %s, evaluated %s", l.ReferenceInfo.DoseUnits, l.EvaluatedInfo.DoseUnits)
-		}
 	} else {
 		if l.Structures != nil {
 			return nil, badInput("structures cannot be used with reference points: per-ROI results need a reference grid")
@@ -159,42 +156,28 @@ func Load(in Inputs) (*Loaded, error) {
 }
 
 // resolveDose returns the RT Dose file named by path: path itself, or the
-// plan dose chosen in a folder (with the account of the choice).
-func resolveDose(path string) (string, []string, error) {
+// plan dose chosen in a folder, with the structure set chosen with it (""
+// when none) and the account of the choice.
+func resolveDose(path string) (dose, structures string, account []string, err error) {
 	st, err := os.Stat(path)
 	if err != nil {
-		return "", nil, badInput("%v", err)
+		return "", "", nil, badInput("%v", err)
 	}
 	if !st.IsDir() {
-		return path, nil, nil
+		return path, "", nil, nil
 	}
 	folder, err := dicomio.ScanFolder(path)
 	if err != nil {
-		return "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+		return "", "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 	}
 	choice, err := folder.Choose()
 	if err != nil {
-		return "", nil, fmt.Errorf("%w: folder %s: %w", ErrBadInput, path, err)
+		return "", "", nil, fmt.Errorf("%w: folder %s: %w", ErrBadInput, path, err)
 	}
-	return choice.Dose.Path, choice.Account, nil
-}
-
-// folderStructures returns the structure set chosen in the reference folder,
-// or "" when the reference is a file or the folder has none.
-func folderStructures(path string) string {
-	st, err := os.Stat(path)
-	if err != nil || !st.IsDir() {
-		return ""
+	if choice.StructureSet != nil {
+		structures = choice.StructureSet.Path
 	}
-	folder, err := dicomio.ScanFolder(path)
-	if err != nil {
-		return ""
-	}
-	choice, err := folder.Choose()
-	if err != nil || choice.StructureSet == nil {
-		return ""
-	}
-	return choice.StructureSet.Path
+	return choice.Dose.Path, structures, choice.Account, nil
 }
 
 func readDose(path string) (*volume.Grid, *dicomio.DoseInfo, error) {
