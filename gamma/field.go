@@ -113,24 +113,6 @@ func (f *field) corners(ci, cj, ck int, c *[8]float64) {
 	c[7] = float64(d[b+sx+sy+sz])
 }
 
-// sample interpolates the Kuhn piecewise-linear field (simplex.go) at q,
-// which must be inside.
-func (f *field) sample(q [3]float64) float64 {
-	var cidx [3]int
-	var t [3]float64
-	for a := 0; a < 3; a++ {
-		c := f.cell(a, q[a])
-		cidx[a] = c
-		if f.n[a] > 1 {
-			lo, hi := f.off[a][c], f.off[a][c+1]
-			t[a] = clamp01((q[a] - lo) / (hi - lo))
-		}
-	}
-	var c [8]float64
-	f.corners(cidx[0], cidx[1], cidx[2], &c)
-	return plValue(&c, t)
-}
-
 func clamp01(v float64) float64 {
 	if v < 0 {
 		return 0
@@ -169,13 +151,6 @@ func doseGap2(c *[8]float64, dr, w float64) float64 {
 	cmax := max(c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7])
 	gap := max(cmin-dr, dr-cmax, 0)
 	return w * w * gap * gap
-}
-
-func abs(v float64) float64 {
-	if v < 0 {
-		return -v
-	}
-	return v
 }
 
 // cellMin returns min(best2, the minimum over cell (ci, cj, ck), whose
