@@ -100,7 +100,9 @@ func (e *CriteriaError) Error() string {
 // Validate reports the first criterion that is out of range, as a
 // *CriteriaError.
 func (c Criteria) Validate() error {
-	bad := func(field string, v float64, want string) error { return &CriteriaError{Field: field, Value: v, Want: want} }
+	bad := func(field string, v float64, want string) error {
+		return &CriteriaError{Field: field, Value: v, Want: want}
+	}
 	switch {
 	case !(c.DosePercent > 0) || math.IsInf(c.DosePercent, 0):
 		return bad("dose", c.DosePercent, "want a positive percentage")
