@@ -258,7 +258,7 @@ func TestPartlyOutsideAndEmpty(t *testing.T) {
 	if e := roiByName(t, r, "Empty"); e.Status != "not evaluated: no contours" || e.PassRate != nil {
 		t.Fatalf("Empty: %+v", e)
 	}
-	if m := roiByName(t, r, "Marker"); !strings.Contains(m.Status, "points or open contours only") {
+	if m := roiByName(t, r, "Marker"); !strings.Contains(string(m.Status), "points or open contours only") {
 		t.Fatalf("Marker: %+v", m)
 	}
 }

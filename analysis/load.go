@@ -36,6 +36,10 @@ type Inputs struct {
 	// AllowFrameMismatch lets doses and structures of different frames of
 	// reference be compared (the user vouches that their coordinates agree).
 	AllowFrameMismatch bool
+	// NoStructures runs the comparison deliberately without a structure
+	// set: none is looked for in the reference folder, Structures must be
+	// empty, and per-ROI rules are not applicable.
+	NoStructures bool
 }
 
 // Loaded is everything read for one comparison, checked for consistency.
@@ -77,6 +81,9 @@ func Load(in Inputs) (*Loaded, error) {
 	if in.Evaluated == "" {
 		return nil, badInput("no evaluated dose given")
 	}
+	if in.NoStructures && in.Structures != "" {
+		return nil, badInput("a structure set (%s) was given with --no-structures: give one or the other", in.Structures)
+	}
 
 	// Evaluated first: the reference points are in its coordinates.
 	evalPath, _, evalAccount, err := resolveDose(in.Evaluated)
@@ -107,8 +114,11 @@ func Load(in Inputs) (*Loaded, error) {
 		if err := l.addDoseInput("reference", refPath, l.ReferenceInfo, l.Reference); err != nil {
 			return nil, err
 		}
-		if structuresPath == "" {
+		if structuresPath == "" && !in.NoStructures {
 			structuresPath = folderRS
+		}
+		if in.NoStructures && folderRS != "" {
+			l.Notes = append(l.Notes, fmt.Sprintf("the structure set %s in the reference folder was not used (--no-structures)", folderRS))
 		}
 	} else {
 		if l.Points, err = ReadPoints(in.ReferencePoints); err != nil {

@@ -33,8 +33,10 @@ type Settings struct {
 	NormDoseSource string
 	// Method of the gamma search.
 	Method gamma.Method
-	// KindRules classify ROIs by name (see roi.Classify).
-	KindRules []roi.Rule
+	// KindRules classify ROIs by name (see roi.Classify); the first
+	// CLIKindRules of them were given on the command line.
+	KindRules    []roi.Rule
+	CLIKindRules int
 	// IsodosePercents adds isodose ROIs: the reference voxels at or above
 	// each percentage of the normalisation dose.
 	IsodosePercents []float64
@@ -59,7 +61,23 @@ type Settings struct {
 	Protocol any
 	// Version is recorded in the result.
 	Version string
+	// Choices records the options besides the protocol that change how
+	// rules are judged; Run fills in the sub-grid ROIs and step.
+	Choices result.Choices
+	// AcceptNormDose lets a normalisation dose outside the plausible band
+	// (see NormDoseBand) be used.
+	AcceptNormDose bool
 }
+
+// NormDoseBand is the band, as a multiple of the reference maximum, that a
+// global normalisation dose given by the user or the protocol must lie in
+// unless accepted explicitly. This tool's choice: a plan's maximum normally
+// lies between about 100 % and 130 % of its prescription (common practice,
+// no source), so a normalisation dose (a prescription, or a value near the
+// maximum) below half or above 1.5 times the maximum is almost always a
+// unit (cGy read as Gy) or summation (one fraction against the whole plan)
+// mistake, and would make every ΔD that many times too wide or too narrow.
+var NormDoseBand = [2]float64{0.5, 1.5}
 
 // Outcome is a finished comparison: the result and the maps behind it.
 type Outcome struct {
@@ -92,6 +110,7 @@ type Prepared struct {
 	EvaluatedOnRef *volume.Grid
 	regions        []*roi.Region
 	sources        map[*roi.Region]*structure.ROI
+	kindSource     map[*roi.Region]string
 	sizes          *roi.VoxelSize
 	notes          []string
 	warnings       []string
@@ -100,7 +119,7 @@ type Prepared struct {
 // Prepare rasterises the structure set's ROIs onto the reference grid and
 // resamples the evaluated dose onto it.
 func Prepare(l *Loaded, s Settings) (*Prepared, error) {
-	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}}
+	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}, kindSource: map[*roi.Region]string{}}
 	if l.Reference == nil {
 		return p, nil
 	}
@@ -108,6 +127,9 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	p.EvaluatedOnRef, err = l.Evaluated.ResampleOnto(l.Reference, float32(math.NaN()))
 	if err != nil && err != volume.ErrNoOverlap {
 		return nil, err
+	}
+	if s.Choices.NoStructures && l.Structures != nil {
+		return nil, badInput("a structure set was loaded for a comparison run with --no-structures")
 	}
 	z, err := roi.NewRasteriser(l.Reference, s.Raster)
 	if err != nil {
@@ -119,12 +141,24 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	}
 	for i := range l.Structures.ROIs {
 		r := &l.Structures.ROIs[i]
-		reg, err := z.Rasterise(r, roi.Classify(r, s.KindRules))
+		kind, by := roi.ClassifyBy(r, s.KindRules)
+		reg, err := z.Rasterise(r, kind)
 		if err != nil {
 			return nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 		}
 		p.regions = append(p.regions, reg)
 		p.sources[reg] = r
+		switch {
+		case by < 0:
+			p.kindSource[reg] = "interpreted type"
+			if strings.TrimSpace(r.InterpretedType) == "" {
+				p.kindSource[reg] = "no interpreted type and no name rule"
+			}
+		case by < s.CLIKindRules:
+			p.kindSource[reg] = "command-line rule " + s.KindRules[by].String()
+		default:
+			p.kindSource[reg] = "protocol rule " + s.KindRules[by].String()
+		}
 		for _, sk := range reg.Skipped {
 			if sk.Type == structure.ClosedPlanar {
 				p.warnings = append(p.warnings, fmt.Sprintf("ROI %q: contour %d (CLOSED_PLANAR) not rasterised: %s", r.Name, sk.Contour+1, sk.Reason))
@@ -189,6 +223,15 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	if r := s.Criteria.SearchRadius(); r < coarsest {
 		return nil, badInput("search distance %g mm is smaller than the evaluated grid's spacing %g mm: the search could not reach a neighbouring voxel (use --search %g or more)", r, coarsest, coarsest)
 	}
+	if err := p.checkNormDose(s); err != nil {
+		return nil, err
+	}
+	res.Choices = s.Choices
+	res.Choices.Overrides = nonNil(res.Choices.Overrides)
+	res.Choices.KindRules = nonNil(res.Choices.KindRules)
+	res.Choices.SubGridROIs = []string{}
+	res.Choices.SubGridStepMM = 0
+	res.Choices.UnusualNormDose = s.AcceptNormDose && s.Criteria.NormDose > 0 && !p.normDoseInBand(s.Criteria.NormDose)
 	opt := gamma.Options{Workers: s.Workers, Progress: s.Progress, Method: s.Method}
 	t0 := time.Now()
 	var gres *gamma.Result
@@ -262,9 +305,13 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 }
 
 func toGammaStats(st gamma.Stats) result.GammaStats {
+	coverage := math.NaN()
+	if n := st.Evaluated + st.Outside; n > 0 {
+		coverage = 100 * float64(st.Evaluated) / float64(n)
+	}
 	return result.GammaStats{
-		Evaluated: st.Evaluated, Passed: st.Passed,
-		PassRate: result.Ptr(st.PassRate), PassRateText: gamma.FormatPassRate(st.PassRate),
+		Evaluated: st.Evaluated, Passed: st.Passed, CoveragePercent: result.Ptr(coverage),
+		PassRate: result.Ptr(st.PassRate), PassRateText: result.FormatPercent(st.PassRate, 1),
 		GammaMean: result.Ptr(st.Mean), GammaMedian: result.Ptr(st.Median), GammaP95: result.Ptr(st.P95),
 		GammaP99: result.Ptr(st.P99), GammaMax: result.Ptr(st.Max), AboveOneHalfPercent: result.Ptr(st.AboveOneHalf),
 		Capped: st.Capped, BelowThreshold: st.BelowThreshold, OutsideEvaluated: st.Outside,
@@ -318,11 +365,18 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 		}
 		r.GammaStats = toGammaStats(gres.StatsOver(reg.Centres))
 		r.VolumeCC = regionVolume(reg, p.sizes)
+		r.CoveredPercent = p.coveredPercent(reg)
+		r.KindSource = p.kindSource[reg]
+		if src == nil {
+			r.KindSource = "derived"
+		}
 		r.FailingVolumeCC, r.WorstCentroidMM = p.failing(reg.Centres, gres)
-		r.Status = regionStatus(reg, src, r.GammaStats)
+		r.Status, r.StatusDetail = regionStatus(reg, src, r.GammaStats)
 
 		if src != nil && subgrid[strings.ToLower(reg.Name)] && len(reg.Centres) > 0 {
 			found[strings.ToLower(reg.Name)] = true
+			res.Choices.SubGridROIs = append(res.Choices.SubGridROIs, reg.Name)
+			res.Choices.SubGridStepMM = s.SubGridStep
 			st, step, err := p.subGrid(ctx, s, src, reg, gres.Criteria)
 			if err != nil {
 				return err
@@ -330,6 +384,9 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 			r.GammaStats = toGammaStats(st)
 			r.SubGridMM = &step
 			r.Status = regionStatusStats(r.Status, r.GammaStats)
+			if r.Status.Evaluated() {
+				r.StatusDetail = ""
+			}
 			res.Notes = append(res.Notes, fmt.Sprintf("ROI %q evaluated on a %g mm sub-grid of reference points (reference dose interpolated trilinearly): %d points instead of %d voxels", reg.Name, step, st.Evaluated+st.BelowThreshold+st.Outside, len(reg.Centres)))
 		}
 		if r.VolumeCC > 0 {
@@ -393,42 +450,155 @@ func (p *Prepared) failing(indices []int, gres *gamma.Result) (float64, *[3]floa
 
 func roundTo(v, step float64) float64 { return math.Round(v/step) * step }
 
-func regionStatus(reg *roi.Region, src *structure.ROI, st result.GammaStats) string {
+func nonNil(s []string) []string {
+	if s == nil {
+		return []string{}
+	}
+	return s
+}
+
+// referenceMax returns the reference's maximum dose (grid or points), NaN
+// when it has none.
+func (p *Prepared) referenceMax() float64 {
+	if p.Reference != nil {
+		m, at := p.Reference.Max()
+		if at < 0 {
+			return math.NaN()
+		}
+		return float64(m)
+	}
+	m := math.NaN()
+	for _, pt := range p.Points {
+		if !(pt.Dose <= m) {
+			m = pt.Dose
+		}
+	}
+	return m
+}
+
+// normDoseInBand reports whether a normalisation dose lies within
+// NormDoseBand of the reference maximum.
+func (p *Prepared) normDoseInBand(norm float64) bool {
+	m := p.referenceMax()
+	return m > 0 && norm >= NormDoseBand[0]*m && norm <= NormDoseBand[1]*m
+}
+
+// checkNormDose refuses a normalisation dose (given on the command line or
+// in the protocol) outside NormDoseBand of the reference maximum, naming
+// the likely cause, unless s.AcceptNormDose.
+func (p *Prepared) checkNormDose(s Settings) error {
+	norm := s.Criteria.NormDose
+	if norm == 0 || s.AcceptNormDose || p.normDoseInBand(norm) {
+		return nil
+	}
+	m := p.referenceMax()
+	if !(m > 0) {
+		return nil // the engine refuses a reference without positive dose
+	}
+	ratio := norm / m
+	cause := fmt.Sprintf("the normalisation dose %.4g Gy is %.3g × the reference maximum %.4g Gy, outside the plausible %g–%g × (this tool's choice: a plan's maximum normally lies near 100–130 %% of its prescription)",
+		norm, ratio, m, NormDoseBand[0], NormDoseBand[1])
+	switch {
+	case ratio >= 30 && ratio <= 300:
+		cause += fmt.Sprintf("; it looks like a dose in cGy read as Gy: did you mean %.4g Gy?", norm/100)
+	case ratio <= 1/30.0 && ratio >= 1/300.0:
+		cause += fmt.Sprintf("; it looks like a dose in Gy where the reference is in cGy, or %.4g Gy meant as cGy", norm)
+	case ratio > 1 && nearWhole(ratio):
+		cause += fmt.Sprintf("; it is about %.0f × the maximum: a plan total against a per-fraction reference (%.0f fractions)?", math.Round(ratio), math.Round(ratio))
+	case ratio < 1 && nearWhole(1/ratio):
+		cause += fmt.Sprintf("; the maximum is about %.0f × it: a per-fraction dose against a plan-total reference (%.0f fractions)?", math.Round(1/ratio), math.Round(1/ratio))
+	}
+	return badInput("%s; check --norm-dose or the protocol's norm_dose_gy, or pass --accept-norm-dose to use it as given", cause)
+}
+
+// nearWhole reports whether v ≥ 2 lies within 5 % of a whole number.
+func nearWhole(v float64) bool {
+	r := math.Round(v)
+	return r >= 2 && math.Abs(v-r) <= 0.05*r
+}
+
+func regionStatus(reg *roi.Region, src *structure.ROI, st result.GammaStats) (result.ROIStatus, string) {
 	switch {
 	case reg.NoContours:
-		return "not evaluated: no contours"
+		return result.StatusNoContours, ""
 	case src != nil && reg.Planes == 0 && len(reg.Skipped) > 0:
 		for _, sk := range reg.Skipped {
 			if sk.Type == structure.ClosedPlanar {
-				return "not evaluated: no contour could be rasterised (" + sk.Reason + ")"
+				return result.StatusNotRasterised, sk.Reason
 			}
 		}
-		return "not evaluated: no closed planar contours (points or open contours only)"
+		return result.StatusNoClosedContours, ""
 	case len(reg.Centres) == 0 && reg.OutsideCC > 0:
-		return "not evaluated: outside the dose grid"
+		return result.StatusOutsideDoseGrid, ""
 	case len(reg.Centres) == 0:
-		return "not evaluated: smaller than a voxel (no voxel centre inside)"
+		return result.StatusTooSmall, ""
 	}
-	return regionStatusStats("evaluated", st)
+	return regionStatusStats(result.StatusEvaluated, st), ""
 }
 
-func regionStatusStats(prev string, st result.GammaStats) string {
+func regionStatusStats(prev result.ROIStatus, st result.GammaStats) result.ROIStatus {
 	if st.Evaluated > 0 {
-		return "evaluated"
+		return result.StatusEvaluated
 	}
 	if st.OutsideEvaluated > 0 && st.BelowThreshold == 0 {
-		return "not evaluated: outside the evaluated grid"
+		return result.StatusOutsideEvaluated
 	}
 	if st.BelowThreshold > 0 && st.OutsideEvaluated == 0 {
-		return "not evaluated: all below threshold"
+		return result.StatusBelowThreshold
 	}
 	if st.BelowThreshold > 0 {
-		return "not evaluated: below threshold or outside the evaluated grid"
+		return result.StatusBelowOrOutside
 	}
-	if strings.HasPrefix(prev, "not evaluated") {
+	if !prev.Evaluated() {
 		return prev
 	}
-	return "not evaluated"
+	return result.StatusNotEvaluated
+}
+
+// coveredPercent returns the part of the region's volume inside both dose
+// grids, in percent: the contoured volume inside the reference grid (1 −
+// OutsideCC/ContourCC, exact from the contours) times the partial-volume
+// weighted share of its voxels inside the evaluated grid. Nil for a region
+// without volume.
+func (p *Prepared) coveredPercent(reg *roi.Region) *float64 {
+	inRef := 1.0
+	if reg.ContourCC > 0 {
+		// Areas clipped and unclipped differ by rounding only when the
+		// ROI is wholly inside: 1e-9 of the volume is not a gap.
+		if out := reg.OutsideCC / reg.ContourCC; out > 1e-9 {
+			inRef = math.Max(0, 1-out)
+		}
+	}
+	var all, covered float64
+	for i, n := range reg.Index {
+		v := float64(reg.Fraction[i]) * p.sizes.Volume(n)
+		all += v
+		if !math.IsNaN(float64(p.EvaluatedOnRef.Data[n])) {
+			covered += v
+		}
+	}
+	if all == 0 {
+		// Centres only (contours thinner than the sub-samples).
+		for _, n := range reg.Centres {
+			v := p.sizes.Volume(n)
+			all += v
+			if !math.IsNaN(float64(p.EvaluatedOnRef.Data[n])) {
+				covered += v
+			}
+		}
+	}
+	switch {
+	case all == 0 && reg.ContourCC > 0:
+		// Wholly outside the reference grid.
+		return result.Ptr(0)
+	case all == 0:
+		return nil
+	}
+	inEval := 1.0
+	if covered < all {
+		inEval = covered / all
+	}
+	return result.Ptr(100 * inRef * inEval)
 }
 
 // dvhPair computes the dose-volume metrics of both doses over reg.

@@ -94,6 +94,10 @@ func HashInputs(c Case) ([]InputHash, error) {
 		}
 		out = append(out, InputHash{Role: in[0], Path: in[1], SHA256: sum, Folder: folder})
 	}
+	if c.NoStructures {
+		// Deliberately none: a change to or from it must rerun the case.
+		out = append(out, InputHash{Role: "structures", Path: NoStructuresWord, SHA256: NoStructuresWord})
+	}
 	return out, nil
 }
 
@@ -135,6 +139,8 @@ type settingsKey struct {
 	Report             bool               `json:"report"`
 	Deidentify         bool               `json:"deidentify"`
 	AllowFrameMismatch bool               `json:"allow_frame_mismatch"`
+	NoStructures       bool               `json:"no_structures"`
+	AcceptNormDose     bool               `json:"accept_norm_dose"`
 }
 
 // SettingsHash returns the hex SHA-256 of the canonical JSON of everything
@@ -150,7 +156,7 @@ func SettingsHash(p *protocol.Protocol, s analysis.Settings, o Outputs, allowFra
 		Search: s.Criteria.Search, Method: s.Method.String(), Isodose: s.IsodosePercents, VDoses: s.VDoses,
 		SubGrid: s.SubGridROIs, SubGridStep: s.SubGridStep, MinClusterCC: s.MinClusterCC,
 		GammaMap: o.GammaMap, DifferenceMap: o.DifferenceMap, Report: o.Report, Deidentify: o.Deidentify,
-		AllowFrameMismatch: allowFrameMismatch,
+		AllowFrameMismatch: allowFrameMismatch, NoStructures: s.Choices.NoStructures, AcceptNormDose: s.AcceptNormDose,
 	}
 	for _, r := range s.KindRules {
 		k.KindRules = append(k.KindRules, r.String())

@@ -45,7 +45,11 @@ func writeStudy(t testing.TB, dir string, cases []studyCase) string {
 		if c.missing {
 			ref = "inputs/" + c.id + "/no-such-file.dcm"
 		}
-		fmt.Fprintf(&b, "%s,%s,%s,%s,%s\n", c.id, ref, rel(f.Evaluated), rel(f.Structures), c.protocol)
+		rs := rel(f.Structures)
+		if c.spec.NoStructures {
+			rs = NoStructuresWord // deliberately none: per-ROI rules not applicable
+		}
+		fmt.Fprintf(&b, "%s,%s,%s,%s,%s\n", c.id, ref, rel(f.Evaluated), rs, c.protocol)
 	}
 	path := filepath.Join(dir, "manifest.csv")
 	if err := os.WriteFile(path, []byte(b.String()), 0o644); err != nil {

@@ -23,8 +23,14 @@ type Case struct {
 	Reference string `json:"reference"`
 	Evaluated string `json:"evaluated"`
 	// Structures is an RT Structure Set file; empty for none (a reference
-	// folder's own structure set is then used, as by compare).
+	// folder's own structure set is then used, as by compare). The word
+	// "none" runs the case deliberately without a structure set (see
+	// NoStructures).
 	Structures string `json:"structures"`
+	// NoStructures is set by ReadManifest when the structures column says
+	// "none": the case is compared without a structure set, and per-ROI
+	// rules are not applicable (as compare --no-structures).
+	NoStructures bool `json:"-"`
 	// Protocol is a protocol file (absolute after ReadManifest) or a preset
 	// name; empty means the batch's default protocol.
 	Protocol string `json:"protocol"`
@@ -34,6 +40,10 @@ type Case struct {
 	Index int    `json:"-"`
 	Row   string `json:"-"`
 }
+
+// NoStructuresWord in a manifest's structures column runs the case
+// deliberately without a structure set.
+const NoStructuresWord = "none"
 
 // ManifestColumns are the columns of a CSV manifest, in the documented
 // order. id, reference and evaluated are required; structures and protocol
@@ -122,6 +132,9 @@ func ParseManifest(data []byte, name, baseDir string) ([]Case, error) {
 		}
 		c.Reference = resolve(baseDir, c.Reference)
 		c.Evaluated = resolve(baseDir, c.Evaluated)
+		if strings.EqualFold(c.Structures, NoStructuresWord) {
+			c.Structures, c.NoStructures = "", true
+		}
 		if c.Structures != "" {
 			c.Structures = resolve(baseDir, c.Structures)
 		}

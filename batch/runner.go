@@ -483,8 +483,10 @@ func compute(ctx context.Context, parent string, w caseWork, inputs []InputHash,
 		if err := outs.Check([]string{c.Reference, c.Evaluated, c.Structures}, false); err != nil {
 			return nil, err
 		}
+		s := w.settings
+		s.Choices.NoStructures = s.Choices.NoStructures || c.NoStructures
 		out, err := job.Compare(ctx, analysis.Inputs{Reference: c.Reference, Evaluated: c.Evaluated, Structures: c.Structures,
-			AllowFrameMismatch: w.allowFM}, w.settings)
+			AllowFrameMismatch: w.allowFM, NoStructures: s.Choices.NoStructures}, s)
 		if err != nil {
 			return nil, err
 		}

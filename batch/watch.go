@@ -835,7 +835,7 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	}
 	cs := Case{ID: c.key, Reference: ref.path, Evaluated: eval.path}
 	inputs := []InputHash{{Role: "reference", Path: ref.path, SHA256: ref.sha}, {Role: "evaluated", Path: eval.path, SHA256: eval.sha}}
-	if len(sets) == 1 {
+	if len(sets) == 1 && !w.settings.Choices.NoStructures {
 		cs.Structures = sets[0].path
 		inputs = append(inputs, InputHash{Role: "structures", Path: sets[0].path, SHA256: sets[0].sha})
 	}

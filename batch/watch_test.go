@@ -320,7 +320,9 @@ func TestWatchFlatLayoutAndRerunOnChange(t *testing.T) {
 	w := newTestWatcher(t, dir, out, nil)
 	rep := once(t, w)
 	ka, kb := frameKey(a.FrameOfReferenceUID), frameKey(b.FrameOfReferenceUID)
-	if v := verdicts(rep); len(v) != 2 || v[ka] != VerdictPass || v[kb] != VerdictPass {
+	// b has no structure set, and the watch was not told to run without
+	// one: its per-target rule has nothing to check and is not met.
+	if v := verdicts(rep); len(v) != 2 || v[ka] != VerdictPass || v[kb] != VerdictFail {
 		t.Fatalf("flat cases %v", v)
 	}
 	// A new evaluated dose for case a (same frame, new content): the case
@@ -369,6 +371,7 @@ func TestWatchRulesAndRequiredStructures(t *testing.T) {
 	loose := newTestWatcher(t, dir, filepath.Join(t.TempDir(), "o3"), func(o *WatchOptions) {
 		o.ReferenceMatch = []string{"series:*planning*"}
 		o.EvaluatedMatch = []string{"series:*recalculation*"}
+		o.Overrides.NoStructures = true // deliberately without structures
 	})
 	if v := verdicts(once(t, loose)); v["s1"] != VerdictPass {
 		t.Fatalf("series rules: %v", v)

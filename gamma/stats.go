@@ -2,7 +2,6 @@ package gamma
 
 import (
 	"math"
-	"strconv"
 )
 
 // Stats summarises Γ over a set of reference points.
@@ -195,17 +194,4 @@ func Percentile(sorted []float64, p float64) float64 {
 		return sorted[len(sorted)-1]
 	}
 	return sorted[lo] + (h-float64(lo))*(sorted[lo+1]-sorted[lo])
-}
-
-// FormatPassRate formats a pass rate with one decimal, rounding down, so
-// that a rate is never shown as 100.0 unless every point passed and never
-// rises across a limit by rounding (1086 of 1087 is "99.9", 1999 of 2000
-// is "99.9", not "100.0"). NaN gives "n/a".
-func FormatPassRate(rate float64) string {
-	if math.IsNaN(rate) {
-		return "n/a"
-	}
-	// The 1e-9 absorbs representation error in rates such as 100·29/29.
-	v := math.Floor(rate*10+1e-9) / 10
-	return strconv.FormatFloat(v, 'f', 1, 64)
 }

@@ -15,7 +15,9 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
+	"strconv"
 	"strings"
 
 	"voxgamma/analysis"
@@ -66,6 +68,12 @@ type Overrides struct {
 	Workers int
 	// Exhaustive selects the exhaustive search.
 	Exhaustive bool
+	// NoStructures runs the comparison deliberately without a structure
+	// set: per-ROI rules are not applicable rather than not met.
+	NoStructures bool
+	// AcceptNormDose uses a normalisation dose outside the plausible band
+	// of the reference maximum as given (see analysis.NormDoseBand).
+	AcceptNormDose bool
 	// Version is recorded in the result.
 	Version string
 }
@@ -78,6 +86,8 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 	if err != nil {
 		return s, fmt.Errorf("protocol %s: %w", p.Name, err)
 	}
+	want := c
+	var overrides []string
 	if ov.Criteria != "" {
 		if c.DosePercent, c.DTA, err = gamma.ParseCriteria(ov.Criteria); err != nil {
 			return s, fmt.Errorf("--criteria: %w", err)
@@ -105,6 +115,26 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 			return s, fmt.Errorf("--search 0: want a distance above 0 mm")
 		}
 		c.Search = *ov.Search
+	}
+	// Record every option that replaced a protocol value with another.
+	if ov.Criteria != "" && (c.DosePercent != want.DosePercent || c.DTA != want.DTA) {
+		overrides = append(overrides, fmt.Sprintf("criteria %s%%/%smm from --criteria (protocol: %s)", num(c.DosePercent), num(c.DTA), p.Criteria.Criteria))
+	}
+	if ov.Local != nil && c.Normalisation != want.Normalisation {
+		overrides = append(overrides, fmt.Sprintf("%s normalisation from --local (protocol: %s)", c.Normalisation, want.Normalisation))
+	}
+	if ov.Threshold != nil && c.ThresholdPercent != want.ThresholdPercent {
+		overrides = append(overrides, fmt.Sprintf("threshold %s %% from --threshold (protocol: %s %%)", num(c.ThresholdPercent), num(want.ThresholdPercent)))
+	}
+	if ov.NormDose != nil && c.NormDose != want.NormDose {
+		was := "the reference maximum"
+		if want.NormDose > 0 {
+			was = num(want.NormDose) + " Gy"
+		}
+		overrides = append(overrides, fmt.Sprintf("normalisation dose %s Gy from --norm-dose (protocol: %s)", num(c.NormDose), was))
+	}
+	if ov.Search != nil && c.SearchRadius() != want.SearchRadius() {
+		overrides = append(overrides, fmt.Sprintf("search distance %s mm from --search (protocol: %s mm)", num(c.SearchRadius()), num(want.SearchRadius())))
 	}
 	if err := c.Validate(); err != nil {
 		// Name the option when the value came from one.
@@ -136,6 +166,9 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 	iso := p.Isodose
 	if ov.Isodose != nil {
 		iso = ov.Isodose
+		if !slices.Equal(iso, p.Isodose) {
+			overrides = append(overrides, fmt.Sprintf("isodose ROIs %s from --isodose (protocol: %s)", percents(iso), percents(p.Isodose)))
+		}
 	}
 	for _, v := range iso {
 		if !(v > 0 && v <= 100) {
@@ -165,9 +198,14 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 		return s, fmt.Errorf("--min-cluster %g: want 0 cc or more", ov.MinClusterCC)
 	}
 	s = analysis.Settings{
-		Criteria: c, KindRules: rules, IsodosePercents: iso, VDoses: ov.VDoses,
+		Criteria: c, KindRules: rules, CLIKindRules: len(cli), IsodosePercents: iso, VDoses: ov.VDoses,
 		SubGridROIs: ov.SubGrid, SubGridStep: step, MinClusterCC: ov.MinClusterCC,
-		Workers: ov.Workers, Checker: p, Protocol: p, Version: ov.Version,
+		Workers: ov.Workers, Checker: p, Protocol: p.Resolved(), Version: ov.Version,
+		AcceptNormDose: ov.AcceptNormDose,
+	}
+	s.Choices = result.Choices{Overrides: overrides, KindRules: []string{}, NoStructures: ov.NoStructures}
+	for _, r := range cli {
+		s.Choices.KindRules = append(s.Choices.KindRules, r.String())
 	}
 	if c.NormDose > 0 {
 		s.NormDoseSource = "protocol"
@@ -177,8 +215,24 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 	}
 	if ov.Exhaustive {
 		s.Method = gamma.Exhaustive
+		s.Choices.Method = s.Method.String()
 	}
 	return s, nil
+}
+
+// num writes a number in the shortest form that reads back exactly.
+func num(v float64) string { return strconv.FormatFloat(v, 'f', -1, 64) }
+
+// percents writes a list of percentages, "none" when empty.
+func percents(v []float64) string {
+	if len(v) == 0 {
+		return "none"
+	}
+	parts := make([]string, len(v))
+	for i, x := range v {
+		parts[i] = num(x) + " %"
+	}
+	return strings.Join(parts, ", ")
 }
 
 // Outputs are the files one comparison writes; empty names are not written.

@@ -13,9 +13,9 @@ import (
 
 // Verdicts returned by [Protocol.Evaluate].
 const (
-	// Pass: every rule outcome was met.
+	// Pass: at least one rule was met and none was not met.
 	Pass = "pass"
-	// Fail: at least one rule outcome was not met.
+	// Fail: at least one rule was not met, or none could be checked.
 	Fail = "fail"
 )
 
@@ -25,51 +25,69 @@ const (
 	kindOAR             = "oar"
 	sourceStructureSet  = "structure set"
 	sourceIsodose       = "isodose"
-	statusEvaluated     = "evaluated"
-	statusBelowThresh   = "all below threshold"
 	reasonROINotFound   = "ROI not found"
 	reasonNotEvaluated  = "not evaluated: "
 	reasonNoResult      = "no comparison result"
 	reasonInvalidPrefix = "invalid rule: "
+	reasonNoStructures  = "run without a structure set (--no-structures): no ROI of the structure set to check"
 )
 
-// Evaluate checks the result against every rule of the protocol and
-// returns the outcomes, in rule order and, within a rule, in the order of
-// r.ROIs, with the verdict: [Pass] when every outcome was met, [Fail]
-// otherwise. The package documentation sets out how each subject is
-// matched and what happens to a value that could not be measured.
+// Evaluate checks the result against the protocol: first the overall
+// coverage (see [Coverage]), then every rule. It returns the outcomes, in
+// that order and, within a rule, in the order of r.ROIs, with the verdict:
+// [Pass] when no outcome is [result.NotMet] and at least one is
+// [result.Met], [Fail] otherwise. The package documentation sets out how
+// each subject is matched and what happens to a value that could not be
+// measured.
 func (p *Protocol) Evaluate(r *result.Result) (outcomes []result.RuleOutcome, verdict string) {
 	if p == nil || len(p.Rules) == 0 {
-		return []result.RuleOutcome{{
+		return []result.RuleOutcome{finish(result.RuleOutcome{
 			Rule:    "the protocol has at least one rule",
 			Level:   "action",
 			Subject: "protocol",
-			Met:     false,
+			Outcome: result.NotMet,
 			Reason:  "the protocol has no rules: nothing was checked",
-		}}, Fail
+		}, metric{})}, Fail
+	}
+	if c := p.Coverage.OverallPercent; c > 0 {
+		rule := Rule{Level: "action", Subject: "overall", Metric: coverageMetric, Op: string(opGE), Limit: c}
+		outcomes = append(outcomes, p.evaluateRule(rule, r)...)
 	}
 	for _, rule := range p.Rules {
-		outcomes = append(outcomes, evaluateRule(rule, r)...)
+		outcomes = append(outcomes, p.evaluateRule(rule, r)...)
 	}
-	verdict = Pass
+	return outcomes, Verdict(outcomes)
+}
+
+// Verdict returns [Pass] when no outcome is [result.NotMet] and at least
+// one is [result.Met]: rules that were all not applicable checked nothing.
+func Verdict(outcomes []result.RuleOutcome) string {
+	met := false
 	for _, o := range outcomes {
-		if !o.Met {
-			verdict = Fail
+		switch o.Outcome {
+		case result.Met:
+			met = true
+		case result.NotApplicable:
+		default:
+			return Fail
 		}
 	}
-	return outcomes, verdict
+	if !met {
+		return Fail
+	}
+	return Pass
 }
 
 // evaluateRule returns the outcomes of one rule: one per matching ROI, or
 // one for the rule as a whole.
-func evaluateRule(rule Rule, r *result.Result) []result.RuleOutcome {
-	base := result.RuleOutcome{Rule: rule.String(), Level: rule.level(), Subject: strings.TrimSpace(rule.Subject), Limit: rule.Limit}
+func (p *Protocol) evaluateRule(rule Rule, r *result.Result) []result.RuleOutcome {
+	base := result.RuleOutcome{Rule: rule.String(), Level: rule.level(), Subject: strings.TrimSpace(rule.Subject), Limit: rule.Limit, Outcome: result.NotMet}
 	s, serr := parseSubject(rule.Subject)
 	m, merr := parseMetric(rule.Metric)
 	o, oerr := parseOp(rule.Op)
 	if err := errors.Join(serr, merr, oerr); err != nil {
 		base.Reason = reasonInvalidPrefix + strings.ReplaceAll(err.Error(), "\n", "; ")
-		return []result.RuleOutcome{base}
+		return []result.RuleOutcome{finish(base, m)}
 	}
 	for _, fe := range rule.check(nil) {
 		// Ranges and combinations. Whether an isodose level is listed in
@@ -77,44 +95,106 @@ func evaluateRule(rule Rule, r *result.Result) []result.RuleOutcome {
 		// looked for in the result.
 		if fe.field != "subject" {
 			base.Reason = reasonInvalidPrefix + fe.field + ": " + fe.err.Error()
-			return []result.RuleOutcome{base}
+			return []result.RuleOutcome{finish(base, m)}
 		}
 	}
 	base.Subject = s.String()
 	if r == nil {
 		base.Reason = reasonNoResult
-		return []result.RuleOutcome{base}
+		return []result.RuleOutcome{finish(base, m)}
 	}
+	common := globalConditions(r)
 	if s.kind == subjOverall {
 		base.Subject = "overall"
-		v := m.gammaValue(&r.Overall)
+		base.Conditions = common
+		v := m.overallValue(&r.Overall)
 		if v == nil || math.IsNaN(*v) {
 			base.Reason = reasonNotEvaluated + "no reference point was evaluated"
-			return []result.RuleOutcome{base}
+			return []result.RuleOutcome{finish(base, m)}
 		}
-		return []result.RuleOutcome{measured(base, m, o, *v)}
+		return []result.RuleOutcome{finish(measured(base, m, o, *v), m)}
 	}
 	var out []result.RuleOutcome
 	for i := range r.ROIs {
 		roi := &r.ROIs[i]
 		if s.matches(roi) {
-			out = append(out, evaluateROI(base, m, o, roi))
+			b := base
+			b.Conditions = append(append([]string{}, common...), roiConditions(roi)...)
+			out = append(out, finish(p.evaluateROI(b, m, o, roi), m))
 		}
 	}
 	if len(out) > 0 {
 		return out
 	}
+	base.Conditions = common
+	var missing string
 	switch s.kind {
 	case subjTargets:
-		base.Met = true
-		base.Reason = "no target ROI in this comparison"
+		missing = "no target ROI in this comparison"
 	case subjOARs:
-		base.Met = true
-		base.Reason = "no organ-at-risk ROI in this comparison"
+		missing = "no organ-at-risk ROI in this comparison"
 	default:
-		base.Reason = reasonROINotFound
+		missing = reasonROINotFound
 	}
-	return []result.RuleOutcome{base}
+	switch {
+	case r.Choices.NoStructures && s.kind != subjIsodose:
+		base.Outcome, base.Reason = result.NotApplicable, reasonNoStructures
+	case rule.whenMissing() == MissingSkip:
+		base.Outcome, base.Reason = result.NotApplicable, missing+" (when_missing: skip)"
+	default:
+		base.Reason = missing + ": nothing to check, and the rule requires it (when_missing: fail)"
+	}
+	return []result.RuleOutcome{finish(base, m)}
+}
+
+// finish fills the fields every outcome carries: Met from Outcome, the
+// value as shown, and a non-nil condition list.
+func finish(o result.RuleOutcome, m metric) result.RuleOutcome {
+	o.Met = o.Outcome == result.Met
+	o.ValueText = valueText(o.Value, m)
+	if o.Conditions == nil {
+		o.Conditions = []string{}
+	}
+	return o
+}
+
+// valueText writes a measured value as every output shows it: percentages
+// rounded down to two decimals (never 100.00 unless it is 100), other
+// values with four significant digits.
+func valueText(v *float64, m metric) string {
+	switch {
+	case v == nil:
+		return "n/a"
+	case m.isPercent():
+		return result.FormatPercent(*v, 2)
+	}
+	return strconv.FormatFloat(*v, 'g', 4, 64)
+}
+
+// globalConditions lists the choices that changed how every rule of r was
+// judged.
+func globalConditions(r *result.Result) []string {
+	c := append([]string{}, r.Choices.Overrides...)
+	if r.Choices.UnusualNormDose {
+		c = append(c, fmt.Sprintf("normalisation dose %.4g Gy accepted outside the plausible band (--accept-norm-dose)", r.Criteria.NormDoseGy))
+	}
+	if r.Choices.Method != "" {
+		c = append(c, "search method "+r.Choices.Method+" (--"+r.Choices.Method+")")
+	}
+	return c
+}
+
+// roiConditions lists the choices that changed how one ROI was sampled or
+// classified.
+func roiConditions(roi *result.ROI) []string {
+	var c []string
+	if roi.SubGridMM != nil {
+		c = append(c, fmt.Sprintf("sampled on a %g mm sub-grid of reference points, not on the reference voxels (--subgrid)", *roi.SubGridMM))
+	}
+	if strings.HasPrefix(roi.KindSource, "command-line") {
+		c = append(c, "kind "+roi.Kind+" from the "+roi.KindSource+" (--kind)")
+	}
+	return c
 }
 
 var isodoseName = regexp.MustCompile(`^isodose\s+([0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)\s*%`)
@@ -142,52 +222,88 @@ func (s subject) matches(roi *result.ROI) bool {
 	return false
 }
 
-// evaluateROI checks one ROI.
-func evaluateROI(base result.RuleOutcome, m metric, o op, roi *result.ROI) result.RuleOutcome {
+// evaluateROI checks one ROI: an ROI not covered as the protocol requires
+// is not judged on its covered part; a value that could not be measured is
+// handled as the package documentation says.
+func (p *Protocol) evaluateROI(base result.RuleOutcome, m metric, o op, roi *result.ROI) result.RuleOutcome {
 	base.Subject = roi.Name
 	var v *float64
-	if m.isDVH() {
+	switch {
+	case m.isDVH():
 		v = m.dvhValue(roi.DVH)
-	} else {
+	case m.base == coverageMetric:
+		v = roi.CoveredPercent
+	default:
 		v = m.gammaValue(&roi.GammaStats)
 	}
 	if v != nil && !math.IsNaN(*v) {
-		return measured(base, m, o, *v)
+		out := measured(base, m, o, *v)
+		if m.base != coverageMetric && out.Outcome == result.Met && !p.covered(roi) {
+			out.Outcome = result.NotMet
+			out.Reason = p.coverageReason(roi)
+		}
+		return out
 	}
-	status := strings.TrimSpace(roi.Status)
+	if !p.covered(roi) {
+		base.Reason = p.coverageReason(roi)
+		return base
+	}
+	status := roi.Status
 	switch {
-	case m.isDVH() && roi.DVH == nil && status != "" && status != statusEvaluated:
-		base.Reason = "no DVH: " + status
+	case m.isDVH() && roi.DVH == nil && status != "" && !status.Evaluated():
+		base.Reason = "no DVH: " + string(status)
 	case m.isDVH() && roi.DVH == nil:
 		base.Reason = "no DVH for this ROI in the result"
 	case m.isDVH():
 		base.Reason = "no " + m.words() + " in the result"
-	case status != "" && status != statusEvaluated:
-		base.Reason = reasonNotEvaluated + status
-		// An organ at risk lying wholly in low dose is not a failure; a
-		// target that could not be evaluated is.
-		base.Met = strings.EqualFold(roi.Kind, kindOAR) && status == statusBelowThresh
+	case status == result.StatusBelowThreshold && strings.EqualFold(roi.Kind, kindOAR):
+		// An organ at risk lying wholly in low dose is not a failure: it
+		// was looked at, and no point of it reaches the threshold.
+		base.Outcome = result.Met
+		base.Reason = "every point of this organ at risk is below the low-dose threshold"
+	case status != "" && !status.Evaluated():
+		base.Reason = reasonNotEvaluated + strings.TrimPrefix(string(status), reasonNotEvaluated)
+		if roi.StatusDetail != "" {
+			base.Reason += " (" + roi.StatusDetail + ")"
+		}
 	default:
 		base.Reason = reasonNotEvaluated + "no point of this ROI was evaluated"
 	}
 	return base
 }
 
+// covered reports whether the ROI is covered as the protocol requires. An
+// ROI whose coverage is unknown (no volume) is left to its status.
+func (p *Protocol) covered(roi *result.ROI) bool {
+	c := roi.CoveredPercent
+	return c == nil || p.Coverage.ROIPercent <= 0 || *c >= p.Coverage.ROIPercent
+}
+
+func (p *Protocol) coverageReason(roi *result.ROI) string {
+	return fmt.Sprintf("only %s %% of this ROI lies inside both dose grids, and the protocol judges an ROI only when at least %s %% does (coverage.roi_percent)",
+		result.FormatPercent(*roi.CoveredPercent, 2), num(p.Coverage.ROIPercent))
+}
+
 // measured returns the outcome for a measured value.
 func measured(base result.RuleOutcome, m metric, o op, v float64) result.RuleOutcome {
 	base.Value = &v
-	base.Met = o.holds(v, base.Limit)
-	if !base.Met {
-		what := ""
-		if o == opAbsLE {
-			what = "|value| "
-		}
-		text := measuredText(v)
+	base.Outcome = result.NotMet
+	if o.holds(v, base.Limit) {
+		base.Outcome = result.Met
+		return base
+	}
+	what := ""
+	if o == opAbsLE {
+		what = "|value| "
+	}
+	text := valueText(&v, m)
+	if !m.isPercent() {
+		text = measuredText(v)
 		if text == num(base.Limit) {
 			text = num(v) // all digits, so it does not read as the limit
 		}
-		base.Reason = fmt.Sprintf("measured %s%s, %snot %s %s%s", text, m.unit(), what, o.symbol(), num(base.Limit), m.unit())
 	}
+	base.Reason = fmt.Sprintf("measured %s%s, %snot %s %s%s", text, m.unit(), what, o.symbol(), num(base.Limit), m.unit())
 	return base
 }
 

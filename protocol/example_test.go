@@ -38,7 +38,7 @@ func ExamplePreset() {
 	p, _ := protocol.Preset("tg218")
 	pass := func(v float64) *float64 { return &v }
 	r := &result.Result{
-		Overall: result.GammaStats{Evaluated: 250000, PassRate: pass(97.31)},
+		Overall: result.GammaStats{Evaluated: 250000, PassRate: pass(97.31), CoveragePercent: pass(100)},
 		ROIs: []result.ROI{
 			{Name: "PTV_60", Kind: "target", Source: "structure set", Status: "evaluated",
 				GammaStats: result.GammaStats{PassRate: pass(99.2)}},
@@ -50,7 +50,7 @@ func ExamplePreset() {
 	}
 	outcomes, verdict := p.Evaluate(r)
 	for _, o := range outcomes {
-		line := fmt.Sprintf("%-9s %-9s %-29s met=%v", o.Level, o.Subject, o.Rule, o.Met)
+		line := fmt.Sprintf("%-9s %-9s %-29s %s %s", o.Level, o.Subject, o.Rule, o.ValueText, o.Outcome)
 		if o.Reason != "" {
 			line += " (" + o.Reason + ")"
 		}
@@ -60,9 +60,10 @@ func ExamplePreset() {
 	// The preset has no rule on organs at risk, so Rectum is not checked.
 
 	// Output:
-	// tolerance overall   overall: pass rate ≥ 95 %     met=true
-	// action    overall   overall: pass rate ≥ 90 %     met=true
-	// tolerance PTV_60    each target: pass rate ≥ 95 % met=true
-	// tolerance PTV_boost each target: pass rate ≥ 95 % met=false (measured 93.4 %, not ≥ 95 %)
+	// action    overall   overall: coverage ≥ 99.5 %    100.00 met
+	// tolerance overall   overall: pass rate ≥ 95 %     97.31 met
+	// action    overall   overall: pass rate ≥ 90 %     97.31 met
+	// tolerance PTV_60    each target: pass rate ≥ 95 % 99.20 met
+	// tolerance PTV_boost each target: pass rate ≥ 95 % 93.40 not met (measured 93.40 %, not ≥ 95 %)
 	// verdict: fail
 }

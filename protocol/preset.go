@@ -20,7 +20,9 @@ func Preset(name string) (*Protocol, bool) {
 	if !ok {
 		return nil, false
 	}
-	return f(), true
+	p := f()
+	p.normalise()
+	return p, true
 }
 
 // PresetNames returns the names of the built-in protocols, sorted.
@@ -55,6 +57,7 @@ func tg218() *Protocol {
 			"PTV, CTV, GTV for ROIs without an interpreted type are common practice.",
 		Criteria:  Criteria{Criteria: "3%/2mm", Normalisation: "global", ThresholdPercent: 10},
 		KindRules: targetNames(),
+		Coverage:  DefaultCoverage(),
 		Rules: []Rule{
 			{Level: "tolerance", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 95},
 			{Level: "action", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 90},
@@ -71,6 +74,7 @@ func stereotactic() *Protocol {
 			"numbers. Check them against your own commissioning before use.",
 		Criteria:  Criteria{Criteria: "2%/1mm", Normalisation: "global", ThresholdPercent: 10},
 		KindRules: targetNames(),
+		Coverage:  DefaultCoverage(),
 		Rules: []Rule{
 			{Level: "tolerance", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 95},
 			{Level: "tolerance", Subject: "targets", Metric: "pass_rate", Op: ">=", Limit: 95},
@@ -89,6 +93,7 @@ func epidInVivoExample() *Protocol {
 			"example too.",
 		Criteria:  Criteria{Criteria: "3%/3mm", Normalisation: "global", ThresholdPercent: 10},
 		KindRules: targetNames(),
+		Coverage:  DefaultCoverage(),
 		Isodose:   []float64{50},
 		Rules: []Rule{
 			{Level: "alert", Subject: "isodose:50", Metric: "gamma_mean", Op: "<=", Limit: 0.5},

@@ -37,8 +37,74 @@ type Protocol struct {
 	// Isodose lists isodose ROIs to add, each in percent of the
 	// normalisation dose (e.g. [50, 80]).
 	Isodose []float64 `yaml:"isodose_rois" json:"isodose_rois"`
+	// Coverage sets how much of the question the comparison must have
+	// answered for its rules to count (see [Coverage]).
+	Coverage Coverage `yaml:"coverage" json:"coverage"`
 	// Rules are checked in order by [Protocol.Evaluate].
 	Rules []Rule `yaml:"rules" json:"rules"`
+}
+
+// Default values of the keys a protocol file may leave out. [Parse] fills
+// every key left out with its default, never with Go's zero value.
+const (
+	// DefaultThresholdPercent is the low-dose threshold of AAPM TG-218
+	// (Miften et al., Med Phys 45 (2018) e53).
+	DefaultThresholdPercent = 10.0
+	// DefaultOverallCoveragePercent is the smallest share of the reference
+	// points at or above the threshold that must have been compared (lie
+	// inside the evaluated grid): this tool's choice, so that a cropped
+	// evaluated dose cannot pass on the part it covers.
+	DefaultOverallCoveragePercent = 99.5
+	// DefaultROICoveragePercent is the smallest share of an ROI's volume
+	// that must lie inside both dose grids for a rule on the ROI to be
+	// judged: the whole ROI (this tool's choice).
+	DefaultROICoveragePercent = 100.0
+	// DefaultSearchDTAs is the search distance in DTAs when search_mm is
+	// left out (common practice, no source).
+	DefaultSearchDTAs = 3.0
+)
+
+// Values of [Criteria.NormDoseFrom].
+const (
+	// NormDoseReferenceMax: the global normalisation dose is the reference
+	// maximum.
+	NormDoseReferenceMax = "reference maximum"
+	// NormDoseValue: the global normalisation dose is NormDoseGy.
+	NormDoseValue = "value"
+)
+
+// Values of [Rule.WhenMissing].
+const (
+	// MissingFail: a rule whose subject is missing from the comparison (no
+	// ROI of that kind or name) is not met. The default.
+	MissingFail = "fail"
+	// MissingSkip: such a rule is not applicable; it neither meets nor
+	// fails the verdict.
+	MissingSkip = "skip"
+)
+
+// Coverage sets the share of the comparison that must have been possible.
+// A reference point at or above the threshold that lies outside the
+// evaluated grid was never compared, and an ROI partly outside a dose grid
+// is judged on part of itself only: a pass rate over the covered part alone
+// answers a smaller question than the one asked.
+type Coverage struct {
+	// OverallPercent is the smallest percentage of the reference points at
+	// or above the threshold that must have been compared; it is checked as
+	// a rule of its own ("overall: coverage ≥ 99.5 %"). Default
+	// [DefaultOverallCoveragePercent]; 0 leaves the check out.
+	OverallPercent float64 `yaml:"overall_percent" json:"overall_percent"`
+	// ROIPercent is the smallest percentage of an ROI's volume that must lie
+	// inside both dose grids for a rule on that ROI to be judged; a rule on
+	// an ROI covered less is not met, whatever its value. Default
+	// [DefaultROICoveragePercent]; 0 judges every ROI on its covered part.
+	ROIPercent float64 `yaml:"roi_percent" json:"roi_percent"`
+}
+
+// DefaultCoverage returns the coverage requirements a protocol file gets
+// when it leaves them out.
+func DefaultCoverage() Coverage {
+	return Coverage{OverallPercent: DefaultOverallCoveragePercent, ROIPercent: DefaultROICoveragePercent}
 }
 
 // Criteria are a protocol's gamma criteria, as written in the file.
@@ -49,13 +115,19 @@ type Criteria struct {
 	// Normalisation is "global" or "local"; empty means "global".
 	Normalisation string `yaml:"normalisation" json:"normalisation"`
 	// ThresholdPercent is the low-dose threshold in percent of the
-	// normalisation dose, from 0 to below 100.
+	// normalisation dose, from 0 to below 100; left out of a file, it is
+	// [DefaultThresholdPercent].
 	ThresholdPercent float64 `yaml:"threshold_percent" json:"threshold_percent"`
-	// SearchMM is the search distance in mm; 0 means 3×DTA.
+	// SearchMM is the search distance in mm; 0 or left out means 3×DTA of
+	// the criteria applied ([Protocol.Resolved] writes the value out).
 	SearchMM float64 `yaml:"search_mm" json:"search_mm"`
-	// NormDoseGy is the normalisation dose in Gy; 0 means the reference
-	// maximum.
-	NormDoseGy float64 `yaml:"norm_dose_gy" json:"norm_dose_gy"`
+	// NormDoseGy is the global normalisation dose in Gy; 0 or left out means
+	// the reference maximum.
+	NormDoseGy float64 `yaml:"norm_dose_gy,omitempty" json:"norm_dose_gy,omitempty"`
+	// NormDoseFrom says where the normalisation dose comes from:
+	// [NormDoseReferenceMax] or [NormDoseValue] (NormDoseGy). Left out, it
+	// follows NormDoseGy.
+	NormDoseFrom string `yaml:"norm_dose_from,omitempty" json:"norm_dose_from,omitempty"`
 }
 
 // KindRule gives a kind to the ROIs whose name matches a pattern.
@@ -89,8 +161,12 @@ type Rule struct {
 	// Op is ">=", "<=" or "abs<=" (the absolute value ≤ the limit; for
 	// the signed dvh_diff metrics only).
 	Op string `yaml:"op" json:"op"`
-	// Limit is the limit the measured value is compared with.
+	// Limit is the limit the measured value is compared with; required.
 	Limit float64 `yaml:"limit" json:"limit"`
+	// WhenMissing says what a rule whose subject is missing from the
+	// comparison gives: [MissingFail] (not met; the default) or
+	// [MissingSkip] (not applicable).
+	WhenMissing string `yaml:"when_missing" json:"when_missing"`
 }
 
 // MaxFileSize is the largest protocol file [Load] reads.
@@ -177,11 +253,54 @@ func Parse(data []byte, name string) (*Protocol, error) {
 		return nil, &Error{File: name, Line: extra.Line, Err: errors.New("more than one YAML document: want one protocol per file")}
 	}
 	pos := nodePositions{root: &root}
-	if errs := p.check(name, pos.line); len(errs) > 0 {
+	errs := p.fillDefaults(name, pos)
+	if errs = append(errs, p.check(name, pos.line)...); len(errs) > 0 {
 		return nil, errors.Join(errs...)
 	}
 	p.normalise()
 	return &p, nil
+}
+
+// fillDefaults gives every key left out of the file its documented default
+// (never Go's zero value) and reports the required keys left out.
+func (p *Protocol) fillDefaults(file string, pos nodePositions) []error {
+	var errs []error
+	if !pos.has("criteria", "threshold_percent") {
+		p.Criteria.ThresholdPercent = DefaultThresholdPercent
+	}
+	if !pos.has("coverage", "overall_percent") {
+		p.Coverage.OverallPercent = DefaultOverallCoveragePercent
+	}
+	if !pos.has("coverage", "roi_percent") {
+		p.Coverage.ROIPercent = DefaultROICoveragePercent
+	}
+	for i := range p.Rules {
+		for _, key := range []string{"subject", "metric", "op", "limit"} {
+			if !pos.has("rules", i, key) {
+				errs = append(errs, &Error{File: file, Line: pos.line("rules", i), Field: fieldPath([]any{"rules", i, key}),
+					Err: fmt.Errorf("missing: every rule needs subject, metric, op and limit")})
+			}
+		}
+	}
+	return errs
+}
+
+// Resolved returns a copy of the protocol with every default written out
+// (search distance, normalisation-dose source, rule levels and
+// when_missing), as results and reports show it: nothing in it means
+// "default" by being 0.
+func (p *Protocol) Resolved() *Protocol {
+	q := *p
+	q.KindRules = slices.Clone(p.KindRules)
+	q.Isodose = slices.Clone(p.Isodose)
+	q.Rules = slices.Clone(p.Rules)
+	q.normalise()
+	if q.Criteria.SearchMM == 0 {
+		if _, dta, err := gamma.ParseCriteria(q.Criteria.Criteria); err == nil {
+			q.Criteria.SearchMM = DefaultSearchDTAs * dta
+		}
+	}
+	return &q
 }
 
 // Validate checks every field of a protocol built in code (a [Parse]d one
@@ -297,6 +416,30 @@ func (p *Protocol) check(file string, line func(path ...any) int) []error {
 	if !(c.NormDoseGy >= 0) || math.IsInf(c.NormDoseGy, 0) {
 		add(fmt.Errorf("%g Gy: want a positive dose, or 0 for the reference maximum", c.NormDoseGy), "criteria", "norm_dose_gy")
 	}
+	switch strings.ToLower(strings.TrimSpace(c.NormDoseFrom)) {
+	case "":
+	case NormDoseReferenceMax:
+		if c.NormDoseGy != 0 {
+			add(fmt.Errorf("%q with norm_dose_gy %g: the reference maximum needs no dose; leave norm_dose_gy out", c.NormDoseFrom, c.NormDoseGy), "criteria", "norm_dose_from")
+		}
+	case NormDoseValue:
+		if !(c.NormDoseGy > 0) {
+			add(fmt.Errorf("%q needs norm_dose_gy above 0 Gy", c.NormDoseFrom), "criteria", "norm_dose_from")
+		}
+	default:
+		add(fmt.Errorf("%q: want %q or %q", c.NormDoseFrom, NormDoseReferenceMax, NormDoseValue), "criteria", "norm_dose_from")
+	}
+	for _, f := range []struct {
+		key string
+		v   float64
+	}{{"overall_percent", p.Coverage.OverallPercent}, {"roi_percent", p.Coverage.ROIPercent}} {
+		switch {
+		case !(f.v >= 0 && f.v <= 100):
+			add(fmt.Errorf("%g %%: want a percentage from 0 to 100", f.v), "coverage", f.key)
+		case f.v > 0 && f.v <= 1:
+			add(fmt.Errorf("%g %%: looks like a fraction; write the percentage (e.g. %g for %g %%), or 0 to leave the check out", f.v, 100*f.v, 100*f.v), "coverage", f.key)
+		}
+	}
 	for i, k := range p.KindRules {
 		if strings.TrimSpace(k.Pattern) == "" {
 			add(errors.New("empty pattern"), "roi_kinds", i, "pattern")
@@ -331,6 +474,13 @@ func (p *Protocol) normalise() {
 		p.Criteria.Normalisation = n.String()
 	}
 	p.Criteria.Criteria = strings.TrimSpace(p.Criteria.Criteria)
+	p.Criteria.NormDoseFrom = strings.ToLower(strings.TrimSpace(p.Criteria.NormDoseFrom))
+	if p.Criteria.NormDoseFrom == "" {
+		p.Criteria.NormDoseFrom = NormDoseReferenceMax
+		if p.Criteria.NormDoseGy > 0 {
+			p.Criteria.NormDoseFrom = NormDoseValue
+		}
+	}
 	if len(p.KindRules) == 0 {
 		p.KindRules = nil
 	}
@@ -354,6 +504,7 @@ func (p *Protocol) normalise() {
 		if o, err := parseOp(r.Op); err == nil {
 			r.Op = string(o)
 		}
+		r.WhenMissing = r.whenMissing()
 	}
 }
 
@@ -444,6 +595,45 @@ func (np nodePositions) line(path ...any) int {
 	return best
 }
 
+// has reports whether the field at path (mapping keys as strings, sequence
+// indices as ints) is present in the document.
+func (np nodePositions) has(path ...any) bool {
+	n := np.root
+	if n == nil {
+		return false
+	}
+	if n.Kind == yaml.DocumentNode {
+		if len(n.Content) == 0 {
+			return false
+		}
+		n = n.Content[0]
+	}
+	for _, s := range path {
+		var next *yaml.Node
+		switch v := s.(type) {
+		case int:
+			if n.Kind == yaml.SequenceNode && v >= 0 && v < len(n.Content) {
+				next = n.Content[v]
+			}
+		case string:
+			if n.Kind == yaml.MappingNode {
+				for j := 0; j+1 < len(n.Content); j += 2 {
+					if n.Content[j].Value == v {
+						next = n.Content[j+1]
+						break
+					}
+				}
+			}
+		}
+		if next == nil {
+			return false
+		}
+		n = next
+	}
+	// "key:" with no value, or "key: ~", reads as left out.
+	return !(n.Kind == yaml.ScalarNode && n.Tag == "!!null")
+}
+
 // pathAt returns the path of the deepest field that starts on line.
 func pathAt(n *yaml.Node, line int) []any {
 	if n == nil {
@@ -509,7 +699,7 @@ func typeErrors(file string, root *yaml.Node, te *yaml.TypeError) error {
 func knownFields(typ string) string {
 	for _, t := range []reflect.Type{
 		reflect.TypeFor[Protocol](), reflect.TypeFor[Criteria](),
-		reflect.TypeFor[KindRule](), reflect.TypeFor[Rule](),
+		reflect.TypeFor[KindRule](), reflect.TypeFor[Rule](), reflect.TypeFor[Coverage](),
 	} {
 		if t.String() != typ {
 			continue

@@ -33,7 +33,7 @@ func TestExampleYAMLAndJSONAreEqual(t *testing.T) {
 	if !reflect.DeepEqual(y, j) {
 		t.Fatalf("YAML and JSON forms differ:\nYAML %+v\nJSON %+v", y, j)
 	}
-	want := Criteria{Criteria: "3%/2mm", Normalisation: "global", ThresholdPercent: 10, SearchMM: 6}
+	want := Criteria{Criteria: "3%/2mm", Normalisation: "global", ThresholdPercent: 10, SearchMM: 6, NormDoseFrom: NormDoseReferenceMax}
 	if y.Criteria != want {
 		t.Errorf("criteria %+v, want %+v", y.Criteria, want)
 	}
@@ -48,13 +48,16 @@ func TestExampleYAMLAndJSONAreEqual(t *testing.T) {
 		t.Errorf("kind rules %+v", y.KindRules)
 	}
 	wantRules := []Rule{
-		{Level: "tolerance", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 95},
-		{Level: "action", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 90},
-		{Level: "tolerance", Subject: "targets", Metric: "pass_rate", Op: ">=", Limit: 95},
-		{Level: "tolerance", Subject: "targets", Metric: "dvh_diff_percent:d95", Op: "abs<=", Limit: 3},
-		{Level: "tolerance", Subject: "oars", Metric: "gamma_p95", Op: "<=", Limit: 1},
-		{Level: "action", Subject: "roi:SpinalCord", Metric: "dvh_diff_gy:d0_03cc", Op: "<=", Limit: 0.5},
-		{Level: "tolerance", Subject: "isodose:50", Metric: "gamma_mean", Op: "<=", Limit: 0.5},
+		{Level: "tolerance", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 95, WhenMissing: "fail"},
+		{Level: "action", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 90, WhenMissing: "fail"},
+		{Level: "tolerance", Subject: "targets", Metric: "pass_rate", Op: ">=", Limit: 95, WhenMissing: "fail"},
+		{Level: "tolerance", Subject: "targets", Metric: "dvh_diff_percent:d95", Op: "abs<=", Limit: 3, WhenMissing: "fail"},
+		{Level: "tolerance", Subject: "oars", Metric: "gamma_p95", Op: "<=", Limit: 1, WhenMissing: "fail"},
+		{Level: "action", Subject: "roi:SpinalCord", Metric: "dvh_diff_gy:d0_03cc", Op: "<=", Limit: 0.5, WhenMissing: "fail"},
+		{Level: "tolerance", Subject: "isodose:50", Metric: "gamma_mean", Op: "<=", Limit: 0.5, WhenMissing: "fail"},
+	}
+	if y.Coverage != DefaultCoverage() {
+		t.Errorf("coverage %+v, want the defaults %+v (the file leaves them out)", y.Coverage, DefaultCoverage())
 	}
 	if !reflect.DeepEqual(y.Rules, wantRules) {
 		t.Errorf("rules\n got %+v\nwant %+v", y.Rules, wantRules)
@@ -250,8 +253,8 @@ rules:
 		t.Fatal(err)
 	}
 	want := []Rule{
-		{Level: "action", Subject: "roi:PTV 60", Metric: "pass_rate", Op: ">=", Limit: 95},
-		{Level: "tolerance", Subject: "targets", Metric: "dvh_diff_gy:d0_03cc", Op: "abs<=", Limit: 1},
+		{Level: "action", Subject: "roi:PTV 60", Metric: "pass_rate", Op: ">=", Limit: 95, WhenMissing: "fail"},
+		{Level: "tolerance", Subject: "targets", Metric: "dvh_diff_gy:d0_03cc", Op: "abs<=", Limit: 1, WhenMissing: "fail"},
 	}
 	if !reflect.DeepEqual(p.Rules, want) {
 		t.Errorf("rules %+v, want %+v", p.Rules, want)
@@ -266,7 +269,9 @@ rules:
 	if err != nil {
 		t.Fatal(err)
 	}
-	if g != (gamma.Criteria{DosePercent: 2, DTA: 1, Normalisation: gamma.Local}) {
+	// threshold_percent is left out: the documented default, 10 %, never
+	// Go's zero value.
+	if g != (gamma.Criteria{DosePercent: 2, DTA: 1, Normalisation: gamma.Local, ThresholdPercent: DefaultThresholdPercent}) {
 		t.Errorf("gamma criteria %+v", g)
 	}
 }
@@ -371,12 +376,16 @@ func TestPresetTG218(t *testing.T) {
 	// TG-218's universal tolerance limit ≥ 95 % and action limit ≥ 90 %
 	// passing; the per-target rule is this tool's choice.
 	wantRules := []Rule{
-		{Level: "tolerance", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 95},
-		{Level: "action", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 90},
-		{Level: "tolerance", Subject: "targets", Metric: "pass_rate", Op: ">=", Limit: 95},
+		{Level: "tolerance", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 95, WhenMissing: MissingFail},
+		{Level: "action", Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 90, WhenMissing: MissingFail},
+		{Level: "tolerance", Subject: "targets", Metric: "pass_rate", Op: ">=", Limit: 95, WhenMissing: MissingFail},
 	}
 	if !reflect.DeepEqual(p.Rules, wantRules) {
 		t.Errorf("rules %+v", p.Rules)
+	}
+	// Coverage: this tool's choice, in every preset.
+	if p.Coverage != DefaultCoverage() {
+		t.Errorf("coverage %+v", p.Coverage)
 	}
 	for _, w := range []string{"Miften et al., Med Phys 45 (2018) e53", "this tool's choice, not a TG-218 recommendation"} {
 		if !strings.Contains(p.Source, w) {
@@ -446,7 +455,7 @@ func TestRuleString(t *testing.T) {
 // roiOf builds a result ROI from the structure set with a pass rate (nil:
 // not evaluated, with the status given).
 func roiOf(name, kind string, pass *float64, status string) result.ROI {
-	r := result.ROI{Name: name, Kind: kind, Source: "structure set", Status: status}
+	r := result.ROI{Name: name, Kind: kind, Source: "structure set", Status: result.ROIStatus(status)}
 	r.PassRate = pass
 	if pass != nil {
 		r.Evaluated = 1000
@@ -525,9 +534,9 @@ func TestEvaluatePerROI(t *testing.T) {
 		ROIs: []result.ROI{
 			roiOf("PTV_60", "target", fp(96.5), "evaluated"),
 			roiOf("SpinalCord", "oar", fp(100), "evaluated"),
-			roiOf("PTV_met", "target", nil, "all below threshold"),
-			roiOf("Parotid_L", "oar", nil, "all below threshold"),
-			roiOf("Lens_R", "oar", nil, "outside the dose grid"),
+			roiOf("PTV_met", "target", nil, string(result.StatusBelowThreshold)),
+			roiOf("Parotid_L", "oar", nil, string(result.StatusBelowThreshold)),
+			roiOf("Lens_R", "oar", nil, string(result.StatusOutsideDoseGrid)),
 			roiOf("PTV_54", "target", fp(94.5), "evaluated"),
 			{Name: "all targets", Kind: "target", Source: "derived", Status: "evaluated", GammaStats: result.GammaStats{PassRate: fp(10)}},
 			{Name: "isodose 50% of 60 Gy", Kind: "other", Source: "isodose", Status: "evaluated", GammaStats: result.GammaStats{PassRate: fp(10)}},
@@ -545,15 +554,18 @@ func TestEvaluatePerROI(t *testing.T) {
 		// each target, in ROI order; the derived "all targets" is not one
 		{"PTV_60", fp(96.5), true, ""},
 		{"PTV_met", nil, false, "not evaluated: all below threshold"},
-		{"PTV_54", fp(94.5), false, "measured 94.5 %, not ≥ 95 %"},
-		// each organ at risk: low dose is fine, outside the grid is not
+		// the pass rate as shown: rounded down, two decimals
+		{"PTV_54", fp(94.5), false, "measured 94.50 %, not ≥ 95 %"},
+		// each organ at risk: low dose is fine (the status is a typed
+		// value: the text analysis writes is the one evaluation reads),
+		// outside the grid is not
 		{"SpinalCord", fp(100), true, ""},
-		{"Parotid_L", nil, true, "not evaluated: all below threshold"},
+		{"Parotid_L", nil, true, "every point of this organ at risk is below the low-dose threshold"},
 		{"Lens_R", nil, false, "not evaluated: outside the dose grid"},
 		// one ROI by name, case-insensitive
 		{"SpinalCord", fp(1.2), true, ""},
 		// a named ROI that is missing must not pass
-		{"roi:Brainstem", nil, false, "ROI not found"},
+		{"roi:Brainstem", nil, false, "ROI not found: nothing to check, and the rule requires it (when_missing: fail)"},
 	}
 	if len(out) != len(want) {
 		t.Fatalf("%d outcomes, want %d: %+v", len(out), len(want), out)
@@ -577,23 +589,105 @@ func TestEvaluatePerROI(t *testing.T) {
 	}
 }
 
+// TestEvaluateNoROIOfAKind checks that a rule with nothing to check is not
+// met unless the protocol says it may be skipped, or the comparison was run
+// deliberately without a structure set; not applicable never reads as met,
+// and rules that are all not applicable make no pass.
 func TestEvaluateNoROIOfAKind(t *testing.T) {
-	p := protocolOf(t,
-		Rule{Subject: "targets", Metric: "pass_rate", Op: ">=", Limit: 95},
-		Rule{Subject: "oars", Metric: "pass_rate", Op: ">=", Limit: 90})
-	r := &result.Result{ROIs: []result.ROI{
+	rules := []Rule{
+		{Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 95},
+		{Subject: "targets", Metric: "pass_rate", Op: ">=", Limit: 95},
+		{Subject: "oars", Metric: "pass_rate", Op: ">=", Limit: 90},
+	}
+	r := &result.Result{Overall: result.GammaStats{PassRate: fp(99)}, ROIs: []result.ROI{
 		roiOf("Couch", "other", fp(50), "evaluated"),
 		{Name: "all targets", Kind: "target", Source: "derived", GammaStats: result.GammaStats{PassRate: fp(99)}},
 	}}
-	out, verdict := p.Evaluate(r)
-	if len(out) != 2 || verdict != Pass {
+	out, verdict := protocolOf(t, rules...).Evaluate(r)
+	if len(out) != 3 || verdict != Fail {
 		t.Fatalf("%+v %s", out, verdict)
 	}
-	if out[0].Subject != "targets" || !out[0].Met || out[0].Value != nil || out[0].Reason != "no target ROI in this comparison" {
-		t.Errorf("targets: %+v", out[0])
+	for i, want := range []string{"no target ROI in this comparison", "no organ-at-risk ROI in this comparison"} {
+		o := out[i+1]
+		if o.Outcome != result.NotMet || o.Met || o.Value != nil || !strings.HasPrefix(o.Reason, want+": nothing to check") {
+			t.Errorf("rule %d: %+v", i+1, o)
+		}
 	}
-	if out[1].Subject != "oars" || !out[1].Met || out[1].Reason != "no organ-at-risk ROI in this comparison" {
-		t.Errorf("oars: %+v", out[1])
+
+	// when_missing: skip makes them not applicable: the verdict rests on
+	// the overall rule alone.
+	skip := append([]Rule{}, rules...)
+	skip[1].WhenMissing, skip[2].WhenMissing = MissingSkip, MissingSkip
+	out, verdict = protocolOf(t, skip...).Evaluate(r)
+	if verdict != Pass || out[0].Outcome != result.Met {
+		t.Fatalf("skip: %+v %s", out, verdict)
+	}
+	for _, o := range out[1:] {
+		if o.Outcome != result.NotApplicable || o.Met || !strings.HasSuffix(o.Reason, "(when_missing: skip)") {
+			t.Errorf("skip: %+v", o)
+		}
+	}
+
+	// A comparison run deliberately without structures: per-ROI rules are
+	// not applicable whatever when_missing says.
+	r.Choices.NoStructures = true
+	out, verdict = protocolOf(t, rules...).Evaluate(r)
+	if verdict != Pass {
+		t.Fatalf("no structures: %+v %s", out, verdict)
+	}
+	for _, o := range out[1:] {
+		if o.Outcome != result.NotApplicable || !strings.Contains(o.Reason, "--no-structures") {
+			t.Errorf("no structures: %+v", o)
+		}
+	}
+
+	// Nothing but not-applicable outcomes: nothing was checked, no pass.
+	out, verdict = protocolOf(t, rules[1:]...).Evaluate(r)
+	if verdict != Fail || len(out) != 2 {
+		t.Errorf("all not applicable: %+v %s", out, verdict)
+	}
+}
+
+// TestEvaluateCoverage checks that coverage is part of the verdict: the
+// overall coverage rule, the coverage metric, and per-ROI rules on an ROI
+// not wholly inside both grids.
+func TestEvaluateCoverage(t *testing.T) {
+	p := protocolOf(t, Rule{Subject: "overall", Metric: "pass_rate", Op: ">=", Limit: 95},
+		Rule{Subject: "targets", Metric: "pass_rate", Op: ">=", Limit: 95})
+	p.Coverage = DefaultCoverage()
+	ptv := roiOf("PTV", "target", fp(100), "evaluated")
+	ptv.CoveredPercent = fp(100)
+	r := &result.Result{Overall: result.GammaStats{PassRate: fp(100), CoveragePercent: fp(100 * 5453.0 / (5453 + 6673))},
+		ROIs: []result.ROI{ptv}}
+	out, verdict := p.Evaluate(r)
+	if verdict != Fail || len(out) != 3 {
+		t.Fatalf("%+v %s", out, verdict)
+	}
+	if o := out[0]; o.Rule != "overall: coverage ≥ 99.5 %" || o.Outcome != result.NotMet || o.ValueText != "44.96" ||
+		o.Reason != "measured 44.96 %, not ≥ 99.5 %" {
+		t.Errorf("coverage rule: %+v", o)
+	}
+	// 99.5 % covered: met at the limit; the value shown is rounded down.
+	r.Overall.CoveragePercent = fp(99.5)
+	if out, verdict = p.Evaluate(r); verdict != Pass || !out[0].Met {
+		t.Errorf("at the limit: %+v %s", out, verdict)
+	}
+	// A target only partly inside the grids is not judged on its covered
+	// part, even at 100 % passing.
+	r.ROIs[0].CoveredPercent = fp(62.5)
+	out, verdict = p.Evaluate(r)
+	if verdict != Fail || out[2].Outcome != result.NotMet || !strings.Contains(out[2].Reason, "only 62.50 % of this ROI lies inside both dose grids") {
+		t.Errorf("partly covered target: %+v %s", out[2], verdict)
+	}
+	// ... unless the protocol says so.
+	p.Coverage.ROIPercent = 50
+	if out, verdict = p.Evaluate(r); verdict != Pass {
+		t.Errorf("roi_percent 50: %+v %s", out, verdict)
+	}
+	// The coverage metric reads the ROI's covered share.
+	p = protocolOf(t, Rule{Subject: "roi:PTV", Metric: "coverage", Op: ">=", Limit: 90})
+	if out, verdict = p.Evaluate(r); verdict != Fail || *out[0].Value != 62.5 {
+		t.Errorf("coverage metric: %+v %s", out, verdict)
 	}
 }
 
@@ -636,7 +730,7 @@ func TestEvaluateAbsD95(t *testing.T) {
 	}
 	// A DVH rule on an organ at risk without DVH is not met either.
 	p = protocolOf(t, Rule{Subject: "oars", Metric: "dvh_diff_gy:max", Op: "<=", Limit: 1})
-	out, verdict = p.Evaluate(&result.Result{ROIs: []result.ROI{roiOf("Cord", "oar", nil, "all below threshold")}})
+	out, verdict = p.Evaluate(&result.Result{ROIs: []result.ROI{roiOf("Cord", "oar", nil, string(result.StatusBelowThreshold))}})
 	if verdict != Fail || out[0].Met {
 		t.Errorf("OAR without DVH: %+v", out[0])
 	}
@@ -662,7 +756,7 @@ func TestEvaluateIsodose(t *testing.T) {
 		t.Errorf("at the limit: %+v %s", out, verdict)
 	}
 	r.ROIs = r.ROIs[:3]
-	if out, verdict = p.Evaluate(r); out[0].Met || out[0].Reason != "ROI not found" || out[0].Subject != "isodose:50" || verdict != Fail {
+	if out, verdict = p.Evaluate(r); out[0].Met || !strings.HasPrefix(out[0].Reason, "ROI not found:") || out[0].Subject != "isodose:50" || verdict != Fail {
 		t.Errorf("missing isodose ROI: %+v %s", out, verdict)
 	}
 }
@@ -703,7 +797,7 @@ func TestEvaluateExample(t *testing.T) {
 		cord.GammaP95 = fp(0.4)
 		cord.DVH = &result.DVHPair{DifferenceGy: result.DVHStats{D003ccGy: fp(0.2)}}
 		return &result.Result{
-			Overall: result.GammaStats{PassRate: fp(98.2)},
+			Overall: result.GammaStats{PassRate: fp(98.2), CoveragePercent: fp(100)},
 			ROIs: []result.ROI{
 				withD95(roiOf("PTV_60", "target", fp(97), "evaluated"), 1.2),
 				cord,
@@ -712,9 +806,10 @@ func TestEvaluateExample(t *testing.T) {
 		}
 	}
 	out, verdict := p.Evaluate(good())
-	if verdict != Pass || len(out) != 7 {
+	if verdict != Pass || len(out) != 8 || out[0].Rule != "overall: coverage ≥ 99.5 %" {
 		t.Fatalf("%+v %s", out, verdict)
 	}
+	out = out[1:] // the spoilt rules below count from the file's first
 	spoil := []func(r *result.Result){
 		func(r *result.Result) { r.Overall.PassRate = fp(92) },
 		func(r *result.Result) { r.ROIs[0].DVH.DifferencePercent.D95Gy = fp(-3.5) },
@@ -722,13 +817,16 @@ func TestEvaluateExample(t *testing.T) {
 		func(r *result.Result) { r.ROIs[1].GammaP95 = fp(1.01) },
 		func(r *result.Result) { r.ROIs[2].GammaMean = fp(0.7) },
 	}
-	wantFailed := [][]int{{0}, {3}, {5}, {4}, {6}}
+	wantFailed := [][]int{{1}, {4}, {6}, {5}, {7}} // after the coverage rule
 	for k, f := range spoil {
 		r := good()
 		f(r)
 		out, verdict := p.Evaluate(r)
 		var failed []int
 		for i, o := range out {
+			if o.Met != (o.Outcome == result.Met) {
+				t.Errorf("outcome %d: met %v with outcome %q", i, o.Met, o.Outcome)
+			}
 			if !o.Met {
 				failed = append(failed, i)
 			}
@@ -802,4 +900,45 @@ func TestROIRules(t *testing.T) {
 
 func classify(rules []roi.Rule, name, typ string) string {
 	return roi.Classify(&structure.ROI{Name: name, InterpretedType: typ}, rules).String()
+}
+
+// TestParseDefaultsAndRequiredKeys checks that a key left out of a file takes
+// its documented default, never Go's zero value (threshold_percent 10 %
+// after AAPM TG-218, Miften et al., Med Phys 45 (2018) e53; the coverage
+// limits are this tool's choice), that a rule's required keys are required,
+// and that a limit written as a fraction is refused with a hint.
+func TestParseDefaultsAndRequiredKeys(t *testing.T) {
+	p, err := Parse([]byte("name: n\ncriteria: {criteria: 3%/2mm}\nrules: [{subject: overall, metric: pass_rate, op: \">=\", limit: 95}]\n"), "n.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p.Criteria.ThresholdPercent != 10 || p.Coverage != DefaultCoverage() || p.Criteria.NormDoseFrom != NormDoseReferenceMax {
+		t.Errorf("defaults: %+v %+v", p.Criteria, p.Coverage)
+	}
+	// Left empty (YAML null) reads as left out; 0 written out is 0.
+	p, err = Parse([]byte("name: n\ncriteria: {criteria: 3%/2mm, threshold_percent: ~}\ncoverage: {overall_percent: 0}\nrules: [{subject: overall, metric: pass_rate, op: \">=\", limit: 95}]\n"), "n.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p.Criteria.ThresholdPercent != 10 || p.Coverage.OverallPercent != 0 || p.Coverage.ROIPercent != 100 {
+		t.Errorf("null and zero: %+v %+v", p.Criteria, p.Coverage)
+	}
+	r := p.Resolved()
+	if r.Criteria.SearchMM != 6 || r.Rules[0].Level != "tolerance" || r.Rules[0].WhenMissing != MissingFail {
+		t.Errorf("resolved: %+v %+v", r.Criteria, r.Rules[0])
+	}
+	for _, tc := range []struct{ text, want string }{
+		{"rules: [{subject: overall, metric: pass_rate, op: \">=\"}]", `n.yaml:3: rules[0].limit: missing`},
+		{"rules: [{subject: overall, metric: pass_rate, limit: 95}]", `rules[0].op: missing`},
+		{"rules: [{subject: overall, metric: pass_rate, op: \">=\", limit: 0.95}]", `rules[0].limit: 0.95: looks like a fraction, not a percentage; write 95 for 95 %`},
+		{"rules: [{subject: overall, metric: coverage, op: \">=\", limit: 0.995}]", `write 99.5 for 99.5 %`},
+		{"rules: [{subject: overall, metric: pass_rate, op: \">=\", limit: 0}]", `checks nothing`},
+		{"coverage: {overall_percent: 0.995}\nrules: [{subject: overall, metric: pass_rate, op: \">=\", limit: 95}]", `coverage.overall_percent: 0.995 %: looks like a fraction`},
+		{"rules: [{subject: targets, metric: pass_rate, op: \">=\", limit: 95, when_missing: ignore}]", `rules[0].when_missing: "ignore": want fail or skip`},
+	} {
+		_, err := Parse([]byte("name: n\ncriteria: {criteria: 3%/2mm}\n"+tc.text+"\n"), "n.yaml")
+		if err == nil || !strings.Contains(err.Error(), tc.want) {
+			t.Errorf("%s: error %v, want %q", tc.text, err, tc.want)
+		}
+	}
 }

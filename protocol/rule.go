@@ -93,15 +93,21 @@ var gammaMetrics = []string{"pass_rate", "gamma_mean", "gamma_median", "gamma_p9
 // dvhMetrics are the DVH metrics a dvh_diff rule may name.
 var dvhMetrics = []string{"mean", "max", "min", "d98", "d95", "d50", "d2", "d0_03cc"}
 
+// coverageMetric is the share of the subject the comparison could look at:
+// for overall, the percentage of the reference points at or above the
+// threshold that were compared; for an ROI, the percentage of its volume
+// inside both dose grids.
+const coverageMetric = "coverage"
+
 // metric is a parsed Rule.Metric.
 type metric struct {
-	base string // one of gammaMetrics, or "dvh_diff_percent", "dvh_diff_gy"
+	base string // one of gammaMetrics, coverageMetric, or "dvh_diff_percent", "dvh_diff_gy"
 	dvh  string // one of dvhMetrics, for the dvh_diff metrics
 }
 
 func parseMetric(s string) (metric, error) {
 	t := strings.ToLower(strings.TrimSpace(s))
-	if slices.Contains(gammaMetrics, t) {
+	if slices.Contains(gammaMetrics, t) || t == coverageMetric {
 		return metric{base: t}, nil
 	}
 	base, m, ok := strings.Cut(t, ":")
@@ -112,11 +118,15 @@ func parseMetric(s string) (metric, error) {
 		}
 		return metric{}, fmt.Errorf("metric %q: want %s:M with M one of %s", s, base, strings.Join(dvhMetrics, ", "))
 	}
-	return metric{}, fmt.Errorf("metric %q: want one of %s, dvh_diff_percent:M or dvh_diff_gy:M (M one of %s)",
-		s, strings.Join(gammaMetrics, ", "), strings.Join(dvhMetrics, ", "))
+	return metric{}, fmt.Errorf("metric %q: want one of %s, %s, dvh_diff_percent:M or dvh_diff_gy:M (M one of %s)",
+		s, strings.Join(gammaMetrics, ", "), coverageMetric, strings.Join(dvhMetrics, ", "))
 }
 
 func (m metric) isDVH() bool { return m.dvh != "" }
+
+// isPercent reports whether the metric is a percentage of points or volume
+// (pass rate, coverage): shown rounded down, never 100 unless it is.
+func (m metric) isPercent() bool { return m.base == "pass_rate" || m.base == coverageMetric }
 
 // String returns the canonical form of the metric.
 func (m metric) String() string {
@@ -141,6 +151,8 @@ func (m metric) words() string {
 		return "Γ 99th percentile"
 	case "gamma_max":
 		return "maximum Γ"
+	case coverageMetric:
+		return "coverage"
 	}
 	switch m.dvh {
 	case "mean", "max", "min":
@@ -155,7 +167,7 @@ func (m metric) words() string {
 // "" for Γ.
 func (m metric) unit() string {
 	switch m.base {
-	case "pass_rate", "dvh_diff_percent":
+	case "pass_rate", "dvh_diff_percent", coverageMetric:
 		return " %"
 	case "dvh_diff_gy":
 		return " Gy"
@@ -180,6 +192,14 @@ func (m metric) gammaValue(g *result.GammaStats) *float64 {
 		return g.GammaMax
 	}
 	return nil
+}
+
+// overallValue returns the metric from the overall statistics.
+func (m metric) overallValue(g *result.GammaStats) *float64 {
+	if m.base == coverageMetric {
+		return g.CoveragePercent
+	}
+	return m.gammaValue(g)
 }
 
 // dvhValue returns the metric's difference from a DVH pair.
@@ -285,14 +305,31 @@ func (r Rule) check(isodose []float64) []*fieldError {
 	case math.IsNaN(r.Limit) || math.IsInf(r.Limit, 0):
 		add("limit", fmt.Errorf("%g: want a finite number", r.Limit))
 	case merr != nil:
-	case m.base == "pass_rate" && (r.Limit < 0 || r.Limit > 100):
-		add("limit", fmt.Errorf("%g: a pass rate limit is a percentage from 0 to 100", r.Limit))
+	case m.isPercent() && (r.Limit < 0 || r.Limit > 100):
+		add("limit", fmt.Errorf("%g: a %s limit is a percentage from 0 to 100", r.Limit, m.words()))
+	case m.isPercent() && r.Limit == 0 && o == opGE:
+		add("limit", fmt.Errorf("0: a %s of at least 0 %% checks nothing", m.words()))
+	case m.isPercent() && r.Limit > 0 && r.Limit <= 1:
+		add("limit", fmt.Errorf("%g: looks like a fraction, not a percentage; write %g for %g %%", r.Limit, 100*r.Limit, 100*r.Limit))
 	case !m.isDVH() && r.Limit < 0:
 		add("limit", fmt.Errorf("%g: Γ is never negative", r.Limit))
 	case oerr == nil && o == opAbsLE && r.Limit < 0:
 		add("limit", fmt.Errorf("%g: an absolute value is never below a negative limit", r.Limit))
 	}
+	switch strings.ToLower(strings.TrimSpace(r.WhenMissing)) {
+	case "", MissingFail, MissingSkip:
+	default:
+		add("when_missing", fmt.Errorf("%q: want %s or %s", r.WhenMissing, MissingFail, MissingSkip))
+	}
 	return errs
+}
+
+// whenMissing returns the rule's when_missing, MissingFail when empty.
+func (r Rule) whenMissing() string {
+	if w := strings.ToLower(strings.TrimSpace(r.WhenMissing)); w != "" {
+		return w
+	}
+	return MissingFail
 }
 
 // level returns the rule's level, "tolerance" when empty.

@@ -14,6 +14,7 @@ import (
 var csvHeader = []string{
 	"name", "kind", "source", "volume_cc", "voxels", "evaluated", "passed", "pass_rate",
 	"gamma_mean", "gamma_p95", "gamma_max", "failing_volume_cc", "status",
+	"coverage_percent", "covered_percent",
 	"ref_mean_gy", "eval_mean_gy", "ref_d95_gy", "eval_d95_gy", "diff_d95_percent",
 	"ref_d2_gy", "eval_d2_gy", "diff_d2_percent",
 }
@@ -26,8 +27,11 @@ func CSVColumns() []string { return append([]string(nil), csvHeader...) }
 // row per ROI in the result's order. A number that does not exist (null in
 // the JSON, or a column that does not apply to the overall row) is an empty
 // cell. Numbers are written in the shortest form that reads back to the same
-// float64; pass_rate is the exact rate, not the rounded-down text the page
-// shows.
+// float64, except the percentages of points and volume (pass_rate,
+// coverage_percent, covered_percent), which follow the one display rule of
+// every output: rounded down to the digits shown (two decimals), never 100
+// unless every point passed (result.FormatPercent). The exact values are in
+// the JSON.
 func EncodeCSV(w io.Writer, r *result.Result) error {
 	if r == nil {
 		return fmt.Errorf("report: encoding CSV: no result")
@@ -38,8 +42,9 @@ func EncodeCSV(w io.Writer, r *result.Result) error {
 	o := r.Overall
 	rows = append(rows, []string{
 		"overall", "", "", "", "",
-		strconv.Itoa(o.Evaluated), strconv.Itoa(o.Passed), csvNum(o.PassRate),
+		strconv.Itoa(o.Evaluated), strconv.Itoa(o.Passed), csvPercent(o.PassRate),
 		csvNum(o.GammaMean), csvNum(o.GammaP95), csvNum(o.GammaMax), "", "",
+		csvPercent(o.CoveragePercent), "",
 		"", "", "", "", "", "", "", "",
 	})
 	for _, roi := range r.ROIs {
@@ -49,9 +54,10 @@ func EncodeCSV(w io.Writer, r *result.Result) error {
 		}
 		rows = append(rows, []string{
 			roi.Name, roi.Kind, roi.Source, csvFloat(roi.VolumeCC), strconv.Itoa(roi.Voxels),
-			strconv.Itoa(roi.Evaluated), strconv.Itoa(roi.Passed), csvNum(roi.PassRate),
+			strconv.Itoa(roi.Evaluated), strconv.Itoa(roi.Passed), csvPercent(roi.PassRate),
 			csvNum(roi.GammaMean), csvNum(roi.GammaP95), csvNum(roi.GammaMax),
-			csvFloat(roi.FailingVolumeCC), roi.Status,
+			csvFloat(roi.FailingVolumeCC), statusText(roi),
+			csvPercent(roi.CoveragePercent), csvPercent(roi.CoveredPercent),
 			csvNum(dvh.Reference.MeanGy), csvNum(dvh.Evaluated.MeanGy),
 			csvNum(dvh.Reference.D95Gy), csvNum(dvh.Evaluated.D95Gy), csvNum(dvh.DifferencePercent.D95Gy),
 			csvNum(dvh.Reference.D2Gy), csvNum(dvh.Evaluated.D2Gy), csvNum(dvh.DifferencePercent.D2Gy),
@@ -79,6 +85,14 @@ func csvNum(p *float64) string {
 		return ""
 	}
 	return csvFloat(*p)
+}
+
+// csvPercent writes a percentage by the display rule, empty when null.
+func csvPercent(p *float64) string {
+	if p == nil {
+		return ""
+	}
+	return result.FormatPercent(*p, 2)
 }
 
 func csvFloat(v float64) string {

@@ -100,6 +100,8 @@ tr.not-evaluated td { background: #f3f3f3; color: var(--muted); }
 .verdict.fail { color: var(--notmet); border-color: var(--notmet); }
 .met { color: var(--met); font-weight: bold; white-space: nowrap; }
 .notmet { color: var(--notmet); font-weight: bold; white-space: nowrap; }
+.na { color: #555; font-style: italic; white-space: nowrap; }
+.cond { color: #6a4a00; font-size: 0.9em; }
 .caution { border: 2px solid var(--warn); border-left-width: 8px; background: #fff7e3; padding: 8px 12px; margin: 10px 0; }
 .warnings li { color: var(--warn); font-weight: bold; }
 .mono { font-family: "Liberation Mono", "DejaVu Sans Mono", Consolas, monospace; font-size: 12px; word-break: break-all; }
@@ -164,7 +166,7 @@ footer { margin-top: 30px; color: var(--muted); font-size: 12px; }
 <thead><tr><th>outcome</th><th>rule</th><th>level</th><th>applied to</th><th>measured</th><th>limit</th><th>remark</th></tr></thead>
 <tbody>
 {{- range .Rules}}
-<tr><td class="{{if .Met}}met{{else}}notmet{{end}}">{{.Mark}}</td><td>{{.Rule}}</td><td>{{.Level}}</td><td>{{.Subject}}</td><td class="num">{{.Value}}</td><td class="num">{{.Limit}}</td><td>{{.Reason}}</td></tr>
+<tr><td class="{{.Class}}">{{.Mark}}</td><td>{{.Rule}}</td><td>{{.Level}}</td><td>{{.Subject}}</td><td class="num">{{.Value}}</td><td class="num">{{.Limit}}</td><td>{{.Reason}}{{range .Conditions}}<br><span class="cond">under: {{.}}</span>{{end}}</td></tr>
 {{- end}}
 </tbody>
 </table>
@@ -271,7 +273,7 @@ footer { margin-top: 30px; color: var(--muted); font-size: 12px; }
 </body>
 </html>
 {{define "cells" -}}
-<td>{{if .SwatchStyle}}<span class="swatch" style="{{.SwatchStyle}}"></span>{{end}}{{.Name}}</td><td>{{.Kind}}</td><td class="num" data-col="volume_cc">{{.VolumeCC}}</td><td class="num" data-col="evaluated">{{.Evaluated}}</td><td class="num" data-col="pass_rate">{{.PassRate}}</td><td class="num" data-col="gamma_mean">{{.GammaMean}}</td><td class="num" data-col="gamma_p95">{{.GammaP95}}</td><td class="num" data-col="gamma_max">{{.GammaMax}}</td><td class="num" data-col="d_mean">{{.DMean}}</td><td class="num" data-col="d95">{{.D95}}</td><td class="num" data-col="d2">{{.D2}}</td><td data-col="status">{{.Status}}</td><td data-col="rules"><ul class="rules">{{range .Rules}}<li class="{{if .Met}}met{{else}}notmet{{end}}">{{.Mark}}: <span>{{.Text}}</span></li>{{end}}</ul></td>
+<td>{{if .SwatchStyle}}<span class="swatch" style="{{.SwatchStyle}}"></span>{{end}}{{.Name}}</td><td>{{.Kind}}</td><td class="num" data-col="volume_cc">{{.VolumeCC}}</td><td class="num" data-col="evaluated">{{.Evaluated}}</td><td class="num" data-col="pass_rate">{{.PassRate}}</td><td class="num" data-col="gamma_mean">{{.GammaMean}}</td><td class="num" data-col="gamma_p95">{{.GammaP95}}</td><td class="num" data-col="gamma_max">{{.GammaMax}}</td><td class="num" data-col="d_mean">{{.DMean}}</td><td class="num" data-col="d95">{{.D95}}</td><td class="num" data-col="d2">{{.D2}}</td><td data-col="status">{{.Status}}</td><td data-col="rules"><ul class="rules">{{range .Rules}}<li class="{{.Class}}">{{.Mark}}: <span>{{.Text}}</span></li>{{end}}</ul></td>
 {{- end}}
 {{define "figure" -}}
 <figure>{{if .SVG}}{{.SVG}}{{if .Legend}}

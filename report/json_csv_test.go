@@ -105,7 +105,7 @@ func TestCSV(t *testing.T) {
 	if got := strings.Join(CSVColumns(), ","); got != strings.Join(rows[0], ",") {
 		t.Errorf("CSVColumns %s differs from the header written", got)
 	}
-	wantHeader := "name,kind,source,volume_cc,voxels,evaluated,passed,pass_rate,gamma_mean,gamma_p95,gamma_max,failing_volume_cc,status,ref_mean_gy,eval_mean_gy,ref_d95_gy,eval_d95_gy,diff_d95_percent,ref_d2_gy,eval_d2_gy,diff_d2_percent"
+	wantHeader := "name,kind,source,volume_cc,voxels,evaluated,passed,pass_rate,gamma_mean,gamma_p95,gamma_max,failing_volume_cc,status,coverage_percent,covered_percent,ref_mean_gy,eval_mean_gy,ref_d95_gy,eval_d95_gy,diff_d95_percent,ref_d2_gy,eval_d2_gy,diff_d2_percent"
 	if got := strings.Join(rows[0], ","); got != wantHeader {
 		t.Errorf("header\n got %s\nwant %s", got, wantHeader)
 	}
@@ -115,7 +115,7 @@ func TestCSV(t *testing.T) {
 	}
 	overall := rows[1]
 	if overall[0] != "overall" || overall[col["evaluated"]] != itoa(r.Overall.Evaluated) ||
-		overall[col["pass_rate"]] != csvFloat(*r.Overall.PassRate) {
+		overall[col["pass_rate"]] != result.FormatPercent(*r.Overall.PassRate, 2) {
 		t.Errorf("overall row %v", overall)
 	}
 	for _, c := range []string{"volume_cc", "status", "ref_d95_gy", "diff_d2_percent"} {
@@ -125,7 +125,7 @@ func TestCSV(t *testing.T) {
 	}
 	for i, roi := range r.ROIs {
 		row := rows[i+2]
-		if row[0] != roi.Name || row[col["status"]] != roi.Status {
+		if row[0] != roi.Name || row[col["status"]] != statusText(roi) {
 			t.Errorf("row %d: %v, want ROI %q", i+2, row, roi.Name)
 		}
 		if roi.DVH != nil && row[col["diff_d95_percent"]] != csvFloat(*roi.DVH.DifferencePercent.D95Gy) {

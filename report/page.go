@@ -68,15 +68,16 @@ type inputRow struct {
 
 type ruleRow struct {
 	Met                                bool
-	Mark                               string
+	Class, Mark                        string
 	Rule, Level, Subject, Value, Limit string
 	Reason                             string
+	Conditions                         []string
 }
 
 type ruleMark struct {
-	Met  bool
-	Mark string
-	Text string
+	Met         bool
+	Class, Mark string
+	Text        string
 }
 
 type roiRow struct {
@@ -240,7 +241,7 @@ func buildModel(in Page) (*model, error) {
 				return nil, fmt.Errorf("ROI %q: %w", roi.Name, err)
 			}
 			if h.Total == 0 {
-				panel.Histogram.Missing = "No voxel of this ROI has a Γ (status: " + roi.Status + ")."
+				panel.Histogram.Missing = "No voxel of this ROI has a Γ (status: " + statusText(roi) + ")."
 			} else {
 				title := "Γ histogram: " + roi.Name
 				svg, err := histogramSVG(h, title)
@@ -378,24 +379,33 @@ func fillHeader(m *model, r *result.Result) {
 		fmt.Sprintf("%d evaluated points capped at the search distance (Γ reported as the search distance over the DTA; they count as failing)", o.Capped),
 	}
 	for _, roi := range r.ROIs {
-		if roi.Status != "evaluated" {
-			m.NotEvaluated = append(m.NotEvaluated, fmt.Sprintf("ROI %q: %s", roi.Name, nonBlank(roi.Status, "status not stated")))
+		if !roi.Status.Evaluated() {
+			m.NotEvaluated = append(m.NotEvaluated, fmt.Sprintf("ROI %q: %s", roi.Name, nonBlank(statusText(roi), "status not stated")))
+		}
+		if c := roi.CoveredPercent; c != nil && *c < 100 {
+			m.NotEvaluated = append(m.NotEvaluated, fmt.Sprintf("ROI %q: only %s %% of its volume lies inside both dose grids", roi.Name, result.FormatPercent(*c, 2)))
 		}
 	}
 
-	met := 0
+	met, na := 0, 0
 	for _, rule := range r.Rules {
 		row := ruleRow{
-			Met: rule.Met, Mark: metMark(rule.Met), Rule: rule.Rule, Level: rule.Level, Subject: rule.Subject,
-			Limit: exact(rule.Limit), Reason: rule.Reason,
+			Met: rule.Met, Class: outcomeClass(rule.Outcome), Mark: outcomeMark(rule.Outcome), Rule: rule.Rule, Level: rule.Level, Subject: rule.Subject,
+			Limit: exact(rule.Limit), Reason: rule.Reason, Conditions: rule.Conditions,
 		}
-		if rule.Value == nil {
+		switch {
+		case rule.Value == nil:
 			row.Value = "not measured"
-		} else {
+		case rule.ValueText != "":
+			row.Value = rule.ValueText
+		default:
 			row.Value = ruleValue(*rule.Value, rule.Limit)
 		}
-		if rule.Met {
+		switch rule.Outcome {
+		case result.Met:
 			met++
+		case result.NotApplicable:
+			na++
 		}
 		m.Rules = append(m.Rules, row)
 	}
@@ -409,18 +419,45 @@ func fillHeader(m *model, r *result.Result) {
 	default:
 		m.Verdict = "? " + r.Verdict
 	}
-	m.VerdictOf = fmt.Sprintf("%d of %d protocol rules met", met, len(r.Rules))
+	m.VerdictOf = fmt.Sprintf("%d of %d protocol rule checks met", met, len(r.Rules))
+	if na > 0 {
+		m.VerdictOf += fmt.Sprintf(", %d not applicable", na)
+	}
 
 	run := r.Run
 	m.Run = fmt.Sprintf("Comparison took %s s (Γ search %s s) with %d workers.", fixed(run.Seconds, 1), fixed(run.GammaSeconds, 1), run.Workers)
 }
 
-// metMark is the word-and-symbol mark of a rule outcome.
-func metMark(met bool) string {
-	if met {
+// outcomeMark is the word-and-symbol mark of a rule outcome: not
+// applicable reads as such, never as met.
+func outcomeMark(o result.RuleState) string {
+	switch o {
+	case result.Met:
 		return "✔ met"
+	case result.NotApplicable:
+		return "– not applicable"
 	}
 	return "✘ not met"
+}
+
+// outcomeClass is the CSS class of a rule outcome.
+func outcomeClass(o result.RuleState) string {
+	switch o {
+	case result.Met:
+		return "met"
+	case result.NotApplicable:
+		return "na"
+	}
+	return "notmet"
+}
+
+// statusText is an ROI's status with its detail.
+func statusText(roi result.ROI) string {
+	s := string(roi.Status)
+	if roi.StatusDetail != "" {
+		s += " (" + roi.StatusDetail + ")"
+	}
+	return s
 }
 
 func nonEmpty(v ...string) []string {
@@ -516,13 +553,13 @@ func roiTableRow(r *result.Result, i int, roi result.ROI, col color.RGBA) roiRow
 		DMean:       notAvailable,
 		D95:         notAvailable,
 		D2:          notAvailable,
-		Status:      nonBlank(roi.Status, "not stated"),
+		Status:      nonBlank(statusText(roi), "not stated"),
 		Rules:       rulesFor(r, roi.Name),
 	}
 	if roi.InterpretedType != "" {
 		row.Kind += " (" + roi.InterpretedType + ")"
 	}
-	row.NotEvaluated = roi.Status != "evaluated"
+	row.NotEvaluated = !roi.Status.Evaluated()
 	if roi.SubGridMM != nil {
 		row.Status += "; on a " + exact(*roi.SubGridMM) + " mm sub-grid"
 	}
@@ -545,7 +582,10 @@ func rulesFor(r *result.Result, subject string) []ruleMark {
 		if rule.Level != "" {
 			text += " (" + rule.Level + ")"
 		}
-		out = append(out, ruleMark{Met: rule.Met, Mark: metMark(rule.Met), Text: text})
+		for _, c := range rule.Conditions {
+			text += "; " + c
+		}
+		out = append(out, ruleMark{Met: rule.Met, Class: outcomeClass(rule.Outcome), Mark: outcomeMark(rule.Outcome), Text: text})
 	}
 	return out
 }

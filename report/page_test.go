@@ -122,7 +122,7 @@ func TestROITableFromResult(t *testing.T) {
 		near(t, roi.Name+" ΔDmean", c["d_mean"], dm)
 		near(t, roi.Name+" ΔD95", c["d95"], d95)
 		near(t, roi.Name+" ΔD2", c["d2"], d2)
-		if !strings.HasPrefix(c["status"], roi.Status) {
+		if !strings.HasPrefix(c["status"], string(roi.Status)) {
 			t.Errorf("%s: status %q, want %q", roi.Name, c["status"], roi.Status)
 		}
 		// Rules: one mark per rule applied to the ROI, in words and symbol.
@@ -193,7 +193,7 @@ func TestHeaderAndRules(t *testing.T) {
 		t.Fatalf("%d rule rows, want %d", len(outcomes), len(r.Rules))
 	}
 	for i, rule := range r.Rules {
-		if want := metMark(rule.Met); outcomes[i] != want {
+		if want := outcomeMark(rule.Outcome); outcomes[i] != want {
 			t.Errorf("rule %d: %q, want %q", i, outcomes[i], want)
 		}
 	}

@@ -202,7 +202,7 @@ func synthCase(t testing.TB, o synthOptions) Page {
 	derived.DVH = synthDVH(ref, eval, hi)
 	r.ROIs = append(r.ROIs, derived)
 	r.ROIs = append(r.ROIs, result.ROI{Name: "MARKER_1", Number: 9, Kind: "other", InterpretedType: "MARKER",
-		Source: "structure set", Status: "points only", GammaStats: result.GammaStats{PassRateText: gamma.FormatPassRate(math.NaN())}})
+		Source: "structure set", Status: "points only", GammaStats: result.GammaStats{PassRateText: result.FormatPercent(math.NaN(), 1)}})
 
 	if o.Fail {
 		for _, c := range []struct {
@@ -245,6 +245,10 @@ func synthCase(t testing.TB, o synthOptions) Page {
 	addRule := func(rule, level, subject string, value *float64, limit float64) {
 		ro := result.RuleOutcome{Rule: rule, Level: level, Subject: subject, Value: value, Limit: limit}
 		ro.Met = value != nil && *value >= limit
+		ro.Outcome = result.NotMet
+		if ro.Met {
+			ro.Outcome = result.Met
+		}
 		if value == nil {
 			ro.Reason = "nothing evaluated"
 		}
@@ -302,7 +306,7 @@ func synthStats(g *volume.Grid, in func(n int) bool) result.GammaStats {
 	}
 	s := result.GammaStats{Evaluated: len(v), Passed: passed, Capped: capped}
 	if len(v) == 0 {
-		s.PassRateText = gamma.FormatPassRate(math.NaN())
+		s.PassRateText = result.FormatPercent(math.NaN(), 1)
 		return s
 	}
 	slices.Sort(v)
@@ -316,7 +320,7 @@ func synthStats(g *volume.Grid, in func(n int) bool) result.GammaStats {
 	n := float64(len(v))
 	rate := 100 * float64(passed) / n
 	s.PassRate = result.Ptr(rate)
-	s.PassRateText = gamma.FormatPassRate(rate)
+	s.PassRateText = result.FormatPercent(rate, 1)
 	s.GammaMean = result.Ptr(sum / n)
 	s.GammaMedian = result.Ptr(gamma.Percentile(v, 50))
 	s.GammaP95 = result.Ptr(gamma.Percentile(v, 95))

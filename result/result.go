@@ -45,6 +45,9 @@ type Result struct {
 	// Notes say how the numbers were obtained (partial-volume rule,
 	// sub-grid evaluation, ROIs not rasterised, ...).
 	Notes []string `json:"notes"`
+	// Choices records the options besides the protocol that changed how
+	// the rules were judged.
+	Choices Choices `json:"choices"`
 	// Inputs describes each input file.
 	Inputs []Input `json:"inputs"`
 	// Run holds what varies between runs on the same inputs.
@@ -89,6 +92,10 @@ type GammaStats struct {
 	GammaMax     *float64 `json:"gamma_max"`
 	// AboveOneHalfPercent is the percentage of evaluated points with Γ > 1.5.
 	AboveOneHalfPercent *float64 `json:"gamma_above_1_5_percent"`
+	// CoveragePercent is the percentage of the reference points at or
+	// above the threshold that were compared: Evaluated / (Evaluated +
+	// OutsideEvaluated) × 100; null when there is no such point.
+	CoveragePercent *float64 `json:"coverage_percent"`
 	// Capped counts points with no agreement within the search distance.
 	Capped int `json:"capped_at_search"`
 	// BelowThreshold counts points under the low-dose threshold.
@@ -118,9 +125,19 @@ type ROI struct {
 	// WorstCentroidMM is the centroid of the failing voxels in patient
 	// coordinates, null when none fails.
 	WorstCentroidMM *[3]float64 `json:"failing_centroid_mm"`
-	// Status is "evaluated", or why the ROI was not: "all below
-	// threshold", "outside the dose grid", "no contours", "points only".
-	Status string `json:"status"`
+	// CoveredPercent is the part of the ROI's volume (as its contours
+	// enclose it) that lies inside both dose grids, in percent: the part of
+	// the ROI the comparison could look at. Null for an ROI without volume.
+	CoveredPercent *float64 `json:"covered_percent"`
+	// KindSource says where Kind came from: "interpreted type", a name rule
+	// ("protocol rule PTV*=target", "command-line rule PTV*=target") or
+	// "derived".
+	KindSource string `json:"kind_source"`
+	// Status is StatusEvaluated, or why the ROI was not evaluated (one of
+	// the ROIStatus constants); StatusDetail adds specifics where there are
+	// any (e.g. why no contour could be rasterised).
+	Status       ROIStatus `json:"status"`
+	StatusDetail string    `json:"status_detail,omitempty"`
 	// SubGridMM is the step of the finer reference sub-grid the ROI was
 	// evaluated on, null when evaluated on the reference voxels.
 	SubGridMM *float64 `json:"subgrid_mm"`
@@ -183,6 +200,81 @@ type Cluster struct {
 	ROIs []string `json:"rois"`
 }
 
+// ROIStatus says whether an ROI was evaluated, and if not, why. It is a
+// closed set: code compares with the constants, never with text.
+type ROIStatus string
+
+// The ROI statuses.
+const (
+	// StatusEvaluated: at least one of the ROI's points has a Γ.
+	StatusEvaluated ROIStatus = "evaluated"
+	// StatusBelowThreshold: every point of the ROI is below the low-dose
+	// threshold.
+	StatusBelowThreshold ROIStatus = "not evaluated: all below threshold"
+	// StatusOutsideEvaluated: every point at or above the threshold lies
+	// outside the evaluated grid.
+	StatusOutsideEvaluated ROIStatus = "not evaluated: outside the evaluated grid"
+	// StatusBelowOrOutside: some points below the threshold, the others
+	// outside the evaluated grid.
+	StatusBelowOrOutside ROIStatus = "not evaluated: below threshold or outside the evaluated grid"
+	// StatusOutsideDoseGrid: the ROI lies wholly outside the reference grid.
+	StatusOutsideDoseGrid ROIStatus = "not evaluated: outside the dose grid"
+	// StatusNoContours: the ROI has no contour.
+	StatusNoContours ROIStatus = "not evaluated: no contours"
+	// StatusNotRasterised: no closed planar contour could be rasterised
+	// (StatusDetail says why).
+	StatusNotRasterised ROIStatus = "not evaluated: no contour could be rasterised"
+	// StatusNoClosedContours: only points or open contours.
+	StatusNoClosedContours ROIStatus = "not evaluated: no closed planar contours (points or open contours only)"
+	// StatusTooSmall: no voxel centre lies inside the ROI.
+	StatusTooSmall ROIStatus = "not evaluated: smaller than a voxel (no voxel centre inside)"
+	// StatusNotEvaluated: not evaluated for another reason.
+	StatusNotEvaluated ROIStatus = "not evaluated"
+)
+
+// Evaluated reports whether the status is StatusEvaluated.
+func (s ROIStatus) Evaluated() bool { return s == StatusEvaluated }
+
+// RuleState is the outcome of one rule check.
+type RuleState string
+
+// The outcomes of a rule check.
+const (
+	// Met: the rule was checked and held.
+	Met RuleState = "met"
+	// NotMet: the rule was checked and did not hold, or there was nothing
+	// to check where the protocol requires something.
+	NotMet RuleState = "not met"
+	// NotApplicable: there was nothing to check and the protocol (or a
+	// deliberate choice on the command line) allows that. It never counts
+	// as met.
+	NotApplicable RuleState = "not applicable"
+)
+
+// Choices records what the user chose besides the protocol that changes
+// how a result's rules were judged or its ROIs sampled, so that a verdict
+// never hides the options that made it.
+type Choices struct {
+	// Overrides lists protocol values replaced on the command line, e.g.
+	// "--criteria 2%/2mm (protocol: 3%/2mm)".
+	Overrides []string `json:"overrides"`
+	// KindRules are the ROI kind rules given on the command line, applied
+	// before the protocol's.
+	KindRules []string `json:"kind_rules"`
+	// SubGridROIs names the ROIs evaluated on a finer sub-grid of reference
+	// points of step SubGridStepMM.
+	SubGridROIs   []string `json:"subgrid_rois"`
+	SubGridStepMM float64  `json:"subgrid_step_mm"`
+	// NoStructures is set when the comparison was run deliberately without
+	// a structure set: per-ROI rules are then not applicable.
+	NoStructures bool `json:"no_structures"`
+	// UnusualNormDose is set when a normalisation dose outside the
+	// plausible band was allowed explicitly.
+	UnusualNormDose bool `json:"unusual_norm_dose_allowed"`
+	// Method is set when the search method was chosen on the command line.
+	Method string `json:"method,omitempty"`
+}
+
 // RuleOutcome is one protocol rule and whether it was met.
 type RuleOutcome struct {
 	// Rule is the rule in words, e.g. "every target: pass rate ≥ 95 %".
@@ -193,12 +285,21 @@ type RuleOutcome struct {
 	Subject string `json:"subject"`
 	// Value is the measured value, null when it could not be measured.
 	Value *float64 `json:"value"`
+	// ValueText is Value as every output shows it (a pass rate rounded
+	// down, see FormatPercent), "n/a" when there is no value.
+	ValueText string `json:"value_text"`
 	// Limit is the rule's limit.
 	Limit float64 `json:"limit"`
-	// Met is true when the rule held.
+	// Outcome is Met, NotMet or NotApplicable.
+	Outcome RuleState `json:"outcome"`
+	// Met is true when, and only when, Outcome is Met.
 	Met bool `json:"met"`
 	// Reason explains a rule not met or not applicable.
 	Reason string `json:"reason,omitempty"`
+	// Conditions lists the choices that changed how this rule's subject
+	// was sampled or judged (options that replaced the protocol's values,
+	// a sub-grid, a command-line kind rule, ...); empty when none did.
+	Conditions []string `json:"conditions"`
 }
 
 // Input describes one input file.

@@ -166,11 +166,18 @@ func glob(p, n []rune) bool {
 // matches its name and applies (its type is empty, or the rule overrides),
 // else the kind of its RTROIInterpretedType (see [KindOfType]).
 func Classify(r *structure.ROI, rules []Rule) Kind {
+	k, _ := ClassifyBy(r, rules)
+	return k
+}
+
+// ClassifyBy is [Classify] that also says which rule decided: its index in
+// rules, or -1 when the kind comes from the RTROIInterpretedType.
+func ClassifyBy(r *structure.ROI, rules []Rule) (Kind, int) {
 	typed := strings.TrimSpace(r.InterpretedType) != ""
-	for _, ru := range rules {
+	for i, ru := range rules {
 		if (!typed || ru.Override) && ru.Matches(r.Name) {
-			return ru.Kind
+			return ru.Kind, i
 		}
 	}
-	return KindOfType(r.InterpretedType)
+	return KindOfType(r.InterpretedType), -1
 }

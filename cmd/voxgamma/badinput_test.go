@@ -937,12 +937,12 @@ func TestBadInputStructures(t *testing.T) {
 			out := filepath.Join(t.TempDir(), "r.json")
 			vgExit(t, exitPass, compareArgs(f.ref, f.eval, p, "--json", out, "--quiet")...)
 			roi := resultROI(t, readResultJSON(t, out), "Cord")
-			if !strings.HasPrefix(roi.Status, "not evaluated") || roi.Voxels != 0 || roi.PassRate != nil {
+			if !strings.HasPrefix(string(roi.Status), "not evaluated") || roi.Voxels != 0 || roi.PassRate != nil {
 				t.Errorf("Cord: status %q, %d voxels, pass rate %v; want not evaluated, no voxel, null", roi.Status, roi.Voxels, roi.PassRate)
 			}
 			// Its one contour is CLOSED_PLANAR: a status blaming "points or
 			// open contours" tells the physicist the wrong thing.
-			if strings.Contains(roi.Status, "points or open contours only") {
+			if strings.Contains(string(roi.Status), "points or open contours only") {
 				t.Errorf("BUG: Cord's only contour is CLOSED_PLANAR (%s), but its status says %q", tc.reason, roi.Status)
 			}
 			skippedContourReported(t, f, p, "Cord", tc.reason)
@@ -1140,8 +1140,10 @@ func TestBadInputNothingToCompare(t *testing.T) {
 	f := newBadFixture(t)
 	t.Run("no_point_above_threshold", func(t *testing.T) {
 		// --norm-dose 100 Gy: the threshold is 10 Gy, above the 2 Gy
-		// reference everywhere.
-		refused(t, compareArgs(f.ref, f.eval, f.rs, "--norm-dose", "100"), "nothing was evaluated")
+		// reference everywhere. 100 Gy is 50 × the reference maximum, so
+		// it is refused as implausible unless accepted explicitly (see
+		// TestNormDoseBand); accepted, nothing is evaluated.
+		refused(t, compareArgs(f.ref, f.eval, f.rs, "--norm-dose", "100", "--accept-norm-dose"), "nothing was evaluated")
 	})
 	t.Run("evaluated_grid_elsewhere", func(t *testing.T) {
 		// The evaluated grid 22×22×18 voxels of 2 mm at x from 179 to 221
@@ -1235,7 +1237,7 @@ func TestBadInputSearchBelowGridSpacing(t *testing.T) {
 	// less than 0.002: DoseGridScaling ≤ 12 Gy/65535, over ΔD = 0.3 Gy).
 	for _, eval := range []string{coarse, fine} {
 		out := filepath.Join(t.TempDir(), "r.json")
-		vgExit(t, exitPass, "compare", "--reference", ref, "--evaluated", eval, "--criteria", "3%/2mm", "--norm-dose", "10", "--json", out, "--quiet")
+		vgExit(t, exitPass, "compare", "--reference", ref, "--evaluated", eval, "--no-structures", "--criteria", "3%/2mm", "--norm-dose", "10", "--json", out, "--quiet")
 		res := readResultJSON(t, out)
 		checkNear(t, filepath.Base(eval)+" Γ max", res.Overall.GammaMax, want, 0.002)
 		checkNear(t, filepath.Base(eval)+" pass rate", res.Overall.PassRate, 100, 0)
@@ -1319,7 +1321,7 @@ func TestBadInputPartialOutput(t *testing.T) {
 	noIDs := dropElem(t, dropElem(t, f.refBytes, tgStudyUID), tgFrameOfRef)
 	ref := f.file(t, "RD_noids.dcm", noIDs)
 	out := t.TempDir()
-	r := vgRun(t, withOutputs(compareArgs(ref, f.eval, "", "--quiet"), out)...)
+	r := vgRun(t, withOutputs(compareArgs(ref, f.eval, "", "--quiet", "--no-structures"), out)...)
 	switch r.code {
 	case exitError:
 		oneErrorLine(t, r, "gamma.dcm")
@@ -1428,7 +1430,7 @@ func TestBadInputBinary(t *testing.T) {
 		{"truncated_in_pixel_data", compareArgs(cut, f.eval, ""), []string{cut, "PixelData (7FE0,0010): claims"}},
 		{"DoseGridScaling_NaN", compareArgs(nanScale, f.eval, ""), []string{nanScale, "DoseGridScaling (3004,000E): is NaN"}},
 		{"structures_NaN_coordinate", compareArgs(f.ref, f.eval, rsNaN), []string{rsNaN, "ContourData (3006,0050)", "NaN"}},
-		{"no_point_above_threshold", compareArgs(f.ref, f.eval, f.rs, "--norm-dose", "100"), []string{"nothing was evaluated"}},
+		{"no_point_above_threshold", compareArgs(f.ref, f.eval, f.rs, "--norm-dose", "100", "--accept-norm-dose"), []string{"nothing was evaluated"}},
 		{"grids_do_not_overlap", compareArgs(f.ref, far, ""), []string{"covers none of the reference high-dose region"}},
 		{"threshold_150", compareArgs(f.ref, f.eval, "", "--threshold", "150"), []string{"--threshold 150"}},
 	} {

@@ -31,6 +31,7 @@ type caseFlags struct {
 }
 
 func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
+	f.registerVerdictFlags(cmd)
 	fl := cmd.Flags()
 	fl.StringVar(&f.protocol, "protocol", batch.DefaultProtocol, protocolHelp+": a protocol file (YAML or JSON) or preset: "+strings.Join(protocol.PresetNames(), ", "))
 	fl.StringVar(&f.criteria, "criteria", "", "dose-difference and distance criteria for every case, e.g. 2%/1mm (default: each protocol's)")
@@ -152,7 +153,7 @@ func summaryOutcome(g *globals, what string, s *batch.Summary, extra string) err
 	line := what + ": " + s.Line() + extra
 	switch s.ExitStatus() {
 	case batch.ExitPass:
-		fmt.Fprintf(g.stderr, "voxgamma: %s\n", line)
+		g.outcome = line
 		return nil
 	case batch.ExitRuleFail:
 		return &verdictError{msg: line + " (exit 2)"}

@@ -41,7 +41,9 @@ func btWriteManifest(t *testing.T, dir string, cases []btCase) string {
 		}
 		structures := "in/" + c.id + "/structures.dcm"
 		if c.spec.NoStructures {
-			structures = ""
+			// Deliberately none: per-ROI rules are not applicable (an
+			// empty cell would make them not met).
+			structures = batch.NoStructuresWord
 		}
 		fmt.Fprintf(&b, "%s,%s,in/%s/evaluated.dcm,%s,\n", c.id, ref, c.id, structures)
 	}

@@ -41,6 +41,8 @@ type comparisonFlags struct {
 	subgridStep, minClusterCC   float64
 	exhaustive                  bool
 	workers                     int
+	noStructures                bool
+	acceptNormDose              bool
 }
 
 // overrides turns the options given on the command line into job
@@ -50,6 +52,7 @@ func (f *comparisonFlags) overrides(cmd *cobra.Command) job.Overrides {
 	ov := job.Overrides{
 		KindRules: f.kindRules, VDoses: f.vDoses, SubGrid: f.subgrid, SubGridStep: f.subgridStep,
 		MinClusterCC: f.minClusterCC, Workers: f.workers, Exhaustive: f.exhaustive, Version: version,
+		NoStructures: f.noStructures, AcceptNormDose: f.acceptNormDose,
 	}
 	if changed("criteria") {
 		ov.Criteria = f.criteria
@@ -72,7 +75,16 @@ func (f *comparisonFlags) overrides(cmd *cobra.Command) job.Overrides {
 	return ov
 }
 
+// registerVerdictFlags registers the options that change what a verdict
+// rests on, shared by compare, sweep, batch and watch.
+func (f *comparisonFlags) registerVerdictFlags(cmd *cobra.Command) {
+	fl := cmd.Flags()
+	fl.BoolVar(&f.noStructures, "no-structures", false, "compare deliberately without a structure set (none is looked for in the reference folder): per-ROI rules are then not applicable instead of not met")
+	fl.BoolVar(&f.acceptNormDose, "accept-norm-dose", false, "use --norm-dose (or the protocol's norm_dose_gy) as given even when it lies outside 0.5–1.5 × the reference maximum")
+}
+
 func (f *compareFlags) register(cmd *cobra.Command) {
+	f.registerVerdictFlags(cmd)
 	fl := cmd.Flags()
 	fl.StringVar(&f.reference, "reference", "", "reference RT Dose file or folder (the planning system's dose)")
 	fl.StringVar(&f.referencePoints, "reference-points", "", "reference measured points: CSV with header x_mm,y_mm,z_mm,dose_gy (instead of --reference)")
@@ -157,26 +169,51 @@ Exit status: 0 every rule met, 2 a rule not met, 1 could not evaluate.`,
 			if err != nil {
 				return err
 			}
-			return verdictOf(out.Result)
+			return verdictOf(g, out.Result)
 		},
 	}
 	f.register(cmd)
 	return cmd
 }
 
-// verdictOf turns a result into the command's outcome: nil when every rule
-// was met, a verdictError otherwise.
-func verdictOf(r *result.Result) error {
-	failed := 0
-	for _, o := range r.Rules {
-		if !o.Met {
-			failed++
-		}
-	}
+// verdictOf turns a result into the command's outcome: nil when the
+// verdict is pass (the line for stderr left in g.outcome), a verdictError
+// otherwise.
+func verdictOf(g *globals, r *result.Result) error {
+	line := verdictLine(r)
 	if r.Verdict == "pass" {
+		g.outcome = line + " (exit 0)"
 		return nil
 	}
-	return &verdictError{msg: fmt.Sprintf("verdict fail: %d of %d rule checks not met (exit 2)", failed, len(r.Rules))}
+	return &verdictError{msg: line + " (exit 2)"}
+}
+
+// verdictLine says the verdict with the count of rule checks by outcome.
+func verdictLine(r *result.Result) string {
+	var met, notMet, na int
+	for _, o := range r.Rules {
+		switch o.Outcome {
+		case result.Met:
+			met++
+		case result.NotApplicable:
+			na++
+		default:
+			notMet++
+		}
+	}
+	var s string
+	switch {
+	case r.Verdict == "pass":
+		s = fmt.Sprintf("verdict pass: %d of %d rule checks met", met, len(r.Rules))
+	case notMet == 0:
+		s = fmt.Sprintf("verdict fail: no rule check could be met (%d of %d not applicable)", na, len(r.Rules))
+	default:
+		s = fmt.Sprintf("verdict fail: %d of %d rule checks not met", notMet, len(r.Rules))
+	}
+	if na > 0 && notMet > 0 || na > 0 && r.Verdict == "pass" {
+		s += fmt.Sprintf(", %d not applicable", na)
+	}
+	return s
 }
 
 // settingsFrom resolves the protocol and the command-line overrides into
@@ -216,7 +253,7 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 		return nil, err
 	}
 	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated,
-		Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch}
+		Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
 	out, err := compareInputs(ctx, g, in, s, outs, f.force)
 	if err != nil {
 		return nil, err
@@ -255,16 +292,22 @@ func printSummary(g *globals, r *result.Result) {
 	w := g.stdout
 	fmt.Fprintf(w, "voxgamma %s: %s, threshold %g %%, normalisation dose %.4g Gy (%s), search %g mm\n",
 		r.Version, r.Criteria.Label, r.Criteria.ThresholdPercent, r.Criteria.NormDoseGy, r.Criteria.NormDoseSource, r.Criteria.SearchMM)
-	fmt.Fprintf(w, "overall: %s %% of %d points pass (Γ mean %s, P95 %s, max %s)\n",
-		r.Overall.PassRateText, r.Overall.Evaluated, num(r.Overall.GammaMean), num(r.Overall.GammaP95), num(r.Overall.GammaMax))
+	fmt.Fprintf(w, "overall: %s %% of %d points pass (Γ mean %s, P95 %s, max %s); %s %% of the points above the threshold compared\n",
+		r.Overall.PassRateText, r.Overall.Evaluated, num(r.Overall.GammaMean), num(r.Overall.GammaP95), num(r.Overall.GammaMax),
+		percentText(r.Overall.CoveragePercent))
 	if len(r.ROIs) > 0 {
-		fmt.Fprintf(w, "%-24s %-6s %10s %9s %8s %7s %7s  %s\n", "ROI", "kind", "volume cc", "evaluated", "pass %", "Γ mean", "ΔD95 %", "status")
+		fmt.Fprintf(w, "%-24s %-6s %10s %9s %8s %7s %7s %8s  %s\n", "ROI", "kind", "volume cc", "evaluated", "pass %", "Γ mean", "ΔD95 %", "covered", "status")
 		for _, x := range r.ROIs {
 			d95 := "-"
 			if x.DVH != nil && x.DVH.DifferencePercent.D95Gy != nil {
 				d95 = fmt.Sprintf("%+.2f", *x.DVH.DifferencePercent.D95Gy)
 			}
-			fmt.Fprintf(w, "%-24s %-6s %10.3f %9d %8s %7s %7s  %s\n", truncate(x.Name, 24), x.Kind, x.VolumeCC, x.Evaluated, x.PassRateText, num(x.GammaMean), d95, x.Status)
+			status := string(x.Status)
+			if x.StatusDetail != "" {
+				status += " (" + x.StatusDetail + ")"
+			}
+			fmt.Fprintf(w, "%-24s %-6s %10.3f %9d %8s %7s %7s %8s  %s\n", truncate(x.Name, 24), x.Kind, x.VolumeCC, x.Evaluated, x.PassRateText, num(x.GammaMean), d95,
+				percentText(x.CoveredPercent), status)
 		}
 	}
 	for _, c := range r.Clusters {
@@ -275,20 +318,45 @@ func printSummary(g *globals, r *result.Result) {
 		}
 	}
 	for _, o := range r.Rules {
-		mark := "met    "
-		if !o.Met {
-			mark = "NOT MET"
-		}
-		value := "n/a"
-		if o.Value != nil {
-			value = fmt.Sprintf("%.2f", *o.Value)
-		}
-		fmt.Fprintf(w, "[%s] %s (%s): %s\n", mark, o.Rule, o.Subject, value)
+		fmt.Fprintln(w, ruleLine(o))
 	}
 	for _, x := range r.Warnings {
 		fmt.Fprintf(g.stderr, "warning: %s\n", x)
 	}
 	fmt.Fprintf(w, "verdict: %s. %s\n", r.Verdict, result.Caution)
+}
+
+// ruleLine writes one rule outcome for the console: its mark, the rule,
+// the subject, the value as every output shows it, why it was not met or
+// not applicable, and the choices it was judged under.
+func ruleLine(o result.RuleOutcome) string {
+	mark := "met           "
+	switch o.Outcome {
+	case result.NotApplicable:
+		mark = "not applicable"
+	case result.NotMet:
+		mark = "NOT MET       "
+	}
+	value := o.ValueText
+	if value == "" {
+		value = "n/a"
+	}
+	line := fmt.Sprintf("[%s] %s (%s): %s", mark, o.Rule, o.Subject, value)
+	if o.Outcome != result.Met && o.Reason != "" {
+		line += ": " + o.Reason
+	}
+	for _, c := range o.Conditions {
+		line += "\n    under: " + c
+	}
+	return line
+}
+
+// percentText writes a percentage by the one display rule, two decimals.
+func percentText(p *float64) string {
+	if p == nil {
+		return "n/a"
+	}
+	return result.FormatPercent(*p, 2)
 }
 
 func num(p *float64) string {

@@ -74,7 +74,7 @@ func TestCompareLinearGradientShift(t *testing.T) {
 			eval := writeTestDose(t, filepath.Join(sub, "eval.dcm"), rampEvalDims, rampEvalOrigin, rampEvalSpacing,
 				func(p [3]float64) float64 { return rampDose(p) - rampG*s }, ids)
 			jsonOut, mapOut := filepath.Join(sub, "r.json"), filepath.Join(sub, "gamma.mha")
-			args := []string{"compare", "--reference", ref.path, "--evaluated", eval.path, "--criteria", "3%/2mm",
+			args := []string{"compare", "--reference", ref.path, "--evaluated", eval.path, "--no-structures", "--criteria", "3%/2mm",
 				"--norm-dose", "10", "--json", jsonOut, "--gamma-map", mapOut, "--quiet"}
 			if tc.local {
 				args = append(args, "--local")
@@ -174,7 +174,7 @@ func TestCompareUniformScale(t *testing.T) {
 		t.Run(fmt.Sprintf("k=%g local=%v", tc.k, tc.local), func(t *testing.T) {
 			c := newUniformCase(t, d0, tc.k)
 			jsonOut := filepath.Join(c.dir, "r.json")
-			args := []string{"compare", "--reference", c.ref, "--evaluated", c.eval, "--norm-dose", strconv.FormatFloat(norm, 'g', -1, 64),
+			args := []string{"compare", "--reference", c.ref, "--evaluated", c.eval, "--no-structures", "--norm-dose", strconv.FormatFloat(norm, 'g', -1, 64),
 				"--json", jsonOut, "--quiet"}
 			qr, qe := c.refFile.quantBound(), c.evalFile.quantBound()
 			dd := cfDelta * norm

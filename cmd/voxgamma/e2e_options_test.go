@@ -41,7 +41,7 @@ func TestCriteriaNotations(t *testing.T) {
 func TestDefaultCriteria(t *testing.T) {
 	c := newUniformCase(t, 2, 1.01)
 	out := filepath.Join(c.dir, "r.json")
-	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--json", out, "--quiet")
+	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--no-structures", "--json", out, "--quiet")
 	res := readResultJSON(t, out)
 	got := res.Criteria
 	if got.DosePercent != 3 || got.DTAmm != 2 || got.Normalisation != "global" || got.ThresholdPercent != 10 ||

@@ -28,7 +28,7 @@ func TestDeidentify(t *testing.T) {
 	writeTestDose(t, eval, [3]int{22, 22, 18}, [3]float64{-21, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), other)
 	out := t.TempDir()
 	files := map[string]string{"--json": "r.json", "--csv": "r.csv", "--report": "r.html", "--gamma-map": "g.dcm", "--difference-map": "d.mha"}
-	args := []string{"compare", "--reference", ref, "--evaluated", eval, "--deidentify", "--quiet"}
+	args := []string{"compare", "--reference", ref, "--evaluated", eval, "--no-structures", "--deidentify", "--quiet"}
 	for flag, name := range files {
 		args = append(args, flag, filepath.Join(out, name))
 	}

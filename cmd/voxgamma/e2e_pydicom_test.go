@@ -202,7 +202,7 @@ func TestComparePydicomLinearGradient(t *testing.T) {
 		t.Run(name, func(t *testing.T) {
 			sub := t.TempDir()
 			jsonOut, mapOut := filepath.Join(sub, "r.json"), filepath.Join(sub, "gamma.mha")
-			args := []string{"compare", "--reference", refPath, "--evaluated", evalPath, "--criteria", "3%/2mm",
+			args := []string{"compare", "--reference", refPath, "--evaluated", evalPath, "--no-structures", "--criteria", "3%/2mm",
 				"--norm-dose", "10", "--json", jsonOut, "--gamma-map", mapOut, "--quiet"}
 			if local {
 				args = append(args, "--local")

@@ -45,6 +45,7 @@ path could not be read.`,
 			if len(failed) > 0 {
 				return fmt.Errorf("could not read %s", strings.Join(failed, ", "))
 			}
+			g.outcome = fmt.Sprintf("inspect: %d of %d paths read", len(args)-len(failed), len(args))
 			return nil
 		},
 	}

@@ -50,12 +50,15 @@ func run(args []string, stdout, stderr io.Writer) (status int) {
 			status = exitError
 		}
 	}()
-	root := newRoot(stdout, stderr)
+	root, g := newRoot(stdout, stderr)
 	root.SetArgs(args)
 	err := root.Execute()
 	var v *verdictError
 	switch {
 	case err == nil:
+		if g.outcome != "" {
+			fmt.Fprintf(stderr, "voxgamma: %s\n", g.outcome)
+		}
 		return exitPass
 	case errors.As(err, &v):
 		fmt.Fprintf(stderr, "voxgamma: %s\n", v.msg)
@@ -87,9 +90,13 @@ type globals struct {
 	quiet, verbose bool
 	stdout, stderr io.Writer
 	log            *slog.Logger
+	// outcome is the line a command that ends well leaves for stderr (run
+	// prints it, also with --quiet): a pipeline always reads the outcome
+	// on the last line.
+	outcome string
 }
 
-func newRoot(stdout, stderr io.Writer) *cobra.Command {
+func newRoot(stdout, stderr io.Writer) (*cobra.Command, *globals) {
 	g := &globals{stdout: stdout, stderr: stderr}
 	root := &cobra.Command{
 		Use:   "voxgamma",
@@ -122,5 +129,5 @@ Exit status: 0 every rule met, 2 a rule not met, 1 could not evaluate.`,
 	root.PersistentFlags().BoolVarP(&g.verbose, "verbose", "v", false, "print diagnostics (may include patient names from the files)")
 	root.AddCommand(newCompare(g), newDemo(g), newInspect(g), newSweep(g), newBatch(g), newBatchSummary(g), newWatch(g))
 	root.Version = version
-	return root
+	return root, g
 }
