@@ -110,7 +110,7 @@ func Figures(r *result.Result) *CaseFigures {
 		}
 	}
 	for _, o := range r.Rules {
-		if !o.Met {
+		if o.Outcome == result.NotMet {
 			f.RulesFailed++
 		}
 	}

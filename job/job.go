@@ -355,6 +355,15 @@ func CompareFor(ctx context.Context, in analysis.Inputs, s analysis.Settings, ou
 		return nil, ErrNothingEvaluated
 	}
 	if pr, ok := s.Protocol.(*protocol.Protocol); ok {
+		if c := pr.Coverage; c.OverallPercent > 0 || c.ROIPercent > 0 {
+			r.Notes = append(r.Notes, fmt.Sprintf("coverage is part of the verdict: at least %s %% of the reference points at or above the threshold must have been compared, "+
+				"and a rule on an ROI is judged only when at least %s %% of its volume lies inside both dose grids (protocol coverage; the defaults 99.5 %% and 100 %% are this tool's choice)",
+				num(c.OverallPercent), num(c.ROIPercent)))
+		}
+		if r.Criteria.NormDoseSource != "reference maximum" {
+			r.Notes = append(r.Notes, fmt.Sprintf("a normalisation dose outside %g–%g × the reference maximum is refused unless accepted explicitly (this tool's choice: a plan's maximum normally lies near 100–130 %% of its prescription, common practice)",
+				analysis.NormDoseBand[0], analysis.NormDoseBand[1]))
+		}
 		if err := pr.CheckCriteria(r.Criteria); err != nil {
 			r.Warnings = append(r.Warnings, fmt.Sprintf("criteria differ from protocol %q (its limits were set for its own criteria): %s",
 				pr.Name, strings.ReplaceAll(err.Error(), "\n", "; ")))

@@ -25,10 +25,19 @@
 //     criteria (required, the trade's notation "3%/2mm"),
 //     normalisation ("global" or "local"; default global),
 //     threshold_percent (low-dose threshold in % of the normalisation dose,
-//     from 0 to below 100; default 0),
-//     search_mm (search distance in mm; 0 or absent: 3×DTA) and
+//     from 0 to below 100; default 10, after AAPM TG-218),
+//     search_mm (search distance in mm; 0 or absent: 3×DTA),
 //     norm_dose_gy (normalisation dose in Gy; 0 or absent: the reference
-//     maximum).
+//     maximum) and norm_dose_from ("reference maximum" or "value"; absent:
+//     as norm_dose_gy says). A normalisation dose outside 0.5–1.5 × the
+//     reference maximum is refused when the comparison runs (see the
+//     analysis package's NormDoseBand).
+//   - coverage: overall_percent (the smallest percentage of the reference
+//     points at or above the threshold that must have been compared; default
+//     99.5; 0 leaves the check out) and roi_percent (the smallest percentage
+//     of an ROI's volume that must lie inside both dose grids for a rule on
+//     it to be judged; default 100; 0 judges every ROI on its covered part).
+//     Both defaults are this tool's choice.
 //   - roi_kinds: a list of {pattern, kind, override}: ROIs whose name
 //     matches pattern (case-insensitive; with '*' or '?' a glob over the
 //     whole name, otherwise a prefix) get kind (target, oar, body or
@@ -38,8 +47,11 @@
 //   - isodose_rois: a list of percentages of the normalisation dose; an
 //     isodose ROI is added for each.
 //   - rules: at least one rule, each with the fields level, subject,
-//     metric, op and limit (below).
+//     metric, op, limit and when_missing (below).
 //
+// Every key left out of a file takes the default documented here, never
+// Go's zero value (a key written with no value, or ~, counts as left out);
+// [Protocol.Resolved] writes every default out, as results show it.
 // A field the format does not know is an error naming it, with the file and
 // line, so that a misspelt limit is never ignored. Every problem found is
 // reported (joined), each as an [*Error] naming the file, the line and the
@@ -51,9 +63,11 @@
 //
 // # Rules
 //
-// level is "tolerance" (the default) or "action"; any other word (e.g.
-// "alert") is kept as written. A rule of any level that is not met makes the
-// verdict "fail"; the level says how serious that is.
+// subject, metric, op and limit are required. level is "tolerance" (the
+// default) or "action"; any other word (e.g. "alert") is kept as written. A
+// rule of any level that is not met makes the verdict "fail"; the level says
+// how serious that is. when_missing is "fail" (the default) or "skip": what a
+// rule whose subject is missing from the comparison gives (below).
 //
 // subject is one of
 //
@@ -68,6 +82,9 @@
 // metric is one of
 //
 //   - pass_rate: percentage of evaluated points with Γ ≤ 1;
+//   - coverage: for overall, the percentage of the reference points at or
+//     above the threshold that were compared; for an ROI, the percentage of
+//     its volume inside both dose grids;
 //   - gamma_mean, gamma_median, gamma_p95, gamma_p99, gamma_max: Γ
 //     statistics;
 //   - dvh_diff_percent:M and dvh_diff_gy:M: the DVH difference evaluated −
@@ -77,8 +94,9 @@
 //
 // op is ">=", "<=" or "abs<=" (the absolute value of the measured value ≤
 // the limit; only for the signed dvh_diff metrics). limit must be finite; a
-// pass-rate limit lies from 0 to 100, a Γ limit is not negative, and so is
-// an abs<= limit.
+// pass-rate or coverage limit lies above 1 and at most 100 (a limit of 1 or
+// less is refused as a likely fraction, with the percentage to write), a Γ
+// limit is not negative, and so is an abs<= limit.
 //
 // # Example file
 //
@@ -141,32 +159,49 @@
 //
 // # Evaluation
 //
-// [Protocol.Evaluate] returns one [result.RuleOutcome] per rule and subject,
-// in rule order and, within a rule, in the order of the result's ROIs, so the
-// outcome list is deterministic. Its Rule is [Rule.String], Subject the ROI
-// name (or "overall"), Value the exact measured value (null when there is
-// none) and Limit the rule's limit. Comparisons use the exact values, never
-// the rounded text (a pass rate of 94.96 shown as "95.0" does not meet
-// "≥ 95"); a value equal to the limit meets it ("95 ≥ 95"). For abs<= the
-// Value is the signed difference and its absolute value is compared. The
-// verdict is "fail" when any outcome is not met, "pass" otherwise.
+// [Protocol.Evaluate] returns first the coverage rule ("overall: coverage ≥
+// 99.5 %", unless coverage.overall_percent is 0), then one
+// [result.RuleOutcome] per rule and subject, in rule order and, within a
+// rule, in the order of the result's ROIs, so the outcome list is
+// deterministic. Its Rule is [Rule.String], Subject the ROI name (or
+// "overall"), Value the exact measured value (null when there is none),
+// ValueText the value as every output shows it (percentages rounded down to
+// two decimals, never 100.00 unless they are 100), Limit the rule's limit,
+// Outcome one of met, not met and not applicable (Met is true only when the
+// outcome is met), and Conditions the choices that changed how the rule was
+// judged (criteria replaced on the command line, a sub-grid, a
+// command-line kind rule, an accepted unusual normalisation dose, the
+// exhaustive search), read from the result's Choices and ROIs. Comparisons
+// use the exact values, never the rounded text (a pass rate of 94.96 shown
+// as "94.9" does not meet "≥ 95"); a value equal to the limit meets it
+// ("95 ≥ 95"). For abs<= the Value is the signed difference and its
+// absolute value is compared. The verdict is "pass" when no outcome is not
+// met and at least one is met: outcomes that are all not applicable checked
+// nothing, and make no pass.
 //
 // Subjects are matched in the result like this:
 //
 //   - targets and oars take the ROIs with Source "structure set" and Kind
 //     "target" or "oar" (derived ROIs such as "all targets" are not
-//     included). When the comparison has no ROI of that kind the rule gives
-//     one outcome with no value, met, with the reason "no target ROI in this
-//     comparison" (or "no organ-at-risk ROI in this comparison"): a rule over
-//     every target has nothing to check. A protocol that requires a
-//     particular target names it with roi:NAME.
+//     included).
 //   - roi:NAME takes every ROI of that name (a structure set may repeat a
-//     name). When there is none the outcome is not met, with the reason "ROI
-//     not found": a protocol naming an ROI that is missing must not pass
-//     silently.
+//     name).
 //   - isodose:P takes the ROIs with Source "isodose" whose name begins
 //     "isodose P%" (as the roi package names them, e.g. "isodose 50% of
-//     60 Gy"). None found: not met, "ROI not found".
+//     60 Gy").
+//
+// A rule whose subject matches nothing (no target or organ at risk in the
+// comparison, an ROI not found) gives one outcome with no value: not met
+// with the reason "no target ROI in this comparison: nothing to check, and
+// the rule requires it (when_missing: fail)" by default, not applicable with
+// when_missing: skip. When the comparison was run deliberately without a
+// structure set (the result's Choices.NoStructures, from --no-structures),
+// rules on targets, organs at risk and named ROIs are not applicable.
+//
+// A rule on an ROI covered less than coverage.roi_percent (its
+// covered_percent in the result) is not met whatever its value, with the
+// reason naming the covered share: a pass rate over part of a target
+// answers a smaller question than the one asked.
 //
 // A value that could not be measured is handled strictly:
 //
@@ -175,11 +210,13 @@
 //     met, with the reason "not evaluated: " and the ROI's Status, e.g. "not
 //     evaluated: all below threshold". A target that could not be evaluated
 //     must not pass.
-//   - The one exception: an ROI of kind oar whose Status is "all below
-//     threshold" meets pass-rate and Γ rules (value null, reason "not
-//     evaluated: all below threshold"). An organ at risk lying wholly in low
-//     dose is not a failure. An organ at risk not evaluated for any other
-//     reason (outside the dose grid, no contours) does not meet the rule.
+//   - The one exception: an ROI of kind oar whose Status is
+//     [result.StatusBelowThreshold] meets pass-rate and Γ rules (value null,
+//     reason "every point of this organ at risk is below the low-dose
+//     threshold"). An organ at risk lying wholly in low dose is not a
+//     failure. An organ at risk not evaluated for any other reason (outside
+//     the dose grid, no contours) does not meet the rule. Statuses are a
+//     closed set of typed values, compared as values, never as text.
 //   - A DVH rule on an ROI without that DVH value (no DVH, or the difference
 //     does not exist) is not met, whatever the ROI's kind.
 //
@@ -209,5 +246,6 @@
 //     paper; set your own.
 //
 // All three classify ROIs without an interpreted type whose names begin
-// PTV, CTV or GTV as targets.
+// PTV, CTV or GTV as targets, and check coverage with the defaults (99.5 %
+// overall, whole ROIs).
 package protocol

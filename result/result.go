@@ -12,7 +12,7 @@ package result
 // SchemaVersion is the version of this document's layout. It changes its
 // major number when a field is removed or changes meaning, its minor number
 // when fields are added.
-const SchemaVersion = "1.0"
+const SchemaVersion = "1.1"
 
 // Result is the whole outcome of one comparison.
 type Result struct {
