@@ -40,6 +40,10 @@ type Spec struct {
 	Reference, Evaluated, Structures string
 	// PatientID is the phantom's ID; empty means dicomio.DemoPatientID.
 	PatientID string
+	// Sigma is the width (standard deviation, mm) of the Gaussian dose
+	// cloud; zero means 9 mm. A wider cloud puts more of the grid above
+	// the low-dose threshold, and so makes the case slower to compute.
+	Sigma float64
 }
 
 // Files are the paths of a written case ("" for a file left out).
@@ -81,7 +85,11 @@ func Write(dir string, spec Spec) (*Files, error) {
 	if err != nil {
 		return nil, fmt.Errorf("batchtest: %w", err)
 	}
-	cloud := phantom.Gaussian([3]float64{0, 0, 0}, 9, peak)
+	sigma := spec.Sigma
+	if sigma == 0 {
+		sigma = 9
+	}
+	cloud := phantom.Gaussian([3]float64{0, 0, 0}, sigma, peak)
 	if err := phantom.Fill(ref, cloud); err != nil {
 		return nil, fmt.Errorf("batchtest: %w", err)
 	}
