@@ -147,7 +147,11 @@ func write(args []string) error {
 			}
 			return filepath.ToSlash(r)
 		}
-		fmt.Fprintf(&b, "%s,%s,%s,%s,%s\n", id, rel(f.Reference), rel(f.Evaluated), rel(f.Structures), protocol)
+		rs := rel(f.Structures)
+		if spec.NoStructures {
+			rs = batch.NoStructuresWord // deliberately without structures
+		}
+		fmt.Fprintf(&b, "%s,%s,%s,%s,%s\n", id, rel(f.Reference), rel(f.Evaluated), rs, protocol)
 	}
 	return os.WriteFile(filepath.Join(dir, "manifest.csv"), []byte(b.String()), 0o644)
 }
