@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"runtime"
 	"strconv"
 	"strings"
 
@@ -158,6 +159,9 @@ func DefaultBudget() (int64, string) {
 	if room, ok := cgroupRoom(); ok && room < avail {
 		avail, source = room, "the cgroup memory limit"
 	}
+	if mem, what, ok := schedulerMemory(os.Getenv); ok && mem < avail {
+		avail, source = mem, what
+	}
 	b := int64(float64(avail) * DefaultBudgetFraction)
 	return b, fmt.Sprintf("%s (%.0f %% of %s of %s)", FormatBytes(b), DefaultBudgetFraction*100, FormatBytes(avail), source)
 }
@@ -232,4 +236,43 @@ func cgroupRoom() (int64, bool) {
 		}
 	}
 	return best, found
+}
+
+// schedulerMemory returns the memory a Slurm job was given, from the
+// environment sbatch sets: SLURM_MEM_PER_NODE (--mem), or SLURM_MEM_PER_CPU
+// (--mem-per-cpu) times SLURM_CPUS_PER_TASK (or 1), both in megabytes
+// (Slurm's sbatch documentation, "OUTPUT ENVIRONMENT VARIABLES"; from
+// memory). On a cluster that sets no memory cgroup this is the only limit
+// the job can see.
+func schedulerMemory(getenv func(string) string) (int64, string, bool) {
+	mb := func(name string) (int64, bool) {
+		v, err := strconv.ParseInt(strings.TrimSpace(getenv(name)), 10, 64)
+		return v, err == nil && v > 0
+	}
+	if v, ok := mb("SLURM_MEM_PER_NODE"); ok {
+		return v << 20, "Slurm's --mem (SLURM_MEM_PER_NODE)", true
+	}
+	if v, ok := mb("SLURM_MEM_PER_CPU"); ok {
+		cpus := int64(1)
+		if c, ok := mb("SLURM_CPUS_PER_TASK"); ok {
+			cpus = c
+		}
+		return v * cpus << 20, "Slurm's --mem-per-cpu × --cpus-per-task", true
+	}
+	return 0, "", false
+}
+
+// AvailableCPUs returns the CPUs this process may use: SLURM_CPUS_PER_TASK
+// when a Slurm job sets it (--cpus-per-task; sbatch sets it only when the
+// option is given), which a cluster without CPU binding does not enforce,
+// else runtime.NumCPU().
+func AvailableCPUs() int {
+	return availableCPUs(os.Getenv, runtime.NumCPU())
+}
+
+func availableCPUs(getenv func(string) string, numCPU int) int {
+	if v, err := strconv.Atoi(strings.TrimSpace(getenv("SLURM_CPUS_PER_TASK"))); err == nil && v > 0 {
+		return min(v, numCPU)
+	}
+	return numCPU
 }

@@ -8,7 +8,6 @@ import (
 	"log/slog"
 	"os"
 	"path/filepath"
-	"runtime"
 	"runtime/debug"
 	"sort"
 	"strings"
@@ -188,12 +187,12 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 	mine := shard.Select(cases)
 	rep.Jobs = opt.Jobs
 	if rep.Jobs <= 0 {
-		rep.Jobs = runtime.NumCPU()
+		rep.Jobs = AvailableCPUs()
 	}
 	rep.Jobs = max(1, min(rep.Jobs, len(mine)))
 	rep.Workers = opt.Overrides.Workers
 	if rep.Workers <= 0 {
-		rep.Workers = max(1, runtime.NumCPU()/rep.Jobs)
+		rep.Workers = max(1, AvailableCPUs()/rep.Jobs)
 	}
 
 	casesDir := filepath.Join(opt.Out, CasesDir)
