@@ -2,6 +2,7 @@ package analysis
 
 import (
 	"context"
+	"errors"
 	"math"
 	"path/filepath"
 	"strings"
@@ -235,6 +236,31 @@ func TestSubGrid(t *testing.T) {
 	}
 	if !strings.Contains(strings.Join(out.Result.Notes, "\n"), "sub-grid") {
 		t.Fatal("the result does not say the sub-grid was used")
+	}
+}
+
+// TestSubGridSizeCheck: the sub-grid's point count is checked without
+// overflow (issue 11, item 9): a step of 1e-12 mm asks for about 10^40
+// points, whose int product once wrapped past the limit into Go's fatal
+// "out of memory"; a step wider than the ROI leaves one point per axis.
+// Both are bad input naming the option and the ROI.
+func TestSubGridSizeCheck(t *testing.T) {
+	ref := grid(t, [3]int{25, 25, 25}, [3]float64{-12, -12, -12}, 1, phantom.Uniform(20))
+	in := writeCase(t, ref, ref, []structure.ROI{sphereROI(t, "GTV_small", "GTV", 1, phantom.Sphere{Radius: 3})})
+	for _, step := range []float64{1e-12, 1e-300, 1e300} {
+		set := Settings{Criteria: gamma.Criteria{DosePercent: 3, DTA: 2, ThresholdPercent: 10}, SubGridROIs: []string{"GTV_small"}, SubGridStep: step}
+		l, err := Load(in)
+		if err != nil {
+			t.Fatal(err)
+		}
+		p, err := Prepare(l, set)
+		if err != nil {
+			t.Fatal(err)
+		}
+		_, err = p.Run(context.Background(), set)
+		if !errors.Is(err, ErrBadInput) || !strings.Contains(err.Error(), "--subgrid-step") || !strings.Contains(err.Error(), "GTV_small") {
+			t.Errorf("step %g: error %v, want bad input naming --subgrid-step and the ROI", step, err)
+		}
 	}
 }
 

@@ -707,6 +707,10 @@ func commonCurves(r, e roi.Curve) *result.DVHCurves {
 	return c
 }
 
+// MaxSubGridPoints bounds the points of one ROI's sub-grid (about 70 bytes
+// each while it is evaluated).
+const MaxSubGridPoints = 50_000_000
+
 // subGrid evaluates ROI src on a finer grid of reference points inside it:
 // the ROI is rasterised on a grid of the given step over its bounding box,
 // and the reference dose is interpolated at every centre inside.
@@ -720,6 +724,11 @@ func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, 
 	hi := ref.WorldOf(reg.Box.Hi[0], reg.Box.Hi[1], reg.Box.Hi[2])
 	var origin [3]float64
 	var dims [3]int
+	// The point count is computed in float64 and checked before any int
+	// conversion or allocation: a step of 1e-12 mm asks for 10^40 points,
+	// which overflows int and once reached Go's fatal "out of memory".
+	count := 1.0
+	var n [3]float64
 	for a := 0; a < 3; a++ {
 		l, h := math.Min(lo[a], hi[a]), math.Max(lo[a], hi[a])
 		// Half a reference voxel beyond the box on each side.
@@ -727,10 +736,19 @@ func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, 
 		l -= sp / 2
 		h += sp / 2
 		origin[a] = l
-		dims[a] = int(math.Floor((h-l)/step)) + 1
+		n[a] = math.Floor((h-l)/step) + 1
+		count *= n[a]
+		if n[a] < 2 {
+			return gamma.Stats{}, 0, fmt.Errorf("%w: --subgrid-step %g mm: the sub-grid of ROI %q (%.4g mm across along patient %c) would have a single point along that axis; use a smaller step",
+				ErrBadInput, step, src.Name, h-l, "xyz"[a])
+		}
 	}
-	if dims[0]*dims[1]*dims[2] > 50_000_000 {
-		return gamma.Stats{}, 0, fmt.Errorf("%w: ROI %q is too large for a %g mm sub-grid (%d×%d×%d points)", ErrBadInput, src.Name, step, dims[0], dims[1], dims[2])
+	if !(count <= MaxSubGridPoints) {
+		return gamma.Stats{}, 0, fmt.Errorf("%w: --subgrid-step %g mm: ROI %q would need %.3g sub-grid points, more than the %d allowed; use a larger step",
+			ErrBadInput, step, src.Name, count, MaxSubGridPoints)
+	}
+	for a := 0; a < 3; a++ {
+		dims[a] = int(n[a])
 	}
 	fine, err := volume.NewUniform(dims, origin, [3]float64{step, step, step}, volume.Identity)
 	if err != nil {

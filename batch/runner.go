@@ -18,6 +18,7 @@ import (
 	"golang.org/x/sync/semaphore"
 
 	"voxgamma/analysis"
+	"voxgamma/internal/fault"
 	"voxgamma/job"
 	"voxgamma/result"
 )
@@ -254,7 +255,7 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 				}
 				r := protos[name]
 				w := caseWork{c: c, protocolName: name, settings: r.s, settingsHash: r.hash, outs: opt.Outputs, allowFM: opt.AllowFrameMismatch}
-				outcome := runOne(ctx, casesDir, w, r.err, opt.Rerun, mem, rep.Budget, log)
+				outcome := runOneProtected(ctx, casesDir, w, r.err, opt.Rerun, mem, rep.Budget, log)
 				switch outcome {
 				case outcomeComputed:
 					computed.Add(1)
@@ -327,6 +328,27 @@ const (
 	outcomeSkipped
 	outcomeInterrupted
 )
+
+// runOneProtected is runOne in a worker goroutine, where a panic would end
+// the whole process (and every other case with it) whatever the command
+// recovers: the panic becomes this case's error instead, written to its
+// folder like any other case that could not be evaluated.
+func runOneProtected(ctx context.Context, casesDir string, w caseWork, protoErr error, rerun bool, mem *semaphore.Weighted, budget int64, log *slog.Logger) (out outcome) {
+	defer func() {
+		if p := recover(); p != nil {
+			err := fmt.Errorf("internal error: %v (please report it)", p)
+			st := newStatus(w, nil, nil)
+			st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, caseMessage(w.c.ID, err)
+			if ierr := writeErrorCase(casesDir, st); ierr != nil {
+				log.Error("case folder not written", "id", w.c.ID, "error", ierr.Error())
+			}
+			log.Error("case failed", "id", w.c.ID, "error", st.Error)
+			out = outcomeComputed
+		}
+	}()
+	fault.Point(fault.BatchCase)
+	return runOne(ctx, casesDir, w, protoErr, rerun, mem, budget, log)
+}
 
 // runOne runs one case of a batch: the resume check, the memory
 // estimate, waiting for budget, the comparison, the case folder.

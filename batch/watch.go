@@ -19,6 +19,7 @@ import (
 	"voxgamma/analysis"
 	"voxgamma/dicomio"
 	"voxgamma/internal/atomicfile"
+	"voxgamma/internal/fault"
 	"voxgamma/job"
 )
 
@@ -720,6 +721,7 @@ func fullPrint(files []*watchFile) string {
 // the finished case (nil when it waits or was done before), whether it
 // waits, and an error for a failure to be tried again later.
 func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, bool, error) {
+	fault.Point(fault.WatchCase)
 	all := append(append([]*watchFile{}, c.files...), c.broken...)
 	sort.Slice(all, func(i, j int) bool { return all[i].rel < all[j].rel })
 	quick := quickPrint(all)

@@ -11,6 +11,7 @@ import (
 
 	"golang.org/x/sync/errgroup"
 
+	"voxgamma/internal/fault"
 	"voxgamma/kdtree"
 	"voxgamma/volume"
 )
@@ -231,6 +232,9 @@ func (s *pointSource) maxDose() float64 {
 	return m
 }
 
+// maxDoseRatio bounds dose/ΔD: beyond it Γ² could overflow float64.
+const maxDoseRatio = 1e100
+
 // blockSize is the number of reference points a worker takes at a time.
 const blockSize = 4096
 
@@ -245,6 +249,13 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		}
 	}
 	c.Search = c.SearchRadius()
+	// Γ's dose term is (D_e − D_r)/ΔD. A ΔD so small against the doses
+	// that this term overflows float64 when squared (a normalisation dose of
+	// 1e-300 Gy, say) gives no number at all: refuse it.
+	if emax, _ := eval.Max(); math.Max(math.Abs(float64(emax)), src.maxDose())/(c.DosePercent/100*c.NormDose) > maxDoseRatio {
+		return nil, fmt.Errorf("gamma: the dose criterion ΔD = %g %% of %.4g = %.4g is too small for doses up to %.4g: Γ cannot be computed (check the normalisation dose and the criteria)",
+			c.DosePercent, c.NormDose, c.DosePercent/100*c.NormDose, math.Max(float64(emax), src.maxDose()))
+	}
 	if opt.ExhaustiveStep < 0 || math.IsNaN(opt.ExhaustiveStep) {
 		return nil, fmt.Errorf("gamma: exhaustive step %g mm: want a positive step", opt.ExhaustiveStep)
 	}
@@ -442,6 +453,7 @@ func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) (int, error) {
 				if b >= blocks {
 					return nil
 				}
+				fault.Point(fault.GammaWorker)
 				if err := gctx.Err(); err != nil {
 					return err
 				}
@@ -495,7 +507,9 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 	// cell's far corner plus the search distance.
 	var span [3]int
 	for a := 0; a < 3; a++ {
-		span[a] = int(math.Ceil(s.rn/f.minStep(a))) + 1
+		// At most the grid's length: a search distance beyond the grid
+		// (--search 1e300) must not overflow the conversion to int.
+		span[a] = int(math.Min(math.Ceil(s.rn/f.minStep(a)), float64(f.n[a]))) + 1
 		lo[a] = max(0, lo[a]-span[a])
 		hi[a] = min(f.n[a]-1, hi[a]+span[a])
 	}
@@ -581,7 +595,8 @@ func (s *searcher) home(q [3]float64, dr, w float64) float64 {
 	var corners [8]float64
 	f.corners(c[0], c[1], c[2], &corners)
 	e0 := plValue(&corners, t)
-	best2 := w * w * (e0 - dr) * (e0 - dr)
+	d0 := w * (e0 - dr)
+	best2 := d0 * d0
 	if best2 == 0 || doseGap2(&corners, dr, w) >= best2 {
 		return best2
 	}

@@ -23,7 +23,10 @@ const exhaustiveCandidates = 64
 // the search distance is below rn.
 func (s *searcher) exhaustive(q [3]float64, dr, w float64) float64 {
 	rn, h := s.rn, s.latStep
-	m := int(math.Floor(rn / h))
+	// No lattice position farther than the grid's diagonal from q (which
+	// lies inside the grid) can be inside it: a search distance beyond that
+	// (--search 1e300) must not size the lattice.
+	m := int(math.Floor(math.Min(rn, s.f.diagonal()) / h))
 	type cand struct {
 		g float64
 		o [3]float64

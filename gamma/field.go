@@ -50,15 +50,16 @@ const insideTol = 1e-9
 // clamped to the grid; u must already be known to be inside or is clamped.
 func (f *field) cell(a int, u float64) int {
 	n := f.n[a]
-	if n == 1 || u <= 0 {
-		return 0
+	if n == 1 || !(u > 0) {
+		return 0 // NaN too: never an index out of the grid
 	}
 	if s := f.step[a]; s > 0 {
-		c := int(u / s)
-		if c > n-2 {
-			c = n - 2
+		// Compared before the conversion: int of a value beyond the int
+		// range (a search distance of 1e300 DTA) is undefined.
+		if v := u / s; !(v < float64(n-2)) {
+			return n - 2
 		}
-		return c
+		return int(u / s)
 	}
 	off := f.off[a]
 	c := sort.SearchFloat64s(off, u) // first off >= u
@@ -82,6 +83,17 @@ func (f *field) minStep(a int) float64 {
 		m = math.Min(m, f.off[a][i]-f.off[a][i-1])
 	}
 	return m
+}
+
+// diagonal returns the length of the grid's diagonal in DTA units: no two
+// points of the grid are farther apart.
+func (f *field) diagonal() float64 {
+	var d2 float64
+	for a := 0; a < 3; a++ {
+		l := f.off[a][f.n[a]-1] - f.off[a][0]
+		d2 += l * l
+	}
+	return math.Sqrt(d2)
 }
 
 // inside reports whether local position q (DTA units) lies in the grid.
@@ -149,8 +161,8 @@ func doseGap2(c *[8]float64, dr, w float64) float64 {
 	// Straight-line code: branches on dose values mispredict.
 	cmin := min(c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7])
 	cmax := max(c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7])
-	gap := max(cmin-dr, dr-cmax, 0)
-	return w * w * gap * gap
+	gap := w * max(cmin-dr, dr-cmax, 0)
+	return gap * gap // (w·gap)², not w²·gap²: w² may overflow where the product does not
 }
 
 // cellMin returns min(best2, the minimum over cell (ci, cj, ck), whose

@@ -5,8 +5,10 @@ import (
 	"math"
 	"math/rand/v2"
 	"slices"
+	"strings"
 	"testing"
 
+	"voxgamma/internal/fault"
 	"voxgamma/volume"
 )
 
@@ -558,5 +560,84 @@ func TestPercentileSelect(t *testing.T) {
 				t.Fatalf("n=%d p=%g: select %g, sort %g", n, p, got, want)
 			}
 		}
+	}
+}
+
+// TestExtremeCriteria: criteria at the ends of what Validate accepts must
+// give a number or an error, never a panic or a NaN Γ (issue 11, item 9:
+// --search 1e300 sized a slice from an int conversion of 1e300;
+// --norm-dose 1e-300 made w² overflow, Inf·0 = NaN, and an index of NaN).
+// Truth: the uniform-scale closed form of TestUniformScale, Γ = |k−1|·D/ΔD
+// at every point (minimum at r_e = r_r), which no search distance changes
+// once it reaches past the grid.
+func TestExtremeCriteria(t *testing.T) {
+	const d0, k = 2.0, 1.05 // Γ = 1.33: fails at its home cell, so the k-d tree is built
+	ref := mustGrid(t, [3]int{6, 6, 6}, [3]float64{0, 0, 0}, [3]float64{2, 2, 2}, volume.Identity)
+	eval := mustGrid(t, [3]int{16, 16, 16}, [3]float64{-3, -3, -3}, [3]float64{1, 1, 1}, volume.Identity)
+	fill(ref, func([3]float64) float64 { return d0 })
+	fill(eval, func([3]float64) float64 { return k * d0 })
+	for _, tc := range []struct {
+		name   string
+		c      Criteria
+		method Method
+	}{
+		{"search_1e300", Criteria{DosePercent: 3, DTA: 2, NormDose: 2.5, Search: 1e300}, Fast},
+		{"search_1e300_exhaustive", Criteria{DosePercent: 3, DTA: 2, NormDose: 2.5, Search: 1e300}, Exhaustive},
+		{"search_max_float", Criteria{DosePercent: 3, DTA: 2, NormDose: 2.5, Search: math.MaxFloat64}, Fast},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			opt := Options{Method: tc.method}
+			if tc.method == Exhaustive {
+				// One reference point: the lattice spans the whole grid.
+				opt.Only = volume.NewMask(ref)
+				opt.Only.Bits[ref.Index(2, 2, 2)] = true
+				opt.ExhaustiveStep = 2
+			}
+			res, err := CompareGrids(context.Background(), ref, eval, tc.c, opt)
+			if err != nil {
+				t.Fatal(err)
+			}
+			want := (k - 1) * d0 / (0.03 * 2.5)
+			for i, v := range res.Gamma {
+				if res.Status[i] == NotSelected {
+					continue
+				}
+				if res.Status[i] != Evaluated || math.Abs(float64(v)-want) > 1e-5 {
+					t.Fatalf("voxel %d: status %v Γ = %g, want evaluated, %g", i, res.Status[i], v, want)
+				}
+			}
+		})
+	}
+	// ΔD = 3 % of 1e-300 Gy: the dose term overflows; refused, not NaN.
+	for _, norm := range []float64{1e-300, 5e-324} {
+		res, err := CompareGrids(context.Background(), ref, eval, Criteria{DosePercent: 3, DTA: 2, NormDose: norm}, Options{})
+		if err == nil {
+			for i, v := range res.Gamma {
+				if v != v && res.Status[i] == Evaluated {
+					t.Fatalf("norm %g: voxel %d evaluated with Γ NaN", norm, i)
+				}
+			}
+			t.Fatalf("norm %g: accepted, want an error (ΔD too small for the doses)", norm)
+		}
+		t.Logf("norm %g: %v", norm, err)
+	}
+}
+
+// TestWorkerPanicIsError: a panic in a search worker goroutine (injected
+// with internal/fault) is this comparison's error, not the end of the
+// process (issue 11, item 9).
+func TestWorkerPanicIsError(t *testing.T) {
+	ref := mustGrid(t, [3]int{6, 6, 6}, [3]float64{0, 0, 0}, [3]float64{2, 2, 2}, volume.Identity)
+	eval := mustGrid(t, [3]int{16, 16, 16}, [3]float64{-3, -3, -3}, [3]float64{1, 1, 1}, volume.Identity)
+	fill(ref, func([3]float64) float64 { return 2 })
+	fill(eval, func([3]float64) float64 { return 2 })
+	t.Cleanup(fault.SetForTest(func(site string) {
+		if site == fault.GammaWorker {
+			panic("injected")
+		}
+	}))
+	_, err := CompareGrids(context.Background(), ref, eval, Criteria{DosePercent: 3, DTA: 2}, Options{Workers: 2})
+	if err == nil || !strings.Contains(err.Error(), "internal error") || !strings.Contains(err.Error(), "injected") {
+		t.Fatalf("error %v, want the worker's panic as an internal error", err)
 	}
 }

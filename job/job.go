@@ -13,6 +13,7 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"slices"
@@ -188,8 +189,8 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 	if step == 0 {
 		step = 0.5
 	}
-	if !(step > 0) {
-		return s, fmt.Errorf("--subgrid-step %g: want a step above 0 mm", step)
+	if !(step > 0) || math.IsInf(step, 0) {
+		return s, fmt.Errorf("--subgrid-step %g: want a finite step above 0 mm", step)
 	}
 	if ov.Workers < 0 {
 		return s, fmt.Errorf("--workers %d: want 0 (all cores) or more", ov.Workers)

@@ -6,6 +6,8 @@ import (
 	"runtime"
 	"slices"
 	"sync"
+
+	"voxgamma/internal/fault"
 )
 
 const (
@@ -86,6 +88,9 @@ func Build(coords []float32, doseWeightHint float64) *Tree {
 		}
 		b.build(0, m)
 		b.wg.Wait()
+		if b.fault != nil {
+			panic(b.fault)
+		}
 	}
 	return t
 }
@@ -109,6 +114,11 @@ type builder struct {
 	hint float64
 	sem  chan struct{} // one token per extra goroutine allowed; nil for a serial build
 	wg   sync.WaitGroup
+	// fault is the first panic of a helper goroutine, raised again in the
+	// caller's goroutine once all helpers are done: a panic in a goroutine
+	// of its own would end the process, whatever the caller recovers.
+	faultOnce sync.Once
+	fault     any
 }
 
 // build organises the range [lo, hi) of t.pts into a subtree. Large left
@@ -128,8 +138,14 @@ func (b *builder) build(lo, hi int) {
 				b.wg.Add(1)
 				go func(lo, hi int) {
 					defer b.wg.Done()
+					defer func() {
+						if r := recover(); r != nil {
+							b.faultOnce.Do(func() { b.fault = r })
+						}
+						<-b.sem
+					}()
+					fault.Point(fault.KDTreeHelper)
 					b.build(lo, hi)
-					<-b.sem
 				}(lo, mid)
 				lo = mid + 1
 				continue

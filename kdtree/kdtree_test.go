@@ -7,6 +7,8 @@ import (
 	"runtime"
 	"slices"
 	"testing"
+
+	"voxgamma/internal/fault"
 )
 
 // refDist2 is the definition of the distance, written out independently of
@@ -648,4 +650,33 @@ func ExampleTree_Nearest() {
 	// w=5:   point 0, d²=0.8100, ok=true
 	// within 0.25: false
 	// [0 1]
+}
+
+// TestHelperPanicReachesCaller: a panic in a helper goroutine of Build would
+// end the process whatever the caller recovers (issue 11, item 9); Build
+// raises it again in the caller's goroutine, where the program's recovery
+// turns it into an error. The fault is injected with internal/fault.
+func TestHelperPanicReachesCaller(t *testing.T) {
+	if runtime.GOMAXPROCS(0) < 2 {
+		t.Skip("one CPU: Build uses no helper goroutine")
+	}
+	t.Cleanup(fault.SetForTest(func(site string) {
+		if site == fault.KDTreeHelper {
+			panic("injected")
+		}
+	}))
+	n := 4 * parallelMin
+	rng := rand.New(rand.NewPCG(1, 2))
+	coords := make([]float32, 4*n)
+	for i := range coords {
+		coords[i] = rng.Float32()
+	}
+	got := func() (p any) {
+		defer func() { p = recover() }()
+		Build(coords, 1)
+		return nil
+	}()
+	if got != "injected" {
+		t.Fatalf("Build recovered %v in the caller, want the helper's panic", got)
+	}
 }

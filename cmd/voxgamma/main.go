@@ -19,6 +19,9 @@ import (
 	"os"
 
 	"github.com/spf13/cobra"
+
+	"voxgamma/batch"
+	"voxgamma/internal/fault"
 )
 
 // version is the voxgamma version recorded in every result.
@@ -44,13 +47,18 @@ func main() {
 // run executes the command line and returns the exit status. Every error
 // ends as one line on stderr.
 func run(args []string, stdout, stderr io.Writer) (status int) {
+	var g *globals
 	defer func() {
+		if g != nil && g.restoreLimit != nil {
+			g.restoreLimit()
+		}
 		if p := recover(); p != nil {
-			fmt.Fprintf(stderr, "voxgamma: internal error: %v (please report it with the command line)\n", p)
+			fmt.Fprintf(stderr, "voxgamma: internal error: %s (please report it with the command line)\n", oneLine(fmt.Sprint(p)))
 			status = exitError
 		}
 	}()
-	root, g := newRoot(stdout, stderr)
+	var root *cobra.Command
+	root, g = newRoot(stdout, stderr)
 	root.SetArgs(args)
 	err := root.Execute()
 	var v *verdictError
@@ -67,6 +75,22 @@ func run(args []string, stdout, stderr io.Writer) (status int) {
 		fmt.Fprintf(stderr, "voxgamma: error: %s\n", oneLine(err.Error()))
 		return exitError
 	}
+}
+
+// commandBudget is the memory budget of a command: its --max-memory when
+// given and valid (the command itself reports an invalid one), else
+// batch.DefaultBudget. The Go runtime's soft memory limit is set to it
+// (runtime/debug.SetMemoryLimit) for every command, so that the collector
+// works harder as the heap nears the budget instead of the process growing
+// until the system kills it.
+func commandBudget(cmd *cobra.Command) int64 {
+	if fl := cmd.Flags().Lookup("max-memory"); fl != nil && fl.Changed {
+		if b, err := batch.ParseBytes(fl.Value.String()); err == nil {
+			return b
+		}
+	}
+	b, _ := batch.DefaultBudget()
+	return b
 }
 
 func oneLine(s string) string {
@@ -94,6 +118,8 @@ type globals struct {
 	// prints it, also with --quiet): a pipeline always reads the outcome
 	// on the last line.
 	outcome string
+	// restoreLimit undoes the memory limit a command set (run calls it).
+	restoreLimit func()
 }
 
 func newRoot(stdout, stderr io.Writer) (*cobra.Command, *globals) {
@@ -121,6 +147,8 @@ Exit status: 0 every rule met, 2 a rule not met, 1 could not evaluate.`,
 				level = slog.LevelError
 			}
 			g.log = slog.New(slog.NewTextHandler(g.stderr, &slog.HandlerOptions{Level: level}))
+			g.restoreLimit = memoryLimit(commandBudget(cmd))
+			fault.Point(fault.Command + " " + cmd.Name())
 		},
 	}
 	root.SetOut(stdout)
