@@ -85,13 +85,16 @@ func Load(in Inputs) (*Loaded, error) {
 		return nil, badInput("a structure set (%s) was given with --no-structures: give one or the other", in.Structures)
 	}
 
-	// Evaluated first: the reference points are in its coordinates.
-	evalPath, _, evalAccount, err := resolveDose(in.Evaluated)
+	// Evaluated first: the reference points are in its coordinates. A
+	// folder never yields the file given as the other dose, and when both
+	// are folders the words of the files decide which is which.
+	evalPath, _, evalAccount, err := resolveDose(in.Evaluated, dicomio.ChooseOptions{Role: dicomio.EvaluatedRole,
+		Exclude: []string{fileOnly(in.Reference)}, ExcludeRole: dicomio.ReferenceRole})
 	if err != nil {
 		return nil, err
 	}
 	l.Notes = append(l.Notes, evalAccount...)
-	if l.Evaluated, l.EvaluatedInfo, err = readDose(evalPath); err != nil {
+	if l.Evaluated, l.EvaluatedInfo, err = readDose(evalPath, "evaluated dose"); err != nil {
 		return nil, err
 	}
 	if err := l.addDoseInput("evaluated", evalPath, l.EvaluatedInfo, l.Evaluated); err != nil {
@@ -100,7 +103,8 @@ func Load(in Inputs) (*Loaded, error) {
 
 	structuresPath := in.Structures
 	if in.Reference != "" {
-		refPath, folderRS, account, err := resolveDose(in.Reference)
+		refPath, folderRS, account, err := resolveDose(in.Reference, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
+			Exclude: []string{evalPath}, ExcludeRole: dicomio.EvaluatedRole})
 		if err != nil {
 			return nil, err
 		}
@@ -108,7 +112,7 @@ func Load(in Inputs) (*Loaded, error) {
 		if refPath == evalPath {
 			return nil, badInput("%s is both the reference and the evaluated dose", refPath)
 		}
-		if l.Reference, l.ReferenceInfo, err = readDose(refPath); err != nil {
+		if l.Reference, l.ReferenceInfo, err = readDose(refPath, "reference"); err != nil {
 			return nil, err
 		}
 		if err := l.addDoseInput("reference", refPath, l.ReferenceInfo, l.Reference); err != nil {
@@ -165,10 +169,20 @@ func Load(in Inputs) (*Loaded, error) {
 	return l, nil
 }
 
+// fileOnly returns path when it names something other than a folder, else
+// "" (a folder given for one dose excludes nothing from the other's).
+func fileOnly(path string) string {
+	if st, err := os.Stat(path); path == "" || err != nil || st.IsDir() {
+		return ""
+	}
+	return path
+}
+
 // resolveDose returns the RT Dose file named by path: path itself, or the
-// plan dose chosen in a folder, with the structure set chosen with it (""
-// when none) and the account of the choice.
-func resolveDose(path string) (dose, structures string, account []string, err error) {
+// plan dose chosen in a folder (see dicomio.Folder.ChooseFor), with the
+// structure set chosen with it ("" when none) and the account of the
+// choice.
+func resolveDose(path string, opt dicomio.ChooseOptions) (dose, structures string, account []string, err error) {
 	st, err := os.Stat(path)
 	if err != nil {
 		return "", "", nil, badInput("%v", err)
@@ -180,9 +194,9 @@ func resolveDose(path string) (dose, structures string, account []string, err er
 	if err != nil {
 		return "", "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 	}
-	choice, err := folder.Choose()
+	choice, err := folder.ChooseFor(opt)
 	if err != nil {
-		return "", "", nil, fmt.Errorf("%w: folder %s: %w", ErrBadInput, path, err)
+		return "", "", nil, fmt.Errorf("%w: folder %s (for the %s): %w", ErrBadInput, path, opt.Role, err)
 	}
 	if choice.StructureSet != nil {
 		structures = choice.StructureSet.Path
@@ -190,10 +204,16 @@ func resolveDose(path string) (dose, structures string, account []string, err er
 	return choice.Dose.Path, structures, choice.Account, nil
 }
 
-func readDose(path string) (*volume.Grid, *dicomio.DoseInfo, error) {
+// readDose reads the dose given for role ("reference", "evaluated dose"),
+// refusing a map of disagreement (DoseType ERROR: a gamma or difference
+// map) in either role.
+func readDose(path, role string) (*volume.Grid, *dicomio.DoseInfo, error) {
 	g, info, err := dicomio.ReadDose(path)
 	if err != nil {
 		return nil, nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+	}
+	if why := info.DisagreementMap(); why != "" {
+		return nil, nil, badInput("%s %s: %s; give a dose as the %s", role, path, why, role)
 	}
 	return g, info, nil
 }

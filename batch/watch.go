@@ -581,6 +581,10 @@ func (w *Watcher) classify(p string) *watchFile {
 	w.reads++
 	info, err := dicomio.ReadDoseInfo(p)
 	switch {
+	case err == nil && info.DisagreementMap() != "":
+		// A gamma or difference map (its own, or any DoseType ERROR) is
+		// never a dose of a case.
+		f.kind, f.reason = kindOther, info.DisagreementMap()
 	case err == nil:
 		f.kind, f.dose, f.frame = kindDose, info, info.FrameOfReferenceUID
 	case errors.Is(err, dicomio.ErrNotDICOM):

@@ -73,11 +73,18 @@
 //
 // # Choosing files in a folder
 //
-// [ScanFolder] sorts the files of a directory by Modality; [Folder.Choose]
+// [ScanFolder] sorts the files of a directory by Modality; [Folder.ChooseFor]
 // picks the plan dose (DoseSummationType PLAN before other whole-plan doses
-// before beam or fraction doses; a tie is an error asking for a file) and
-// the structure set in its frame of reference, with an account of what was
-// chosen and ignored, and why.
+// before beam or fraction doses) and the structure set in its frame of
+// reference, with an account of what was chosen and ignored, and why. Maps
+// of disagreement are never chosen: a dose with DoseType ERROR (PS3.3
+// C.8.8.3: a difference between doses), which every gamma and difference
+// map voxgamma writes is ([DoseInfo.DisagreementMap]), nor is the file
+// given for the other role. A tie between doses of the best rank is broken
+// by what their words say ([DoseOrigin]: the planning system's dose for the
+// reference, an independent one for the evaluated dose) and is otherwise an
+// error asking for a file. [SwapEvidence] tells when the files say that a
+// reference and an evaluated dose are the wrong way round.
 //
 // # Consistency checks
 //
@@ -93,7 +100,12 @@
 // Equipment, General Image, Image Plane, Image Pixel, Multi-frame, RT Dose,
 // SOP Common) in explicit VR little endian with a file meta header. How
 // values are scaled into 16- or 32-bit integers, how NaN is written and how
-// the geometry is written are described there. [WriteStructureSet] writes an
+// the geometry is written are described there. A DoseSummationType is
+// written only with the references PS3.3 C.8.8.3 requires of it (a
+// ReferencedRTPlanSequence for PLAN, FRACTION and BEAM, not present for
+// other terms; a fraction group; a beam), else refused; maps take their
+// reference's summation when it can be written so ([MapSummation]) and
+// [MapSummationType] otherwise. [WriteStructureSet] writes an
 // RT Structure Set (A.19). New UIDs are UUID-derived ("2.25." + the decimal
 // of a random 128-bit UUID, ISO/IEC 9834-8, PS3.5 annex B.2); see [NewUID]
 // and [PhantomIdentifiers] for a consistent set of identifiers for a

@@ -139,13 +139,57 @@ func summationLabel(t string) string {
 	return "DoseSummationType " + t
 }
 
-// Choose picks the dose to compare and the structure set that goes with
-// it: the RT Dose with DoseSummationType PLAN (else a single MULTI_PLAN or
-// BRACHY dose, else a single dose of another kind, with a warning); when
-// several doses share the best rank it returns an error asking for a file.
-// The structure set is the one whose frame of reference is the dose's; when
-// several are, it returns an error asking for a file.
-func (fo *Folder) Choose() (*Choice, error) {
+// Role is the part a dose plays in a comparison, for [Folder.ChooseFor].
+type Role int
+
+// The roles.
+const (
+	// AnyRole: no preference between the planning system's dose and an
+	// independent one.
+	AnyRole Role = iota
+	// ReferenceRole: the planning system's dose is preferred.
+	ReferenceRole
+	// EvaluatedRole: an independent dose is preferred.
+	EvaluatedRole
+)
+
+func (r Role) String() string {
+	switch r {
+	case ReferenceRole:
+		return "reference"
+	case EvaluatedRole:
+		return "evaluated dose"
+	}
+	return "dose"
+}
+
+// ChooseOptions tune [Folder.ChooseFor].
+type ChooseOptions struct {
+	// Role breaks a tie between doses of the same rank: the one dose whose
+	// words say it is the planning system's (for ReferenceRole) or an
+	// independent dose (for EvaluatedRole), see [DoseOrigin].
+	Role Role
+	// Exclude lists files not to choose: the file given for the other role
+	// (a dose compared with itself means nothing). Paths are compared
+	// after symbolic links are resolved.
+	Exclude []string
+	// ExcludeRole names the role of the excluded files, for the account.
+	ExcludeRole Role
+}
+
+// Choose is ChooseFor with no role and nothing excluded.
+func (fo *Folder) Choose() (*Choice, error) { return fo.ChooseFor(ChooseOptions{}) }
+
+// ChooseFor picks the dose to compare and the structure set that goes with
+// it. Maps of disagreement (DoseType ERROR: gamma and difference maps, see
+// [DoseInfo.DisagreementMap]) and the files in opt.Exclude are set aside.
+// Of the rest it takes the RT Dose with DoseSummationType PLAN (else a
+// single MULTI_PLAN or BRACHY dose, else a single dose of another kind, with
+// a warning); when several doses share the best rank, the one whose words
+// fit opt.Role (and only it) is taken, else it returns an error asking for a
+// file. The structure set is the one whose frame of reference is the
+// dose's; when several are, it returns an error asking for a file.
+func (fo *Folder) ChooseFor(opt ChooseOptions) (*Choice, error) {
 	name := func(p string) string {
 		if r, err := filepath.Rel(fo.Dir, p); err == nil {
 			return r
@@ -156,24 +200,68 @@ func (fo *Folder) Choose() (*Choice, error) {
 	for _, ig := range fo.Ignored {
 		ignored = append(ignored, fmt.Sprintf("ignored %s: %s", name(ig.Path), ig.Reason))
 	}
-	if len(fo.Doses) == 0 {
+	excluded := map[string]bool{}
+	for _, p := range opt.Exclude {
+		if p != "" {
+			excluded[sameFile(p)] = true
+		}
+	}
+	var doses []DoseFile
+	var setAside []string
+	for _, d := range fo.Doses {
+		switch {
+		case excluded[sameFile(d.Path)]:
+			setAside = append(setAside, fmt.Sprintf("ignored %s: given as the %s", name(d.Path), opt.ExcludeRole))
+		case d.Info.DisagreementMap() != "":
+			setAside = append(setAside, fmt.Sprintf("ignored %s: %s", name(d.Path), d.Info.DisagreementMap()))
+		default:
+			doses = append(doses, d)
+		}
+	}
+	if len(doses) == 0 {
 		msg := fmt.Sprintf("no usable RT Dose file in %s", fo.Dir)
-		if len(ignored) > 0 {
-			msg += "; " + strings.Join(ignored, "; ")
+		if all := append(setAside, ignored...); len(all) > 0 {
+			msg += "; " + strings.Join(all, "; ")
 		}
 		return nil, errors.New(msg)
 	}
 	best := 3
-	for _, d := range fo.Doses {
+	for _, d := range doses {
 		best = min(best, summationRank(d.Info.DoseSummationType))
 	}
 	var cands []DoseFile
 	var others []DoseFile
-	for _, d := range fo.Doses {
+	for _, d := range doses {
 		if summationRank(d.Info.DoseSummationType) == best {
 			cands = append(cands, d)
 		} else {
 			others = append(others, d)
+		}
+	}
+	var byRole string
+	if len(cands) > 1 && opt.Role != AnyRole {
+		want := OriginPlanning
+		if opt.Role == EvaluatedRole {
+			want = OriginIndependent
+		}
+		var fit, rest []DoseFile
+		var why string
+		for _, d := range cands {
+			if o := DoseOrigin(d.Info); o.Kind() == want {
+				fit = append(fit, d)
+				why = strings.Join(append(o.Planning, o.Independent...), ", ")
+			} else {
+				rest = append(rest, d)
+			}
+		}
+		if len(fit) == 1 {
+			kind := "the planning system's dose"
+			if want == OriginIndependent {
+				kind = "an independent dose"
+			}
+			byRole = fmt.Sprintf("chose %s as the %s among %d doses of the same kind: it reads as %s (%s)", name(fit[0].Path), opt.Role, len(cands), kind, why)
+			cands = fit
+			others = append(others, rest...)
 		}
 	}
 	if len(cands) > 1 {
@@ -189,13 +277,21 @@ func (fo *Folder) Choose() (*Choice, error) {
 	in := d.Info
 	c.Account = append(c.Account, fmt.Sprintf("chose dose %s: %s, DoseUnits %s, %d×%d×%d grid, frame of reference %s",
 		name(d.Path), summationLabel(in.DoseSummationType), in.DoseUnits, in.Columns, in.Rows, in.NumberOfFrames, orNone(in.FrameOfReferenceUID)))
+	if byRole != "" {
+		c.Account = append(c.Account, byRole)
+	}
 	if best == 2 {
 		c.Account = append(c.Account, fmt.Sprintf("warning: %s is not a whole-plan dose (%s): comparing a beam or fraction dose with a plan dose is a classic mistake",
 			name(d.Path), summationLabel(in.DoseSummationType)))
 	}
 	for _, o := range others {
+		if byRole != "" && summationRank(o.Info.DoseSummationType) == best {
+			c.Account = append(c.Account, fmt.Sprintf("ignored %s: %s, not read as the %s", name(o.Path), summationLabel(o.Info.DoseSummationType), opt.Role))
+			continue
+		}
 		c.Account = append(c.Account, fmt.Sprintf("ignored %s: %s", name(o.Path), summationLabel(o.Info.DoseSummationType)))
 	}
+	c.Account = append(c.Account, setAside...)
 
 	var match []StructureFile
 	var mismatch []string
@@ -227,6 +323,19 @@ func (fo *Folder) Choose() (*Choice, error) {
 	c.Account = append(c.Account, mismatch...)
 	c.Account = append(c.Account, ignored...)
 	return c, nil
+}
+
+// sameFile returns path made absolute with symbolic links resolved, for
+// telling whether two names are one file.
+func sameFile(path string) string {
+	a, err := filepath.Abs(path)
+	if err != nil {
+		return path
+	}
+	if r, err := filepath.EvalSymlinks(a); err == nil {
+		return r
+	}
+	return a
 }
 
 // setInFrame reports whether the set, or any of its ROIs, is in frame uid.

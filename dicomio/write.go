@@ -186,13 +186,13 @@ func (b *builder) addCommon(sopClass, sopInstance, modality, seriesUID, seriesDe
 	b.add(tagStudyTime, id.StudyTime)
 	b.add(tagAccessionNumber, id.AccessionNumber)
 	b.add(tagModality, modality)
-	b.add(tagManufacturer, "voxgamma")
+	b.add(tagManufacturer, writerManufacturer)
 	b.add(tagReferringPhysicianName, id.ReferringPhysicianName)
 	if seriesDescription != "" {
 		b.add(tagSeriesDescription, seriesDescription)
 	}
 	b.add(tagOperatorsName, "")
-	b.add(tagManufacturerModelName, "voxgamma")
+	b.add(tagManufacturerModelName, writerManufacturer)
 	b.add(tagPatientName, id.PatientName)
 	b.add(tagPatientID, id.PatientID)
 	b.add(tagPatientBirthDate, id.PatientBirthDate)

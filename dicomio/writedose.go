@@ -25,7 +25,12 @@ type WriteOptions struct {
 	// DoseType (3004,0004): PHYSICAL or EFFECTIVE for doses; ERROR for maps
 	// of disagreement between doses (differences, gamma).
 	DoseType string
-	// DoseSummationType (3004,000A); PLAN when empty.
+	// DoseSummationType (3004,000A). Empty means PLAN, or MapSummationType
+	// for DoseType ERROR when the identifiers name no RT Plan. The
+	// references it requires (PS3.3 C.8.8.3) must be given: an RT Plan in
+	// the identifiers for PLAN, FRACTION and BEAM (and their sessions), a
+	// fraction group for FRACTION and BEAM, a beam for BEAM; MULTI_PLAN,
+	// BRACHY, CONTROL_POINT, RECORD and PLAN_OVERVIEW are not written.
 	DoseSummationType string
 	// ReferencedFractionGroupNumber and ReferencedBeamNumber go under the
 	// referenced plan (needed for FRACTION and BEAM doses); 0 omits them.
@@ -67,11 +72,6 @@ func DoseOptions(description string) WriteOptions {
 	return WriteOptions{Description: description, DoseUnits: "GY", DoseType: "PHYSICAL", Bits: 16}
 }
 
-// needsPlan lists the DoseSummationTypes for which ReferencedRTPlanSequence
-// is required (PS3.3 C.8.8.3, type 1C).
-var needsPlan = map[string]bool{"PLAN": true, "MULTI_PLAN": true, "FRACTION": true, "BEAM": true, "BRACHY": true,
-	"FRACTION_SESSION": true, "BEAM_SESSION": true, "BRACHY_SESSION": true, "CONTROL_POINT": true}
-
 func (o *WriteOptions) check() error {
 	if o.Description == "" {
 		return fmt.Errorf("WriteOptions.Description is empty: say what the values are")
@@ -80,9 +80,6 @@ func (o *WriteOptions) check() error {
 		return err
 	}
 	o.DoseUnits, o.DoseType, o.DoseSummationType = upper(o.DoseUnits), upper(o.DoseType), upper(o.DoseSummationType)
-	if o.DoseSummationType == "" {
-		o.DoseSummationType = "PLAN"
-	}
 	if o.DoseUnits != "GY" && o.DoseUnits != "RELATIVE" {
 		return fmt.Errorf("DoseUnits %q: want GY or RELATIVE", o.DoseUnits)
 	}
@@ -152,6 +149,17 @@ func buildDose(path string, g *volume.Grid, ids Identifiers, opt WriteOptions) (
 		return nil, nil, err
 	}
 	if err := checkIdentifiers(ids); err != nil {
+		return nil, nil, err
+	}
+	if opt.DoseSummationType == "" {
+		// PLAN for a dose of the plan named; a map without a plan gets
+		// MapSummationType (see there).
+		opt.DoseSummationType = "PLAN"
+		if ids.ReferencedRTPlanUID == "" && opt.DoseType == "ERROR" {
+			opt.DoseSummationType = MapSummationType
+		}
+	}
+	if err := checkSummation(opt.DoseSummationType, ids, &opt); err != nil {
 		return nil, nil, err
 	}
 	dims := g.Dims()
@@ -242,8 +250,8 @@ func buildDose(path string, g *volume.Grid, ids Identifiers, opt WriteOptions) (
 		SOPInstanceUID:        NewUID(),
 		SeriesInstanceUID:     NewUID(),
 		SeriesDescription:     opt.Description,
-		Manufacturer:          "voxgamma",
-		ManufacturerModelName: "voxgamma",
+		Manufacturer:          writerManufacturer,
+		ManufacturerModelName: writerManufacturer,
 		DoseUnits:             opt.DoseUnits,
 		DoseType:              opt.DoseType,
 		DoseSummationType:     opt.DoseSummationType,
@@ -312,7 +320,7 @@ func buildDose(path string, g *volume.Grid, ids Identifiers, opt WriteOptions) (
 		b.addDS(tagGridFrameOffsetVector, gfov...)
 	}
 	b.add(tagDoseGridScaling, scaleStr)
-	if ids.ReferencedRTPlanUID != "" {
+	if needsPlan[opt.DoseSummationType] {
 		plan := &builder{}
 		plan.add(tagReferencedSOPClassUID, RTPlanStorage)
 		plan.add(tagReferencedSOPInstanceUID, ids.ReferencedRTPlanUID)
@@ -329,9 +337,12 @@ func buildDose(path string, g *volume.Grid, ids Identifiers, opt WriteOptions) (
 		b.addSeq(tagReferencedRTPlanSequence, plan)
 		info.ReferencedFractionGroupNumber = opt.ReferencedFractionGroupNumber
 		info.ReferencedBeamNumber = opt.ReferencedBeamNumber
-	} else if needsPlan[opt.DoseSummationType] {
-		info.Notes = append(info.Notes, fmt.Sprintf("written without %s: the identifiers name no RT Plan, which DoseSummationType %s requires",
-			tagString(tagReferencedRTPlanSequence), opt.DoseSummationType))
+	} else {
+		// Not present otherwise (PS3.3 C.8.8.3 as dciodvfy checks it).
+		info.ReferencedRTPlanUID = ""
+		if ids.ReferencedRTPlanUID != "" {
+			info.Notes = append(info.Notes, fmt.Sprintf("written without %s: DoseSummationType %s does not take one", tagString(tagReferencedRTPlanSequence), opt.DoseSummationType))
+		}
 	}
 	b.add(tagPixelData, dicom.PixelDataInfo{IntentionallyUnprocessed: true, UnprocessedValueData: pixels})
 	if b.err != nil {

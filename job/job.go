@@ -394,6 +394,16 @@ func Write(o Outputs, out *analysis.Outcome, deidentify bool) (err error) {
 		ids = deidentifyIDs(ids)
 		gammaOpt.OmitDates, diffOpt.OmitDates = true, true
 	}
+	// The maps take the reference's summation and plan references when
+	// they can be written validly, else dicomio.MapSummationType without a
+	// plan (PS3.3 C.8.8.3: PLAN and the like require a referenced plan).
+	sum, fg, beam := dicomio.MapSummation(out.ReferenceInfo)
+	if ids.ReferencedRTPlanUID == "" {
+		sum, fg, beam = dicomio.MapSummationType, 0, 0
+	}
+	for _, o := range []*dicomio.WriteOptions{&gammaOpt, &diffOpt} {
+		o.DoseSummationType, o.ReferencedFractionGroupNumber, o.ReferencedBeamNumber = sum, fg, beam
+	}
 	if o.GammaMap != "" || o.DifferenceMap != "" {
 		if ids.StudyInstanceUID == "" {
 			ids.StudyInstanceUID = dicomio.NewUID()

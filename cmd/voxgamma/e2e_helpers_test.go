@@ -336,3 +336,10 @@ func requirePydicom(t *testing.T) string {
 	t.Helper()
 	return reftool.Python(t, "apt-get install python3-pydicom python3-numpy", "pydicom", "numpy")
 }
+
+// reftoolProgram returns the path of an external reference program (dcmtk,
+// dicom3tools), or fails (CI) or skips the test.
+func reftoolProgram(t *testing.T, name string) string {
+	t.Helper()
+	return reftool.Program(t, name, "apt-get install dcmtk dicom3tools")
+}

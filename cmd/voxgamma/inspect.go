@@ -75,14 +75,35 @@ func inspectPath(g *globals, path string, rules []roi.Rule) error {
 		for _, ig := range folder.Ignored {
 			fmt.Fprintf(w, "  ignored %s\n", strings.TrimSpace(fmt.Sprint(ig)))
 		}
+		// As either dose, and, when the words of the files tell them apart,
+		// as each of the two.
 		choice, err := folder.Choose()
-		if err != nil {
+		if err == nil {
+			fmt.Fprintf(w, "  would use:\n")
+			for _, line := range choice.Account {
+				fmt.Fprintf(w, "    %s\n", line)
+			}
+			fmt.Fprintln(w)
+			return nil
+		}
+		ref, rerr := folder.ChooseFor(dicomio.ChooseOptions{Role: dicomio.ReferenceRole})
+		if rerr != nil {
 			fmt.Fprintln(w)
 			return err
 		}
-		fmt.Fprintf(w, "  would use:\n")
-		for _, line := range choice.Account {
-			fmt.Fprintf(w, "    %s\n", line)
+		eval, eerr := folder.ChooseFor(dicomio.ChooseOptions{Role: dicomio.EvaluatedRole, Exclude: []string{ref.Dose.Path}, ExcludeRole: dicomio.ReferenceRole})
+		if eerr != nil {
+			fmt.Fprintln(w)
+			return err
+		}
+		for _, c := range []struct {
+			role   string
+			choice *dicomio.Choice
+		}{{"the reference", ref}, {"the evaluated dose", eval}} {
+			fmt.Fprintf(w, "  would use as %s (given the folder for both):\n", c.role)
+			for _, line := range c.choice.Account {
+				fmt.Fprintf(w, "    %s\n", line)
+			}
 		}
 		fmt.Fprintln(w)
 		return nil
