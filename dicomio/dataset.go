@@ -77,6 +77,18 @@ func (d dataset) decimals(t tag.Tag) (v []float64, present bool, err error) {
 	return v, true, nil
 }
 
+// numbers reads a numeric element whatever its VR: binary floating point
+// (FD, FL) or a decimal string (DS, IS).
+func (d dataset) numbers(t tag.Tag) ([]float64, bool, error) {
+	if e := d.find(t); e != nil && e.Value != nil {
+		switch v := e.Value.GetValue().(type) {
+		case []float64:
+			return v, len(v) > 0, nil
+		}
+	}
+	return d.decimals(t)
+}
+
 // finiteDecimals is decimals with n values (n < 0: any number) that must all
 // be finite.
 func (d dataset) finiteDecimals(t tag.Tag, n int) ([]float64, bool, error) {

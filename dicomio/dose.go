@@ -6,6 +6,8 @@ import (
 	"math"
 	"strings"
 
+	"github.com/suyashkumar/dicom/pkg/tag"
+
 	"voxgamma/volume"
 )
 
@@ -251,6 +253,9 @@ func (f *file) doseHeader() (*DoseInfo, *doseGeometry, error) {
 		return nil, nil, invalid(tagDoseGridScaling, "is %g, want a positive finite number", scale[0])
 	}
 	info.DoseGridScaling = scale[0]
+	if err := f.otherScalings(info); err != nil {
+		return nil, nil, err
+	}
 	// The size claimed is checked against the file before anything else
 	// is built from it.
 	need, err := f.checkPixelLength(info)
@@ -263,6 +268,85 @@ func (f *file) doseHeader() (*DoseInfo, *doseGeometry, error) {
 	}
 	geo.bytes = need
 	return info, geo, nil
+}
+
+// otherScalings checks the attributes that would turn stored values into
+// something other than stored value × DoseGridScaling. The RT Dose IOD
+// (PS3.3 A.18.3) has no Modality LUT module: DoseGridScaling (C.8.8.3) alone
+// scales the values. A file that also carries a RescaleSlope (0028,1053) /
+// RescaleIntercept (0028,1052), a ModalityLUTSequence (0028,3000) or a
+// RealWorldValueMappingSequence (0040,9096) says two things about its
+// values; readers differ in which they apply (a generic image reader
+// applies the rescale, an RT reader DoseGridScaling), so:
+//
+//   - an identity (slope 1, intercept 0) changes nothing: a note;
+//   - a slope equal to DoseGridScaling with intercept 0 (the same scaling
+//     written twice, for generic viewers) is applied once: a note;
+//   - anything else, and any Modality LUT, is refused: the dose cannot be
+//     told, and applying one and ignoring the other could be wrong either
+//     way.
+func (f *file) otherScalings(info *DoseInfo) error {
+	d := f.ds
+	scale := info.DoseGridScaling
+	same := func(a, b float64) bool { return math.Abs(a-b) <= 1e-9*math.Max(math.Abs(a), math.Abs(b)) }
+	check := func(slopeTag, interceptTag tag.Tag, slopeV, interceptV []float64, slopeOK, interceptOK bool, where string) error {
+		slope, intercept := 1.0, 0.0
+		if slopeOK {
+			if len(slopeV) != 1 || math.IsNaN(slopeV[0]) || math.IsInf(slopeV[0], 0) {
+				return invalid(slopeTag, "%s%v: want one finite number", where, slopeV)
+			}
+			slope = slopeV[0]
+		}
+		if interceptOK {
+			if len(interceptV) != 1 || math.IsNaN(interceptV[0]) || math.IsInf(interceptV[0], 0) {
+				return invalid(interceptTag, "%s%v: want one finite number", where, interceptV)
+			}
+			intercept = interceptV[0]
+		}
+		switch {
+		case !slopeOK && !interceptOK:
+		case slope == 1 && intercept == 0:
+			info.Notes = append(info.Notes, fmt.Sprintf("%s%s 1 and %s 0: an identity, no effect on the doses", where, tagString(slopeTag), tagString(interceptTag)))
+		case same(slope, scale) && intercept == 0:
+			info.Notes = append(info.Notes, fmt.Sprintf("%s%s %g equals %s: the same scaling written twice, applied once",
+				where, tagString(slopeTag), slope, tagString(tagDoseGridScaling)))
+		default:
+			return unsupportedf("%s%s %g and %s %g in an RT Dose whose %s is %g: the RT Dose IOD scales stored values by %s alone (PS3.3 C.8.8.3), "+
+				"and a second scaling that disagrees leaves the dose ambiguous (stored × %g + %g, or stored × %g?); refusing rather than guessing",
+				where, tagString(slopeTag), slope, tagString(interceptTag), intercept, tagString(tagDoseGridScaling), scale, tagString(tagDoseGridScaling),
+				slope, intercept, scale)
+		}
+		return nil
+	}
+	slopeV, slopeOK, err := d.decimals(tagRescaleSlope)
+	if err != nil {
+		return err
+	}
+	interceptV, interceptOK, err := d.decimals(tagRescaleIntercept)
+	if err != nil {
+		return err
+	}
+	if err := check(tagRescaleSlope, tagRescaleIntercept, slopeV, interceptV, slopeOK, interceptOK, ""); err != nil {
+		return err
+	}
+	if d.find(tagModalityLUTSequence) != nil {
+		return unsupportedf("%s present in an RT Dose: a lookup table from stored values to output values, which the RT Dose IOD does not have (PS3.3 A.18.3; its doses are stored value × %s); refusing rather than ignoring it",
+			tagString(tagModalityLUTSequence), tagString(tagDoseGridScaling))
+	}
+	for n, it := range d.items(tagRWVMSequence) {
+		sv, sok, err := it.numbers(tagRWVSlope)
+		if err != nil {
+			return fmt.Errorf("%s item %d: %w", tagString(tagRWVMSequence), n+1, err)
+		}
+		iv, iok, err := it.numbers(tagRWVIntercept)
+		if err != nil {
+			return fmt.Errorf("%s item %d: %w", tagString(tagRWVMSequence), n+1, err)
+		}
+		if err := check(tagRWVSlope, tagRWVIntercept, sv, iv, sok, iok, fmt.Sprintf("%s item %d: ", tagString(tagRWVMSequence), n+1)); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 // pixelModule reads the Image Pixel and Multi-frame attributes.

@@ -2,9 +2,12 @@ package dicomio_test
 
 import (
 	"encoding/binary"
+	"encoding/json"
 	"errors"
+	"fmt"
 	"math"
 	"os"
+	"os/exec"
 	"runtime"
 	"strings"
 	"testing"
@@ -413,4 +416,116 @@ func TestReadDoseMutationsDoNotPanic(t *testing.T) {
 			}()
 		}
 	}
+}
+
+// TestReadDoseOtherScalings: a second scaling beside DoseGridScaling
+// (issue 11, item 11). The RT Dose IOD (PS3.3 A.18.3) has no Modality LUT
+// module; DoseGridScaling (C.8.8.3) alone turns stored values into dose. A
+// RescaleSlope/RescaleIntercept, a ModalityLUTSequence or a Real World
+// Value Mapping that says something else is refused, never ignored (before:
+// a RescaleSlope of 2 was ignored without a word); an identity, or the same
+// scaling written twice, is read as stored × DoseGridScaling with a note.
+// pydicom is the outside reference for both conventions: its generic
+// Modality LUT (apply_modality_lut, PS3.3 C.11.1) gives stored × slope +
+// intercept, the RT convention stored × DoseGridScaling, and for a refused
+// file the two disagree.
+func TestReadDoseOtherScalings(t *testing.T) {
+	const (
+		tRescaleIntercept = 0x00281052
+		tRescaleSlope     = 0x00281053
+		tModalityLUT      = 0x00283000
+		tLUTDescriptor    = 0x00283002
+		tRWVM             = 0x00409096
+		tRWVIntercept     = 0x00409224
+		tRWVSlope         = 0x00409225
+	)
+	dir := t.TempDir()
+	// pydicom needs PhotometricInterpretation to decode the pixels.
+	base := func() []el { return with(baseDose(), str(0x00280004, "CS", "MONOCHROME2")) }
+	type tc struct {
+		name  string
+		elems []el
+		ok    bool
+		want  string // in the note or the error
+	}
+	cases := []tc{
+		{"identity", with(base(), str(tRescaleSlope, "DS", "1"), str(tRescaleIntercept, "DS", "0")), true, "an identity, no effect"},
+		{"slope_equals_scaling", with(base(), str(tRescaleSlope, "DS", "0.01"), str(tRescaleIntercept, "DS", "0")), true, "the same scaling written twice, applied once"},
+		{"rwvm_equals_scaling", with(base(), seq(tRWVM, []el{str(tRWVSlope, "FD", ""), str(tRWVIntercept, "FD", "")})), true, ""},
+		{"slope_2", with(base(), str(tRescaleSlope, "DS", "2"), str(tRescaleIntercept, "DS", "0")), false, "RescaleSlope (0028,1053) 2 and RescaleIntercept (0028,1052) 0"},
+		{"slope_only", with(base(), str(tRescaleSlope, "DS", "2")), false, "RescaleSlope (0028,1053) 2"},
+		{"intercept_only", with(base(), str(tRescaleIntercept, "DS", "-1")), false, "RescaleIntercept (0028,1052) -1"},
+		{"modality_lut", with(base(), seq(tModalityLUT, []el{us(tLUTDescriptor, 2, 0, 16)})), false, "ModalityLUTSequence (0028,3000) present"},
+	}
+	// Real World Value Mapping slopes are FD (binary doubles, PS3.5 6.2).
+	fd := func(tag uint32, v float64) el {
+		b := make([]byte, 8)
+		binary.LittleEndian.PutUint64(b, math.Float64bits(v))
+		return el{tag: tag, vr: "FD", val: b}
+	}
+	cases[2].elems = with(base(), seq(tRWVM, []el{fd(tRWVIntercept, 0), fd(tRWVSlope, 0.01)}))
+	cases = append(cases, tc{"rwvm_slope_3", with(base(), seq(tRWVM, []el{fd(tRWVIntercept, 0), fd(tRWVSlope, 3)})), false, "RealWorldValueSlope (0040,9225) 3"})
+	var accepted []string
+	for _, c := range cases {
+		p := dir + "/" + c.name + ".dcm"
+		if err := os.WriteFile(p, encodeFile(c.elems, explicitLE, true), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		g, info, err := dicomio.ReadDose(p)
+		if !c.ok {
+			if err == nil || !errors.Is(err, dicomio.ErrUnsupported) || !strings.Contains(err.Error(), c.want) || !strings.Contains(err.Error(), p) {
+				t.Errorf("%s: error %v, want it refused naming %q and the file", c.name, err, c.want)
+			}
+			continue
+		}
+		if err != nil {
+			t.Errorf("%s: %v", c.name, err)
+			continue
+		}
+		if c.want != "" && !strings.Contains(strings.Join(info.Notes, "\n"), c.want) {
+			t.Errorf("%s: notes %q lack %q", c.name, info.Notes, c.want)
+		}
+		for n, v := range g.Data {
+			if want := float32(float64(n) * 0.01); v != want {
+				t.Fatalf("%s: voxel %d = %g, want stored %d × 0.01", c.name, n, v, n)
+			}
+		}
+		accepted = append(accepted, p)
+	}
+	t.Run("pydicom", func(t *testing.T) {
+		py := requirePython(t)
+		out, err := exec.Command(py, append([]string{"-c", `import sys, json, pydicom
+for p in sys.argv[1:]:
+    ds = pydicom.dcmread(p)
+    print(json.dumps((ds.pixel_array.astype(float) * float(ds.DoseGridScaling)).ravel().tolist()))`}, accepted...)...).CombinedOutput()
+		if err != nil {
+			t.Fatalf("pydicom: %v\n%s", err, out)
+		}
+		for i, line := range strings.Split(strings.TrimSpace(string(out)), "\n") {
+			var ref []float64
+			if err := json.Unmarshal([]byte(line), &ref); err != nil {
+				t.Fatal(err)
+			}
+			g, _, _ := dicomio.ReadDose(accepted[i])
+			for n, v := range ref {
+				if math.Abs(v-float64(g.Data[n])) > 1e-6 {
+					t.Fatalf("%s voxel %d: pydicom stored × DoseGridScaling %g, voxgamma %g", accepted[i], n, v, g.Data[n])
+				}
+			}
+		}
+		// The refused RescaleSlope 2: pydicom's generic Modality LUT and the
+		// RT convention give different doses for the same file.
+		out, err = exec.Command(py, "-c", `import sys, pydicom
+from pydicom.pixel_data_handlers.util import apply_modality_lut
+ds = pydicom.dcmread(sys.argv[1])
+a = ds.pixel_array.astype(float)
+print(float(apply_modality_lut(a, ds).max()), float((a * float(ds.DoseGridScaling)).max()))`, dir+"/slope_2.dcm").CombinedOutput()
+		if err != nil {
+			t.Fatalf("pydicom: %v\n%s", err, out)
+		}
+		var modality, rt float64
+		if _, err := fmt.Sscan(string(out), &modality, &rt); err != nil || modality != 23*2 || rt != 23*0.01 {
+			t.Errorf("pydicom on RescaleSlope 2: modality LUT max %g, RT max %g (%s); want 46 and 0.23: two readings of one file", modality, rt, out)
+		}
+	})
 }

@@ -61,6 +61,13 @@ var (
 	tagBitsStored               = tag.Tag{Group: 0x0028, Element: 0x0101}
 	tagHighBit                  = tag.Tag{Group: 0x0028, Element: 0x0102}
 	tagPixelRepresentation      = tag.Tag{Group: 0x0028, Element: 0x0103}
+	tagRescaleIntercept         = tag.Tag{Group: 0x0028, Element: 0x1052}
+	tagRescaleSlope             = tag.Tag{Group: 0x0028, Element: 0x1053}
+	tagRescaleType              = tag.Tag{Group: 0x0028, Element: 0x1054}
+	tagModalityLUTSequence      = tag.Tag{Group: 0x0028, Element: 0x3000}
+	tagRWVMSequence             = tag.Tag{Group: 0x0040, Element: 0x9096}
+	tagRWVIntercept             = tag.Tag{Group: 0x0040, Element: 0x9224}
+	tagRWVSlope                 = tag.Tag{Group: 0x0040, Element: 0x9225}
 	tagDoseUnits                = tag.Tag{Group: 0x3004, Element: 0x0002}
 	tagDoseType                 = tag.Tag{Group: 0x3004, Element: 0x0004}
 	tagDoseComment              = tag.Tag{Group: 0x3004, Element: 0x0006}
@@ -125,6 +132,13 @@ var tagNames = map[tag.Tag]string{
 	tagBitsStored:               "BitsStored",
 	tagHighBit:                  "HighBit",
 	tagPixelRepresentation:      "PixelRepresentation",
+	tagRescaleIntercept:         "RescaleIntercept",
+	tagRescaleSlope:             "RescaleSlope",
+	tagRescaleType:              "RescaleType",
+	tagModalityLUTSequence:      "ModalityLUTSequence",
+	tagRWVMSequence:             "RealWorldValueMappingSequence",
+	tagRWVIntercept:             "RealWorldValueIntercept",
+	tagRWVSlope:                 "RealWorldValueSlope",
 	tagDoseUnits:                "DoseUnits",
 	tagDoseType:                 "DoseType",
 	tagDoseSummationType:        "DoseSummationType",
