@@ -61,6 +61,11 @@ type Loaded struct {
 	// Paths lists every input file read, so that outputs can refuse to
 	// overwrite them.
 	Paths []string
+	// DoseTypeMismatch says why the doses' DoseType values differ
+	// (dicomio.DoseTypeMismatch), SwapEvidence why the files read as the
+	// wrong way round (dicomio.SwapEvidence); "" when not. Prepare refuses
+	// or warns, as the settings say.
+	DoseTypeMismatch, SwapEvidence string
 }
 
 // ErrBadInput marks errors caused by the inputs (a file that cannot be read
@@ -153,6 +158,8 @@ func Load(in Inputs) (*Loaded, error) {
 	}
 
 	if l.Reference != nil {
+		l.DoseTypeMismatch = dicomio.DoseTypeMismatch(l.ReferenceInfo, l.EvaluatedInfo)
+		l.SwapEvidence = dicomio.SwapEvidence(l.ReferenceInfo, l.EvaluatedInfo)
 		f := dicomio.CheckConsistency(l.ReferenceInfo, l.Reference, l.EvaluatedInfo, l.Evaluated, l.Structures, in.AllowFrameMismatch)
 		l.Warnings = append(l.Warnings, f.Warnings...)
 		if err := f.Err(); err != nil {

@@ -67,6 +67,12 @@ type Settings struct {
 	// AcceptNormDose lets a normalisation dose outside the plausible band
 	// (see NormDoseBand) be used.
 	AcceptNormDose bool
+	// RefuseSwappedDoses refuses a comparison whose files say the doses
+	// are the wrong way round (Loaded.SwapEvidence); otherwise it is a
+	// warning. AllowDoseTypeMismatch compares doses of different DoseType
+	// (Loaded.DoseTypeMismatch) with a warning; otherwise they are refused.
+	// Both come from the protocol's inputs section.
+	RefuseSwappedDoses, AllowDoseTypeMismatch bool
 }
 
 // NormDoseBand is the band, as a multiple of the reference maximum, that a
@@ -122,6 +128,19 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}, kindSource: map[*roi.Region]string{}}
 	if l.Reference == nil {
 		return p, nil
+	}
+	if m := l.DoseTypeMismatch; m != "" {
+		if !s.AllowDoseTypeMismatch {
+			return nil, badInput("%s; refused (a protocol may compare them with a warning: inputs: {dose_type_mismatch: warn})", m)
+		}
+		p.warnings = append(p.warnings, m+"; compared as the protocol allows (inputs: dose_type_mismatch: warn)")
+	}
+	if e := l.SwapEvidence; e != "" {
+		msg := "the reference and evaluated doses look swapped: " + e + ". voxgamma takes --reference as the planning system's dose and --evaluated as the independent one, and Γ is not symmetric: swapped, failing points can pass"
+		if s.RefuseSwappedDoses {
+			return nil, badInput("%s; refused by the protocol (inputs: swapped_doses: error)", msg)
+		}
+		p.warnings = append(p.warnings, msg)
 	}
 	var err error
 	p.EvaluatedOnRef, err = l.Evaluated.ResampleOnto(l.Reference, float32(math.NaN()))

@@ -48,9 +48,14 @@ var partialSummation = map[string]bool{"BEAM": true, "FRACTION": true, "CONTROL_
 //
 //   - frames of reference differ: an error, or a warning when
 //     allowDifferentFrames (the user vouches the coordinates agree);
-//   - dose units differ (GY against RELATIVE): an error;
+//   - dose units differ (GY against RELATIVE): an error; both RELATIVE: a
+//     warning (their normalisations must agree);
+//   - a DoseType missing: a warning (different types: see
+//     [DoseTypeMismatch], which the caller applies by its policy);
+//   - the doses reference different RT Plans: a warning;
 //   - summation types differ: a warning (a beam or fraction dose compared
-//     with a plan dose is a classic mistake);
+//     with a plan dose is a classic mistake); the same partial type of
+//     different beams or fraction groups: a warning;
 //   - patient IDs differ: a warning;
 //   - the evaluated grid does not cover the reference high-dose region (at
 //     least [HighDoseFraction] of the reference maximum): a warning saying
@@ -84,6 +89,15 @@ func CheckConsistency(ref *DoseInfo, refGrid *volume.Grid, eval *DoseInfo, evalG
 	}
 	if ref.DoseUnits != eval.DoseUnits {
 		f.errorf("dose units differ: reference (%s) %s, evaluated (%s) %s: an absolute and a relative dose cannot be compared", rn, orNone(ref.DoseUnits), en, orNone(eval.DoseUnits))
+	} else if ref.Relative() {
+		f.warnf("both doses are RELATIVE (%s): the dose differences mean something only if both are normalised the same way; check that they are", tagString(tagDoseUnits))
+	}
+	if ref.DoseType == "" || eval.DoseType == "" {
+		f.warnf("%s missing (reference %s, evaluated %s): cannot check that both are physical doses", tagString(tagDoseType), orNone(ref.DoseType), orNone(eval.DoseType))
+	}
+	if a, b := ref.ReferencedRTPlanUID, eval.ReferencedRTPlanUID; a != "" && b != "" && a != b {
+		f.warnf("the doses reference different RT Plans (%s: reference %s, evaluated %s): a recalculation of the same plan may carry a copy's UID, but check that both doses are of this plan",
+			tagString(tagReferencedRTPlanSequence), a, b)
 	}
 	rs, es := ref.DoseSummationType, eval.DoseSummationType
 	switch {
@@ -93,6 +107,9 @@ func CheckConsistency(ref *DoseInfo, refGrid *volume.Grid, eval *DoseInfo, evalG
 		f.warnf("DoseSummationType differs: reference (%s) %s, evaluated (%s) %s: comparing a beam or fraction dose with a plan dose is a classic mistake (a fraction dose differs from the plan total by the number of fractions); check that these are the files you mean", rn, rs, en, es)
 	case rs != es:
 		f.warnf("DoseSummationType differs: reference (%s) %s, evaluated (%s) %s", rn, rs, en, es)
+	case partialSummation[rs] && (ref.ReferencedFractionGroupNumber != eval.ReferencedFractionGroupNumber || ref.ReferencedBeamNumber != eval.ReferencedBeamNumber):
+		f.warnf("both doses are %s doses but of different parts of the plan: reference (%s) fraction group %d, beam %d; evaluated (%s) fraction group %d, beam %d",
+			rs, rn, ref.ReferencedFractionGroupNumber, ref.ReferencedBeamNumber, en, eval.ReferencedFractionGroupNumber, eval.ReferencedBeamNumber)
 	}
 	if ref.PatientID != "" && eval.PatientID != "" && ref.PatientID != eval.PatientID {
 		f.warnf("patient IDs differ: reference (%s) %q, evaluated (%s) %q", rn, ref.PatientID, en, eval.PatientID)
@@ -101,6 +118,24 @@ func CheckConsistency(ref *DoseInfo, refGrid *volume.Grid, eval *DoseInfo, evalG
 		coverage(f, ref, refGrid, evalGrid, rn, en)
 	}
 	return f
+}
+
+// DoseTypeMismatch returns, when the reference and the evaluated dose have
+// different DoseType (3004,0004) values, why they cannot simply be compared;
+// "" when the types agree or one is missing (which CheckConsistency warns
+// about). PS3.3 C.8.8.3 defines PHYSICAL as physical dose, EFFECTIVE as
+// physical dose corrected for biological effect by a user-defined model,
+// and ERROR as a difference between doses: a physical and an effective dose
+// differ by that model (an RBE of 1.1, say, is 10 %) whatever the delivery,
+// and an ERROR "dose" is no dose at all (refused on its own, see
+// DoseInfo.DisagreementMap).
+func DoseTypeMismatch(ref, eval *DoseInfo) string {
+	a, b := ref.DoseType, eval.DoseType
+	if a == "" || b == "" || a == b {
+		return ""
+	}
+	return fmt.Sprintf("dose types differ: reference (%s) %s, evaluated (%s) %s (%s): an effective dose is a physical dose corrected for biological effect by a model (PS3.3 C.8.8.3), so the two differ by that model whatever the delivery",
+		fileLabel(ref, "reference"), a, fileLabel(eval, "evaluated"), b, tagString(tagDoseType))
 }
 
 // coverage checks that the evaluated grid covers the reference high-dose

@@ -128,3 +128,53 @@ func TestCheckConsistency(t *testing.T) {
 		t.Errorf("zero reference: %+v", f)
 	}
 }
+
+// TestCheckDoseMeaning: the checks of issue 11, item 11 on what PS3.3
+// C.8.8.3 says the values are (DoseType, DoseUnits, DoseSummationType and
+// its references).
+func TestCheckDoseMeaning(t *testing.T) {
+	ref, rinfo := checkGrids(t)
+	full := evalGrid(t, [3]float64{0, 0, 0}, 39)
+	same := func() *dicomio.DoseInfo { c := *rinfo; c.Path = "/data/eval.dcm"; return &c }
+
+	e := same()
+	e.DoseType = "EFFECTIVE"
+	if m := dicomio.DoseTypeMismatch(rinfo, e); !strings.Contains(m, "dose types differ: reference (ref.dcm) PHYSICAL, evaluated (eval.dcm) EFFECTIVE") {
+		t.Errorf("PHYSICAL against EFFECTIVE: %q", m)
+	}
+	if m := dicomio.DoseTypeMismatch(rinfo, same()); m != "" {
+		t.Errorf("same types: %q", m)
+	}
+	e.DoseType = ""
+	if m := dicomio.DoseTypeMismatch(rinfo, e); m != "" {
+		t.Errorf("one type missing is not a mismatch: %q", m)
+	}
+	if f := dicomio.CheckConsistency(rinfo, ref, e, full, nil, false); !contains(f.Warnings, "DoseType (3004,0004) missing (reference PHYSICAL, evaluated (none given))") {
+		t.Errorf("type missing: %+v", f)
+	}
+
+	r, e := same(), same()
+	r.Path = "/data/ref.dcm"
+	r.DoseUnits, e.DoseUnits = "RELATIVE", "RELATIVE"
+	if f := dicomio.CheckConsistency(r, ref, e, full, nil, false); len(f.Errors) != 0 || !contains(f.Warnings, "both doses are RELATIVE") {
+		t.Errorf("both relative: %+v", f)
+	}
+
+	r, e = same(), same()
+	r.ReferencedRTPlanUID, e.ReferencedRTPlanUID = "2.25.10", "2.25.11"
+	if f := dicomio.CheckConsistency(r, ref, e, full, nil, false); !contains(f.Warnings, "different RT Plans (ReferencedRTPlanSequence (300C,0002): reference 2.25.10, evaluated 2.25.11)") {
+		t.Errorf("plans differ: %+v", f)
+	}
+
+	r, e = same(), same()
+	r.DoseSummationType, e.DoseSummationType = "BEAM", "BEAM"
+	r.ReferencedFractionGroupNumber, e.ReferencedFractionGroupNumber = 1, 1
+	r.ReferencedBeamNumber, e.ReferencedBeamNumber = 1, 2
+	if f := dicomio.CheckConsistency(r, ref, e, full, nil, false); !contains(f.Warnings, "both doses are BEAM doses but of different parts of the plan") {
+		t.Errorf("different beams: %+v", f)
+	}
+	e.ReferencedBeamNumber = 1
+	if f := dicomio.CheckConsistency(r, ref, e, full, nil, false); len(f.Warnings) != 0 {
+		t.Errorf("the same beam: %+v", f)
+	}
+}

@@ -202,7 +202,8 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 		Criteria: c, KindRules: rules, CLIKindRules: len(cli), IsodosePercents: iso, VDoses: ov.VDoses,
 		SubGridROIs: ov.SubGrid, SubGridStep: step, MinClusterCC: ov.MinClusterCC,
 		Workers: ov.Workers, Checker: p, Protocol: p.Resolved(), Version: ov.Version,
-		AcceptNormDose: ov.AcceptNormDose,
+		AcceptNormDose:     ov.AcceptNormDose,
+		RefuseSwappedDoses: p.RefuseSwappedDoses(), AllowDoseTypeMismatch: !p.RefuseDoseTypeMismatch(),
 	}
 	s.Choices = result.Choices{Overrides: overrides, KindRules: []string{}, NoStructures: ov.NoStructures}
 	for _, r := range cli {

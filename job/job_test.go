@@ -88,3 +88,33 @@ func TestSettingsOverrides(t *testing.T) {
 		}
 	}
 }
+
+// TestSettingsInputChecks: the protocol's inputs section reaches the
+// analysis settings (issue 11, items 7 and 11); the defaults are a warning
+// for swapped doses and a refusal for differing dose types.
+func TestSettingsInputChecks(t *testing.T) {
+	for _, tc := range []struct {
+		yaml                   string
+		refuseSwap, allowTypes bool
+	}{
+		{"", false, false},
+		{"inputs: {swapped_doses: error}\n", true, false},
+		{"inputs: {dose_type_mismatch: warn, swapped_doses: warn}\n", false, true},
+	} {
+		p, err := protocol.Parse([]byte("name: x\ncriteria: {criteria: 3%/2mm}\nrules: [{subject: overall, metric: pass_rate, op: '>=', limit: 95}]\n"+tc.yaml), "x.yaml")
+		if err != nil {
+			t.Fatal(err)
+		}
+		s, err := Settings(p, Overrides{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if s.RefuseSwappedDoses != tc.refuseSwap || s.AllowDoseTypeMismatch != tc.allowTypes {
+			t.Errorf("%q: refuse swapped %v, allow dose types %v", tc.yaml, s.RefuseSwappedDoses, s.AllowDoseTypeMismatch)
+		}
+	}
+	if _, err := protocol.Parse([]byte("name: x\ncriteria: {criteria: 3%/2mm}\nrules: [{subject: overall, metric: pass_rate, op: '>=', limit: 95}]\ninputs: {swapped_doses: maybe}\n"), "x.yaml"); err == nil ||
+		!strings.Contains(err.Error(), "x.yaml:4: inputs.swapped_doses: \"maybe\": want warn or error") {
+		t.Errorf("a bad value: %v", err)
+	}
+}

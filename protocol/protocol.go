@@ -42,6 +42,44 @@ type Protocol struct {
 	Coverage Coverage `yaml:"coverage" json:"coverage"`
 	// Rules are checked in order by [Protocol.Evaluate].
 	Rules []Rule `yaml:"rules" json:"rules"`
+	// Inputs say what to do when the input files themselves say something
+	// is off (see [InputChecks]).
+	Inputs InputChecks `yaml:"inputs" json:"inputs"`
+}
+
+// InputChecks say what a comparison does when its input files say that
+// something is off, each "warn" (compare, with a warning on every output)
+// or "error" (refuse: could not evaluate, exit status 1).
+type InputChecks struct {
+	// SwappedDoses: the files say the reference is an independent dose and
+	// the evaluated dose the planning system's (see dicomio.SwapEvidence).
+	// Default "warn".
+	SwappedDoses string `yaml:"swapped_doses" json:"swapped_doses"`
+	// DoseTypeMismatch: the doses' DoseType (3004,0004) differ, PHYSICAL
+	// against EFFECTIVE (PS3.3 C.8.8.3: an effective dose is a physical
+	// dose corrected for biological effect by a model, so the two differ by
+	// that model, not by the delivery). Default "error".
+	DoseTypeMismatch string `yaml:"dose_type_mismatch" json:"dose_type_mismatch"`
+}
+
+// Defaults of [InputChecks].
+const (
+	DefaultSwappedDoses     = InputWarn
+	DefaultDoseTypeMismatch = InputError
+	// InputWarn and InputError are the values of the InputChecks fields.
+	InputWarn  = "warn"
+	InputError = "error"
+)
+
+// inputCheck reads an InputChecks value ("" is the default).
+func inputCheck(v, def string) (string, error) {
+	switch w := strings.ToLower(strings.TrimSpace(v)); w {
+	case "":
+		return def, nil
+	case InputWarn, InputError:
+		return w, nil
+	}
+	return "", fmt.Errorf("%q: want warn or error", v)
 }
 
 // Default values of the keys a protocol file may leave out. [Parse] fills
@@ -313,6 +351,20 @@ func (p *Protocol) Validate() error {
 	return errors.Join(p.check(fmt.Sprintf("protocol %q", p.Name), nil)...)
 }
 
+// RefuseSwappedDoses reports whether the protocol refuses a comparison
+// whose files say the doses are the wrong way round (else it warns).
+func (p *Protocol) RefuseSwappedDoses() bool {
+	v, _ := inputCheck(p.Inputs.SwappedDoses, DefaultSwappedDoses)
+	return v == InputError
+}
+
+// RefuseDoseTypeMismatch reports whether the protocol refuses doses of
+// different DoseType (else it warns).
+func (p *Protocol) RefuseDoseTypeMismatch() bool {
+	v, _ := inputCheck(p.Inputs.DoseTypeMismatch, DefaultDoseTypeMismatch)
+	return v != InputWarn
+}
+
 // GammaCriteria returns the gamma criteria of the protocol.
 func (p *Protocol) GammaCriteria() (gamma.Criteria, error) {
 	c, err := p.Criteria.gamma()
@@ -456,6 +508,12 @@ func (p *Protocol) check(file string, line func(path ...any) int) []error {
 			add(fmt.Errorf("%g %% is listed twice", v), "isodose_rois", i)
 		}
 	}
+	if _, err := inputCheck(p.Inputs.SwappedDoses, DefaultSwappedDoses); err != nil {
+		add(err, "inputs", "swapped_doses")
+	}
+	if _, err := inputCheck(p.Inputs.DoseTypeMismatch, DefaultDoseTypeMismatch); err != nil {
+		add(err, "inputs", "dose_type_mismatch")
+	}
 	if len(p.Rules) == 0 {
 		add(errors.New("no rule: a protocol checks at least one rule"), "rules")
 	}
@@ -481,6 +539,8 @@ func (p *Protocol) normalise() {
 			p.Criteria.NormDoseFrom = NormDoseValue
 		}
 	}
+	p.Inputs.SwappedDoses, _ = inputCheck(p.Inputs.SwappedDoses, DefaultSwappedDoses)
+	p.Inputs.DoseTypeMismatch, _ = inputCheck(p.Inputs.DoseTypeMismatch, DefaultDoseTypeMismatch)
 	if len(p.KindRules) == 0 {
 		p.KindRules = nil
 	}

@@ -4,6 +4,7 @@ import (
 	"encoding/csv"
 	"fmt"
 	"io"
+	"slices"
 	"strconv"
 
 	"voxgamma/internal/atomicfile"
@@ -19,12 +20,16 @@ var csvHeader = []string{
 	"ref_d2_gy", "eval_d2_gy", "diff_d2_percent",
 }
 
+// csvStatus is the index of the status column.
+var csvStatus = slices.Index(csvHeader, "status")
+
 // CSVColumns returns the names of the CSV table's columns, in order.
 func CSVColumns() []string { return append([]string(nil), csvHeader...) }
 
 // EncodeCSV writes the CSV table of r to w: a header row ([CSVColumns]), a row
 // named "overall" with the statistics over every evaluated point, then one
-// row per ROI in the result's order. A number that does not exist (null in
+// row per ROI in the result's order, then one row per warning of the result
+// (name "warning", the warning in the status column). A number that does not exist (null in
 // the JSON, or a column that does not apply to the overall row) is an empty
 // cell. Numbers are written in the shortest form that reads back to the same
 // float64, except the percentages of points and volume (pass_rate,
@@ -62,6 +67,15 @@ func EncodeCSV(w io.Writer, r *result.Result) error {
 			csvNum(dvh.Reference.D95Gy), csvNum(dvh.Evaluated.D95Gy), csvNum(dvh.DifferencePercent.D95Gy),
 			csvNum(dvh.Reference.D2Gy), csvNum(dvh.Evaluated.D2Gy), csvNum(dvh.DifferencePercent.D2Gy),
 		})
+	}
+	// Warnings come last, one row each: name "warning", the text in the
+	// status column, every other cell empty. A table read on its own must
+	// not lose what the result warns about (a likely swap of the doses, an
+	// ROI whose contours overlap, ...).
+	for _, w := range r.Warnings {
+		row := make([]string, len(csvHeader))
+		row[0], row[csvStatus] = "warning", w
+		rows = append(rows, row)
 	}
 	if err := cw.WriteAll(rows); err != nil {
 		return fmt.Errorf("report: encoding CSV: %w", err)

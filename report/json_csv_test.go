@@ -7,6 +7,7 @@ import (
 	"os"
 	"path/filepath"
 	"reflect"
+	"slices"
 	"strings"
 	"testing"
 
@@ -99,9 +100,30 @@ func TestCSV(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if len(rows) != len(r.ROIs)+2 {
-		t.Fatalf("%d rows, want header + overall + %d ROIs", len(rows), len(r.ROIs))
+	if len(r.Warnings) == 0 {
+		t.Fatal("the synthetic result has no warning: the warning rows go untested")
 	}
+	if len(rows) != len(r.ROIs)+2+len(r.Warnings) {
+		t.Fatalf("%d rows, want header + overall + %d ROIs + %d warnings", len(rows), len(r.ROIs), len(r.Warnings))
+	}
+	// One row per warning, after the ROIs: name "warning", the text in
+	// the status column, every other cell empty.
+	for i, w := range r.Warnings {
+		row := rows[len(r.ROIs)+2+i]
+		for c, v := range row {
+			want := ""
+			switch c {
+			case 0:
+				want = "warning"
+			case slices.Index(rows[0], "status"):
+				want = w
+			}
+			if v != want {
+				t.Errorf("warning row %d, column %s: %q, want %q", i, rows[0][c], v, want)
+			}
+		}
+	}
+	rows = rows[:len(r.ROIs)+2]
 	if got := strings.Join(CSVColumns(), ","); got != strings.Join(rows[0], ",") {
 		t.Errorf("CSVColumns %s differs from the header written", got)
 	}
