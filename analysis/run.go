@@ -183,6 +183,9 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 				p.warnings = append(p.warnings, fmt.Sprintf("ROI %q: contour %d (CLOSED_PLANAR) not rasterised: %s", r.Name, sk.Contour+1, sk.Reason))
 			}
 		}
+		for _, line := range reg.OverlapSummary() {
+			p.warnings = append(p.warnings, fmt.Sprintf("ROI %q: %s", r.Name, line))
+		}
 		if n := len(reg.Skipped); n > 0 {
 			p.notes = append(p.notes, fmt.Sprintf("ROI %q: %d contours not rasterised (%s)", r.Name, n, skippedKinds(reg.Skipped)))
 		}

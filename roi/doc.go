@@ -18,7 +18,8 @@
 // [Region.NoContours] set. A non-finite coordinate is an error naming the ROI.
 //
 // Contours whose z agree within [PlaneTolerance] form one contour plane. All
-// polygons of a plane are filled together by the even-odd rule (a point is
+// polygons of a plane are filled together by the even-odd rule (but see
+// "Contours that overlap" below) (a point is
 // inside when a ray from it crosses the polygons' edges an odd number of
 // times; the rule of scan-conversion texts such as Foley, van Dam, Feiner and
 // Hughes, Computer Graphics: Principles and Practice, 2nd ed. (1990), on
@@ -31,6 +32,31 @@
 // once), sorted, and the points between the first and second, third and
 // fourth, ... crossing are inside; an active-edge list keeps each row's cost
 // to the edges it meets.
+//
+// # Contours that overlap
+//
+// The even-odd rule gets islands and holes right, but it cancels the same
+// contour written twice (an ROI exported twice over has no volume at all)
+// and cuts the overlap out of two contours that partly overlap. Neither is
+// what a contour means, so before filling, the polygons of a plane are
+// compared pair by pair (those whose bounding boxes overlap) by the area of
+// their intersection, I = (A + B − X)/2 with A and B their even-odd areas
+// and X the even-odd area of both together:
+//
+//   - I = 0: apart (or touching along an edge): nothing to do;
+//   - I = min(A, B) < max(A, B): one lies inside the other, an island and
+//     its hole: the even-odd rule, as before;
+//   - I = A = B: the same contour twice (whatever its vertices, start or
+//     orientation): counted once;
+//   - otherwise they partly overlap: filled as their union.
+//
+// Equal means within a millionth of the larger area. Polygons joined this
+// way (and any joined to them in turn) form a group; each polygon is filled
+// by the even-odd rule, a group is the union of its polygons, and the
+// groups are combined by the even-odd rule, so a hole drawn twice is still
+// one hole. Planes where this happened are listed in [Region.Overlaps] and
+// said in [Region.Notes] ([Region.OverlapSummary]); the caller warns. Planes
+// without such pairs are filled exactly as before.
 //
 // # Contour planes and dose frames (the z rule)
 //

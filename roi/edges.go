@@ -17,10 +17,12 @@ type edge struct {
 	x0     float64 // x at y0
 	dxdy   float64 // change of x per unit y
 	xa, xb float64 // x at y0 and y1 (for breakpoints of the exact area)
+	poly   int32   // the polygon of its plane it belongs to
 }
 
-// appendEdges appends the edges of the closed polygon (xs[m], ys[m]) to es.
-func appendEdges(es []edge, xs, ys []float64) []edge {
+// appendEdges appends the edges of the closed polygon (xs[m], ys[m]), the
+// plane's polygon number poly, to es.
+func appendEdges(es []edge, xs, ys []float64, poly int32) []edge {
 	n := len(xs)
 	for m := 0; m < n; m++ {
 		xa, ya := xs[m], ys[m]
@@ -31,7 +33,7 @@ func appendEdges(es []edge, xs, ys []float64) []edge {
 		if ya > yb {
 			xa, ya, xb, yb = xb, yb, xa, ya
 		}
-		es = append(es, edge{y0: ya, y1: yb, x0: xa, dxdy: (xb - xa) / (yb - ya), xa: xa, xb: xb})
+		es = append(es, edge{y0: ya, y1: yb, x0: xa, dxdy: (xb - xa) / (yb - ya), xa: xa, xb: xb, poly: poly})
 	}
 	return es
 }
@@ -40,29 +42,56 @@ func appendEdges(es []edge, xs, ys []float64) []edge {
 // in non-decreasing y, keeping an active edge list so that each query costs
 // the number of edges that span y rather than all edges. Its buffers are
 // reused between queries: no allocation once warm.
+//
+// With groups (see reset) the answer is the boundaries of the plane's
+// region as grouped polygons define it: each polygon by the even-odd rule,
+// the polygons of one group united, the groups combined by the even-odd
+// rule (see the package documentation, "Contours that overlap").
 type sweep struct {
 	edges  []edge // sorted by y0
 	next   int
 	active []int32
 	xs     []float64
+
+	group  []int32 // group of each polygon; nil: one even-odd fill
+	ev     []crossing
+	parity []bool  // per polygon: inside it
+	count  []int32 // per group: polygons inside
 }
 
-// reset starts a new pass over edges, which must be sorted by y0.
-func (s *sweep) reset(edges []edge) {
+// crossing is where a row crosses an edge of polygon poly.
+type crossing struct {
+	x    float64
+	poly int32
+}
+
+// reset starts a new pass over edges, which must be sorted by y0. groups
+// gives each polygon's group (nil: every polygon its own, even-odd).
+func (s *sweep) reset(edges []edge, groups []int32) {
 	s.edges = edges
 	s.next = 0
 	s.active = s.active[:0]
+	s.group = groups
+	if groups != nil {
+		s.parity = slices.Grow(s.parity[:0], len(groups))[:len(groups)]
+		clear(s.parity)
+		s.count = slices.Grow(s.count[:0], len(groups))[:len(groups)]
+		clear(s.count)
+	}
 }
 
-// at returns the sorted crossings of the row at y with the edges. y must not
-// decrease between calls after a reset. The returned slice is valid until the
-// next call.
+// at returns the sorted crossings of the row at y with the edges, or with
+// groups the sorted boundaries of the region; either way the row is inside
+// between the first and second value, the third and fourth, and so on. y
+// must not decrease between calls after a reset. The returned slice is
+// valid until the next call.
 func (s *sweep) at(y float64) []float64 {
 	for s.next < len(s.edges) && s.edges[s.next].y0 <= y {
 		s.active = append(s.active, int32(s.next))
 		s.next++
 	}
 	xs := s.xs[:0]
+	ev := s.ev[:0]
 	k := 0
 	for _, ei := range s.active {
 		e := &s.edges[ei]
@@ -72,12 +101,66 @@ func (s *sweep) at(y float64) []float64 {
 		s.active[k] = ei
 		k++
 		if e.y0 <= y {
-			xs = append(xs, e.x0+(y-e.y0)*e.dxdy)
+			x := e.x0 + (y-e.y0)*e.dxdy
+			if s.group == nil {
+				xs = append(xs, x)
+			} else {
+				ev = append(ev, crossing{x, e.poly})
+			}
 		}
 	}
 	s.active = s.active[:k]
-	slices.Sort(xs)
-	s.xs = xs
+	if s.group == nil {
+		slices.Sort(xs)
+		s.xs = xs
+		return xs
+	}
+	slices.SortFunc(ev, func(a, b crossing) int {
+		switch {
+		case a.x < b.x:
+			return -1
+		case a.x > b.x:
+			return 1
+		}
+		return 0
+	})
+	// Walk the crossings left to right: a polygon's parity flips at each
+	// of its crossings, a group is inside while any of its polygons is,
+	// the region while an odd number of groups are. Crossings at one x are
+	// taken together, so a boundary where one polygon of a group ends as
+	// another begins is no boundary.
+	odd, inside := false, false
+	for i := 0; i < len(ev); {
+		x := ev[i].x
+		for ; i < len(ev) && ev[i].x == x; i++ {
+			p := ev[i].poly
+			g := s.group[p]
+			s.parity[p] = !s.parity[p]
+			if s.parity[p] {
+				s.count[g]++
+				if s.count[g] == 1 {
+					odd = !odd
+				}
+			} else {
+				s.count[g]--
+				if s.count[g] == 0 {
+					odd = !odd
+				}
+			}
+		}
+		if odd != inside {
+			xs = append(xs, x)
+			inside = odd
+		}
+	}
+	// A closed polygon crosses a row an even number of times (half-open
+	// edges): every parity is back to outside. Clear anyway, so that a
+	// rounding accident in one row cannot leak into the next.
+	for _, c := range ev {
+		s.parity[c.poly] = false
+		s.count[s.group[c.poly]] = 0
+	}
+	s.ev, s.xs = ev, xs
 	return xs
 }
 
@@ -95,7 +178,8 @@ func sortEdges(es []edge) {
 }
 
 // evenOddArea returns the area of the even-odd interior of the edges (all
-// polygons of one plane together) within the rectangle [x0, x1] × [y0, y1]
+// polygons of one plane together; with groups, of the region they define,
+// see sweep) within the rectangle [x0, x1] × [y0, y1]
 // (infinite bounds allowed). The inside length of a row is piecewise linear
 // in y, with breaks only at vertex rows, where an edge crosses x0 or x1,
 // where the rectangle starts or ends, and where two edges cross; between
@@ -103,7 +187,7 @@ func sortEdges(es []edge) {
 // found, so the area is exact (to rounding) for polygons whose edges do not
 // cross each other; where edges cross, the midpoint rule approximates. ys is
 // scratch space, returned for reuse.
-func evenOddArea(es []edge, x0, x1, y0, y1 float64, sw *sweep, ys []float64) (float64, []float64) {
+func evenOddArea(es []edge, groups []int32, x0, x1, y0, y1 float64, sw *sweep, ys []float64) (float64, []float64) {
 	ys = ys[:0]
 	for i := range es {
 		e := &es[i]
@@ -126,7 +210,7 @@ func evenOddArea(es []edge, x0, x1, y0, y1 float64, sw *sweep, ys []float64) (fl
 		ys = append(ys, y1)
 	}
 	slices.Sort(ys)
-	sw.reset(es)
+	sw.reset(es, groups)
 	var area float64
 	for m := 1; m < len(ys); m++ {
 		ya, yb := math.Max(ys[m-1], y0), math.Min(ys[m], y1)

@@ -6,6 +6,8 @@ import (
 	"math"
 	"slices"
 	"sort"
+	"strconv"
+	"strings"
 
 	"voxgamma/structure"
 	"voxgamma/volume"
@@ -90,6 +92,36 @@ type SkippedContour struct {
 	Reason string
 }
 
+// OverlapKind says how two contours of one plane cover each other.
+type OverlapKind int
+
+// The kinds of overlap.
+const (
+	// Duplicate: the same contour twice (the same region, whatever the
+	// vertices or the orientation). By the even-odd rule the two cancel.
+	Duplicate OverlapKind = iota
+	// Partial: the contours overlap and neither lies inside the other. By
+	// the even-odd rule their overlap would be cut out.
+	Partial
+)
+
+func (k OverlapKind) String() string {
+	if k == Duplicate {
+		return "the same contour twice"
+	}
+	return "contours overlapping without one inside the other"
+}
+
+// ContourOverlap is a pair of contours of one plane that overlap.
+type ContourOverlap struct {
+	// Z is the plane's patient z (mm).
+	Z float64
+	// Kind says how they overlap.
+	Kind OverlapKind
+	// A and B are the contours' positions in the ROI's Contours.
+	A, B int
+}
+
 // Region is an ROI (or a derived region) on a particular dose grid: the
 // voxels whose centre is inside and the partial-volume fraction of every
 // voxel it touches. Index lists run in the order of the grid's Data.
@@ -123,6 +155,11 @@ type Region struct {
 	// Skipped lists the contours not rasterised (POINT, OPEN_PLANAR,
 	// non-axial, fewer than three points).
 	Skipped []SkippedContour
+	// Overlaps lists the contour planes where contours cover each other
+	// without one lying inside the other: the same contour twice, or two
+	// contours that partly overlap (see the package documentation,
+	// "Contours that overlap").
+	Overlaps []ContourOverlap
 	// ContourCC is the volume (cm³) the rasterised contours enclose, each
 	// plane's even-odd area times the thickness of its slab (see the package
 	// documentation), and OutsideCC the part of it beyond the dose grid's
@@ -212,6 +249,7 @@ func (r *Region) Notes() []string {
 		}
 		out = append(out, fmt.Sprintf("%d %s contour(s) not rasterised (%s)", byType[t], name, reason))
 	}
+	out = append(out, r.OverlapSummary()...)
 	if r.OutsideCC > 0 && r.ContourCC > 0 {
 		out = append(out, fmt.Sprintf("%.1f %% of the contoured volume (%.3g of %.3g cm³) lies outside the dose grid and is not evaluated",
 			100*r.OutsideFraction(), r.OutsideCC, r.ContourCC))
@@ -225,6 +263,47 @@ func (r *Region) Notes() []string {
 	}
 	return out
 }
+
+// OverlapSummary says, one line per kind, on which planes contours of the
+// region overlap and how they were filled: "the same contour twice on 3
+// planes (z = -2, 0, 2 mm): counted once", "contours overlapping without
+// one inside the other on 1 plane (z = 4 mm): filled as their union (the
+// even-odd rule would cut their overlap out)". nil when none do.
+func (r *Region) OverlapSummary() []string {
+	var out []string
+	for _, k := range []OverlapKind{Duplicate, Partial} {
+		var zs []float64
+		for _, o := range r.Overlaps {
+			if o.Kind == k && (len(zs) == 0 || zs[len(zs)-1] != o.Z) {
+				zs = append(zs, o.Z)
+			}
+		}
+		if len(zs) == 0 {
+			continue
+		}
+		list := make([]string, 0, min(len(zs), maxListedPlanes)+1)
+		for i, z := range zs {
+			if i == maxListedPlanes {
+				list = append(list, "…")
+				break
+			}
+			list = append(list, strconv.FormatFloat(z, 'g', 6, 64))
+		}
+		planes := "planes"
+		if len(zs) == 1 {
+			planes = "plane"
+		}
+		how := "counted once"
+		if k == Partial {
+			how = "filled as their union (the even-odd rule would cut their overlap out)"
+		}
+		out = append(out, fmt.Sprintf("%s on %d %s (z = %s mm): %s", k, len(zs), planes, strings.Join(list, ", "), how))
+	}
+	return out
+}
+
+// maxListedPlanes bounds the planes OverlapSummary lists by z.
+const maxListedPlanes = 10
 
 // Rasteriser turns ROIs into Regions on one dose grid. It is not changed
 // by rasterising, so one Rasteriser may serve several goroutines at once.
@@ -286,6 +365,7 @@ func (z *Rasteriser) Set(s *structure.Set, rules []Rule) ([]*Region, error) {
 type plane struct {
 	z                      float64
 	edges                  []edge
+	groups                 []int32 // group of each polygon when some overlap (see sweep); nil otherwise
 	minX, maxX, minY, maxY float64
 	lo, hi                 float64 // the slab [lo, hi) of patient z the plane stands for
 	i0, i1, j0, j1         int     // voxel index ranges it can touch
@@ -364,9 +444,11 @@ func (z *Rasteriser) planes(r *structure.ROI, reg *Region) ([]plane, error) {
 	px, py := z.ax[0].patient, z.ax[1].patient
 	var planes []plane
 	var xs, ys []float64
+	var ov overlapFinder
 	for q := 0; q < len(cs); {
 		pl := plane{z: cs[q].z, minX: math.Inf(1), maxX: math.Inf(-1), minY: math.Inf(1), maxY: math.Inf(-1)}
 		e := q
+		ov.reset()
 		for ; e < len(cs) && cs[e].z-cs[q].z <= PlaneTolerance; e++ {
 			pts := r.Contours[cs[e].c].Points
 			xs, ys = xs[:0], ys[:0]
@@ -376,9 +458,17 @@ func (z *Rasteriser) planes(r *structure.ROI, reg *Region) ([]plane, error) {
 				pl.minX, pl.maxX = math.Min(pl.minX, p[px]), math.Max(pl.maxX, p[px])
 				pl.minY, pl.maxY = math.Min(pl.minY, p[py]), math.Max(pl.maxY, p[py])
 			}
-			pl.edges = appendEdges(pl.edges, xs, ys)
+			pl.edges = appendEdges(pl.edges, xs, ys, int32(e-q))
+			ov.add(cs[e].c, xs, ys)
 		}
 		sortEdges(pl.edges)
+		if found := ov.find(); len(found) > 0 {
+			pl.groups = ov.groups
+			for _, o := range found {
+				o.Z = pl.z
+				reg.Overlaps = append(reg.Overlaps, o)
+			}
+		}
 		var j0, j1 int
 		var si0, si1 int
 		pl.i0, pl.i1, si0, si1 = z.ax[0].span(pl.minX, pl.maxX)
@@ -477,8 +567,8 @@ func (z *Rasteriser) measure(planes []plane, reg *Region) {
 	for p := range planes {
 		pl := &planes[p]
 		var a, ain float64
-		a, ys = evenOddArea(pl.edges, math.Inf(-1), math.Inf(1), math.Inf(-1), math.Inf(1), &sw, ys)
-		ain, ys = evenOddArea(pl.edges, ax.extLo, ax.extHi, ay.extLo, ay.extHi, &sw, ys)
+		a, ys = evenOddArea(pl.edges, pl.groups, math.Inf(-1), math.Inf(1), math.Inf(-1), math.Inf(1), &sw, ys)
+		ain, ys = evenOddArea(pl.edges, pl.groups, ax.extLo, ax.extHi, ay.extLo, ay.extHi, &sw, ys)
 		total += a * (pl.hi - pl.lo)
 		if t := math.Min(pl.hi, az.extHi) - math.Max(pl.lo, az.extLo); t > 0 {
 			inside += ain * t
@@ -517,7 +607,7 @@ func (z *Rasteriser) rasterPlane(pl *plane, pr *planeRaster, sw *sweep) {
 	}
 	ax, ay := &z.ax[0], &z.ax[1]
 	// Sub-sample rows: count the sub-samples between each pair of crossings.
-	sw.reset(pl.edges)
+	sw.reset(pl.edges, pl.groups)
 	for s := sort.SearchFloat64s(ay.subPos, pl.minY); s < len(ay.subPos) && ay.subPos[s] <= pl.maxY; s++ {
 		row := (int(ay.subVox[s]) - pr.j0) * pr.ni
 		xs := sw.at(ay.subPos[s])
@@ -538,7 +628,7 @@ func (z *Rasteriser) rasterPlane(pl *plane, pr *planeRaster, sw *sweep) {
 	if c1 < c0 {
 		c1 = c0
 	}
-	sw.reset(pl.edges)
+	sw.reset(pl.edges, pl.groups)
 	for s := sort.SearchFloat64s(ay.cenPos, pl.minY); s < len(ay.cenPos) && ay.cenPos[s] <= pl.maxY; s++ {
 		row := (int(ay.cenVox[s]) - pr.j0) * pr.ni
 		xs := sw.at(ay.cenPos[s])

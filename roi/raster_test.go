@@ -523,3 +523,94 @@ func TestVerticesOnRows(t *testing.T) {
 		t.Errorf("diamond, one sub-sample per voxel: volume %g mm³, want 150", v)
 	}
 }
+
+// Contours that cover each other (issue 11, item 12). By the even-odd rule
+// alone, the same contour twice cancels (an ROI drawn twice had volume 0,
+// "smaller than a voxel", and no word), and two overlapping contours give
+// their symmetric difference. Contours that overlap without one inside the
+// other are now filled as their union (the same contour twice counts once)
+// and recorded in Region.Overlaps; nested contours stay holes and islands.
+// Truth: areas of axis-aligned squares on whole mm, on the 1 mm unit grid
+// whose voxel centres lie on half mm, so every count is exact: |A ∪ B| =
+// |A| + |B| − |A ∩ B|.
+func TestContoursThatCancel(t *testing.T) {
+	zs := []float64{0, 1, 2, 3}
+	g := unitGrid(t, 40, 40, zs)
+	withExtraVertex := func(z float64) structure.Contour {
+		// [5, 35]² with a vertex in the middle of each side.
+		return structure.Contour{Type: structure.ClosedPlanar, Points: [][3]float64{
+			{5, 5, z}, {20, 5, z}, {35, 5, z}, {35, 20, z}, {35, 35, z}, {20, 35, z}, {5, 35, z}, {5, 20, z},
+		}}
+	}
+	rotated := func(c structure.Contour) structure.Contour {
+		return structure.Contour{Type: c.Type, Points: append(append([][3]float64{}, c.Points[2:]...), c.Points[:2]...)}
+	}
+	for _, tc := range []struct {
+		name     string
+		contours func(z float64) []structure.Contour
+		want     int // centre voxels (and mm²) per frame
+		kinds    []OverlapKind
+	}{
+		{"same_contour_twice", func(z float64) []structure.Contour {
+			return []structure.Contour{square(5, 5, 35, 35, z), square(5, 5, 35, 35, z)}
+		}, 900, []OverlapKind{Duplicate}},
+		{"twice_reversed_and_rotated", func(z float64) []structure.Contour {
+			return []structure.Contour{square(5, 5, 35, 35, z), rotated(reversed(square(5, 5, 35, 35, z)))}
+		}, 900, []OverlapKind{Duplicate}},
+		{"twice_other_vertices", func(z float64) []structure.Contour {
+			return []structure.Contour{square(5, 5, 35, 35, z), withExtraVertex(z)}
+		}, 900, []OverlapKind{Duplicate}},
+		{"three_times", func(z float64) []structure.Contour {
+			return []structure.Contour{square(5, 5, 35, 35, z), square(5, 5, 35, 35, z), square(5, 5, 35, 35, z)}
+		}, 900, []OverlapKind{Duplicate, Duplicate, Duplicate}},
+		// 20² + 20² − 10² = 700 (even-odd: 800 − 2·100 = 600).
+		{"partial_overlap", func(z float64) []structure.Contour {
+			return []structure.Contour{square(5, 5, 25, 25, z), square(15, 15, 35, 35, z)}
+		}, 700, []OverlapKind{Partial}},
+		// A hole drawn twice is one hole: 30² − 10² = 800.
+		{"hole_twice", func(z float64) []structure.Contour {
+			return []structure.Contour{square(5, 5, 35, 35, z), square(15, 15, 25, 25, z), square(15, 15, 25, 25, z)}
+		}, 800, []OverlapKind{Duplicate}},
+		// Two overlapping holes in an outline: 40² − (15² + 15² − 10²) = 1250.
+		{"overlapping_holes", func(z float64) []structure.Contour {
+			return []structure.Contour{square(0, 0, 40, 40, z), square(5, 5, 20, 20, z), square(10, 10, 25, 25, z)}
+		}, 1250, []OverlapKind{Partial}},
+		// Nested and disjoint contours are not overlaps: even-odd as before.
+		{"hole", func(z float64) []structure.Contour {
+			return []structure.Contour{square(5, 5, 35, 35, z), square(15, 15, 25, 25, z)}
+		}, 800, nil},
+		{"islands_touching", func(z float64) []structure.Contour {
+			return []structure.Contour{square(5, 5, 20, 35, z), square(20, 5, 35, 35, z)}
+		}, 900, nil},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			r := onPlanes(zs, tc.contours)
+			reg := mustRasterise(t, g, &r, Options{})
+			for k := range zs {
+				if n := frameCount(g, reg, k); n != tc.want {
+					t.Errorf("frame %d: %d centre voxels, want %d", k, n, tc.want)
+				}
+			}
+			// Every edge on whole mm: fractions 0 or 1, volume exact.
+			if v := reg.VolumeCC() * 1000; math.Abs(v-float64(tc.want*len(zs))) > 1e-6 {
+				t.Errorf("volume %g mm³, want %d", v, tc.want*len(zs))
+			}
+			if math.Abs(reg.ContourCC*1000-float64(tc.want*len(zs))) > 1e-6 {
+				t.Errorf("contoured volume %g mm³, want %d", reg.ContourCC*1000, tc.want*len(zs))
+			}
+			var kinds []OverlapKind
+			for _, o := range reg.Overlaps {
+				if o.Z == zs[0] {
+					kinds = append(kinds, o.Kind)
+				}
+			}
+			if !slices.Equal(kinds, tc.kinds) || len(reg.Overlaps) != len(tc.kinds)*len(zs) {
+				t.Errorf("overlaps %+v, want %v on each of the %d planes", reg.Overlaps, tc.kinds, len(zs))
+			}
+			summary := strings.Join(reg.Notes(), "\n")
+			if tc.kinds != nil && !strings.Contains(summary, tc.kinds[0].String()+" on 4 planes (z = 0, 1, 2, 3 mm)") {
+				t.Errorf("notes do not name the planes: %q", summary)
+			}
+		})
+	}
+}
