@@ -48,6 +48,19 @@
 //     isodose ROI is added for each.
 //   - rules: at least one rule, each with the fields level, subject,
 //     metric, op, limit and when_missing (below).
+//   - inputs: what to do when the input files say something is off, each
+//     "warn" (compare, with a warning on every output) or "error" (refuse:
+//     the comparison could not be evaluated): swapped_doses (default warn),
+//     when the reference reads as an independent dose and the evaluated
+//     dose as the planning system's (dicomio.SwapEvidence: both files'
+//     words, or a plan reference only the evaluated dose has), and
+//     dose_type_mismatch (default error), when one dose is PHYSICAL and the
+//     other EFFECTIVE (PS3.3 C.8.8.3: an effective dose is a physical dose
+//     corrected for biological effect by a model). The defaults are this
+//     project's choice: a swap read from words is only likely, a physical
+//     and an effective dose certainly differ. [Protocol.RefuseSwappedDoses]
+//     and [Protocol.RefuseDoseTypeMismatch] read them; a parsed protocol
+//     and a preset have them filled in.
 //
 // Every key left out of a file takes the default documented here, never
 // Go's zero value (a key written with no value, or ~, counts as left out);
