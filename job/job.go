@@ -79,6 +79,9 @@ type Overrides struct {
 	Version string
 }
 
+// MaxIsodoseROIs bounds the isodose ROIs of one comparison.
+const MaxIsodoseROIs = 20
+
 // Settings resolves a protocol and overrides into analysis settings. Every
 // error names the option or the protocol at fault.
 func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
@@ -170,6 +173,15 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 		if !slices.Equal(iso, p.Isodose) {
 			overrides = append(overrides, fmt.Sprintf("isodose ROIs %s from --isodose (protocol: %s)", percents(iso), percents(p.Isodose)))
 		}
+	}
+	if len(iso) > MaxIsodoseROIs {
+		what := "protocol " + p.Name + ": isodose_rois"
+		if ov.Isodose != nil {
+			what = "--isodose"
+		}
+		// Each level is a region as large as the reference grid: a
+		// thousand of them would exhaust the memory.
+		return s, fmt.Errorf("%s: %d levels, at most %d", what, len(iso), MaxIsodoseROIs)
 	}
 	for _, v := range iso {
 		if !(v > 0 && v <= 100) {

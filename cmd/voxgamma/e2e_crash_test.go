@@ -57,6 +57,9 @@ func TestCrashCodesBinary(t *testing.T) {
 		// ΔD = 3 % of 1e-300 Gy: w² overflowed, Inf·0 gave NaN, and NaN
 		// an index of −2^63 in the gamma search.
 		{"norm_dose_1e-300", compareArgs(f.ref, f.eval, f.rs, "--norm-dose", "1e-300"), exitError, nil},
+		// Each isodose level is a region the size of the reference grid: a
+		// thousand levels on a clinical grid exhaust the memory.
+		{"isodose_1000_levels", compareArgs(f.ref, f.eval, f.rs, "--isodose", isodoseLevels(1000)), exitError, []string{"--isodose: 1000 levels, at most 20"}},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			out := t.TempDir()
@@ -111,6 +114,15 @@ func TestCrashCodesBinary(t *testing.T) {
 			t.Errorf("no summary: %v", err)
 		}
 	})
+}
+
+// isodoseLevels returns "0.1,0.2,…" with n levels.
+func isodoseLevels(n int) string {
+	l := make([]string, n)
+	for i := range l {
+		l[i] = fmt.Sprintf("%g", float64(i+1)/10)
+	}
+	return strings.Join(l, ",")
 }
 
 // hookPanic makes the program panic at the site named, on the first time it
