@@ -140,7 +140,7 @@ rules:
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			out := filepath.Join(t.TempDir(), "r.json")
-			r := vgRun(t, "compare", "--reference", tc.ref, "--evaluated", tc.eval, "--json", out, "-q")
+			r := vgRun(t, "compare", "--reference", tc.ref, "--evaluated", tc.eval, "--json", out, "--no-structures", "-q")
 			if r.code != exitPass {
 				t.Fatalf("exit %d, want 0\n%s", r.code, r)
 			}
@@ -159,7 +159,7 @@ rules:
 		identity := f.file(t, "ref_identity.dcm", insertText(t, f.refBytes, tgRescaleSlope, "DS", "1"))
 		for _, p := range []string{twice, identity} {
 			out := filepath.Join(t.TempDir(), "r.json")
-			vgExit(t, exitPass, "compare", "--reference", p, "--evaluated", f.eval, "--json", out, "-q")
+			vgExit(t, exitPass, "compare", "--reference", p, "--evaluated", f.eval, "--json", out, "--no-structures", "-q")
 			res := readResultJSON(t, out)
 			notes := strings.Join(res.Notes, "\n")
 			if !strings.Contains(notes, "applied once") && !strings.Contains(notes, "an identity, no effect") {

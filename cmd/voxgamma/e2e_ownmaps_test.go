@@ -152,7 +152,7 @@ func TestOwnMapsValid(t *testing.T) {
 		t.Run(tc.name, func(t *testing.T) {
 			dir := t.TempDir()
 			gm, dm := filepath.Join(dir, "gamma.dcm"), filepath.Join(dir, "difference.dcm")
-			vgExit(t, exitPass, "compare", "--reference", tc.ref, "--evaluated", f.eval, "--gamma-map", gm, "--difference-map", dm, "-q")
+			vgExit(t, exitPass, "compare", "--reference", tc.ref, "--evaluated", f.eval, "--gamma-map", gm, "--difference-map", dm, "--no-structures", "-q")
 			for _, p := range []string{gm, dm} {
 				out, _ := exec.Command(dciodvfy, p).CombinedOutput()
 				for _, line := range strings.Split(string(out), "\n") {
@@ -192,7 +192,7 @@ func TestOwnMapsWatched(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	vgExit(t, exitPass, "compare", "--reference", cf.Reference, "--evaluated", cf.Evaluated, "--gamma-map", filepath.Join(cf.Dir, "eval_gamma.dcm"), "-q")
+	vgExit(t, exitPass, "compare", "--reference", cf.Reference, "--evaluated", cf.Evaluated, "--gamma-map", filepath.Join(cf.Dir, "eval_gamma.dcm"), "--no-structures", "-q")
 	out := t.TempDir()
 	r := vgRun(t, "watch", watched, "--out", out, "--once", "--settle", "1ms", "--poll", "1ms")
 	if r.code != exitPass {

@@ -57,7 +57,7 @@ func TestSwappedInputs(t *testing.T) {
 
 	t.Run("right_way_round", func(t *testing.T) {
 		out := filepath.Join(t.TempDir(), "r.json")
-		r := vgExit(t, exitPass, "compare", "--reference", tps, "--evaluated", mc, "--json", out)
+		r := vgExit(t, exitPass, "compare", "--reference", tps, "--evaluated", mc, "--json", out, "--no-structures")
 		if strings.Contains(r.stderr, "swapped") || strings.Contains(strings.Join(readResultJSON(t, out).Warnings, "\n"), "swapped") {
 			t.Errorf("a warning of swapped doses on doses the right way round\n%s", r)
 		}
@@ -65,7 +65,7 @@ func TestSwappedInputs(t *testing.T) {
 	t.Run("swapped_warns_on_every_output", func(t *testing.T) {
 		dir := t.TempDir()
 		js, cs, rep := filepath.Join(dir, "r.json"), filepath.Join(dir, "r.csv"), filepath.Join(dir, "r.html")
-		r := vgExit(t, exitPass, "compare", "--reference", mcRef, "--evaluated", tpsEval, "--json", js, "--csv", cs, "--report", rep)
+		r := vgExit(t, exitPass, "compare", "--reference", mcRef, "--evaluated", tpsEval, "--json", js, "--csv", cs, "--report", rep, "--no-structures")
 		evidence := []string{"look swapped", "reference (small.dcm)", `SeriesDescription "Monte Carlo recalculation, Gy"`,
 			"evaluated dose (large.dcm)", `SeriesDescription "planning system dose, Gy"`}
 		var warning string
@@ -126,7 +126,7 @@ rules:
 		}
 		_, silent := swapCase(t, ids, "dose, Gy", "dose, Gy")
 		out := filepath.Join(t.TempDir(), "r.json")
-		if r := vgRun(t, "compare", "--reference", ref, "--evaluated", silent, "--json", out, "-q"); r.code != exitPass {
+		if r := vgRun(t, "compare", "--reference", ref, "--evaluated", silent, "--json", out, "--no-structures", "-q"); r.code != exitPass {
 			t.Fatalf("exit %d\n%s", r.code, r)
 		}
 		w := strings.Join(readResultJSON(t, out).Warnings, "\n")
@@ -143,7 +143,7 @@ rules:
 		t.Run(tc.name, func(t *testing.T) {
 			ref, eval := swapCase(t, ids, tc.ref, tc.eval)
 			out := filepath.Join(t.TempDir(), "r.json")
-			vgExit(t, exitPass, "compare", "--reference", ref, "--evaluated", eval, "--json", out, "-q")
+			vgExit(t, exitPass, "compare", "--reference", ref, "--evaluated", eval, "--json", out, "--no-structures", "-q")
 			if w := strings.Join(readResultJSON(t, out).Warnings, "\n"); strings.Contains(w, "swapped") {
 				t.Errorf("false alarm: %s", w)
 			}
