@@ -75,6 +75,10 @@ type Settings struct {
 	RefuseSwappedDoses, AllowDoseTypeMismatch bool
 }
 
+// SwapWarning begins the warning of doses that look swapped (see
+// dicomio.SwapEvidence), which the console shows even when quiet.
+const SwapWarning = "the reference and evaluated doses look swapped"
+
 // NormDoseBand is the band, as a multiple of the reference maximum, that a
 // global normalisation dose given by the user or the protocol must lie in
 // unless accepted explicitly. This tool's choice: a plan's maximum normally
@@ -136,7 +140,7 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 		p.warnings = append(p.warnings, m+"; compared as the protocol allows (inputs: dose_type_mismatch: warn)")
 	}
 	if e := l.SwapEvidence; e != "" {
-		msg := "the reference and evaluated doses look swapped: " + e + ". voxgamma takes --reference as the planning system's dose and --evaluated as the independent one, and Γ is not symmetric: swapped, failing points can pass"
+		msg := SwapWarning + ": " + e + ". voxgamma takes --reference as the planning system's dose and --evaluated as the independent one, and Γ is not symmetric: swapped, failing points can pass"
 		if s.RefuseSwappedDoses {
 			return nil, badInput("%s; refused by the protocol (inputs: swapped_doses: error)", msg)
 		}

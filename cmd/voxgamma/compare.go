@@ -266,6 +266,14 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 	}
 	if !g.quiet {
 		printSummary(g, out.Result)
+	} else {
+		// Quiet keeps the one warning that says the result may answer
+		// the wrong question.
+		for _, w := range out.Result.Warnings {
+			if strings.HasPrefix(w, analysis.SwapWarning) {
+				fmt.Fprintf(g.stderr, "warning: %s\n", w)
+			}
+		}
 	}
 	return out, nil
 }

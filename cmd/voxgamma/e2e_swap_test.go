@@ -103,6 +103,13 @@ func TestSwappedInputs(t *testing.T) {
 			t.Errorf("report lacks the warning")
 		}
 	})
+	t.Run("quiet_still_warns", func(t *testing.T) {
+		r := vgExit(t, exitPass, "compare", "--reference", mcRef, "--evaluated", tpsEval, "--no-structures", "-q")
+		lines := strings.Split(strings.TrimRight(r.stderr, "\n"), "\n")
+		if len(lines) != 2 || !strings.HasPrefix(lines[0], "warning: the reference and evaluated doses look swapped") || !strings.HasPrefix(lines[1], "voxgamma: verdict pass") {
+			t.Errorf("quiet: stderr %q, want the swap warning then the outcome line", r.stderr)
+		}
+	})
 	t.Run("protocol_makes_it_an_error", func(t *testing.T) {
 		proto := filepath.Join(t.TempDir(), "strict.yaml")
 		if err := os.WriteFile(proto, []byte(`name: strict-inputs
