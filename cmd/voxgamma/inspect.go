@@ -66,7 +66,11 @@ func inspectPath(g *globals, path string, rules []roi.Rule) error {
 		}
 		fmt.Fprintf(w, "%s: folder with %d RT Dose and %d RT Structure Set files\n", path, len(folder.Doses), len(folder.StructureSets))
 		for _, d := range folder.Doses {
-			fmt.Fprintf(w, "  dose %s: %s %s, %d×%d×%d, frame of reference %s\n", d.Path, d.Info.DoseSummationType, d.Info.DoseUnits,
+			kind := "dose"
+			if d.Info.DisagreementMap() != "" {
+				kind = "map (DoseType ERROR, never taken as a dose)"
+			}
+			fmt.Fprintf(w, "  %s %s: %s %s, %d×%d×%d, frame of reference %s\n", kind, d.Path, d.Info.DoseSummationType, d.Info.DoseUnits,
 				d.Info.Columns, d.Info.Rows, d.Info.NumberOfFrames, d.Info.FrameOfReferenceUID)
 		}
 		for _, s := range folder.StructureSets {
