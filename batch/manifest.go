@@ -34,6 +34,8 @@ type Case struct {
 	// Protocol is a protocol file (absolute after ReadManifest) or a preset
 	// name; empty means the batch's default protocol.
 	Protocol string `json:"protocol"`
+	// Labels are the case's grouping labels for the results store.
+	Labels
 	// Index is the case's 0-based position in the manifest (the shard rule
 	// counts it); Row names the row in messages: "row 3 (line 4)" for CSV,
 	// "row 3" for JSON.
@@ -44,6 +46,43 @@ type Case struct {
 // NoStructuresWord in a manifest's structures column runs the case
 // deliberately without a structure set.
 const NoStructuresWord = "none"
+
+// Labels are a case's grouping labels, recorded with its result in a
+// results store (see package record) and used to group plans for
+// process-based limits: the manifest's optional columns (or JSON keys)
+// machine, technique, site, planning_system and recalculation_engine.
+type Labels struct {
+	Machine             string `json:"machine,omitempty"`
+	Technique           string `json:"technique,omitempty"`
+	Site                string `json:"site,omitempty"`
+	PlanningSystem      string `json:"planning_system,omitempty"`
+	RecalculationEngine string `json:"recalculation_engine,omitempty"`
+}
+
+// LabelColumns are the optional label columns of a manifest (see [Labels]).
+// A header may write them with spaces or hyphens ("planning system").
+var LabelColumns = []string{"machine", "technique", "site", "planning_system", "recalculation_engine"}
+
+func (l *Labels) column(name string) *string {
+	switch name {
+	case "machine":
+		return &l.Machine
+	case "technique":
+		return &l.Technique
+	case "site":
+		return &l.Site
+	case "planning_system":
+		return &l.PlanningSystem
+	case "recalculation_engine":
+		return &l.RecalculationEngine
+	}
+	return nil
+}
+
+// knownColumns lists every column a manifest may have.
+func knownColumns() string {
+	return strings.Join(append(append([]string{}, ManifestColumns...), LabelColumns...), ",")
+}
 
 // ManifestColumns are the columns of a CSV manifest, in the documented
 // order. id, reference and evaluated are required; structures and protocol
@@ -73,8 +112,8 @@ func ValidID(id string) error {
 
 // ReadManifest reads a manifest file: CSV with the header
 // id,reference,evaluated,structures,protocol (columns in any order;
-// structures and protocol optional), or a JSON list of objects with those
-// keys (chosen by the extension .json, or by content starting with '[').
+// structures and protocol optional; the label columns of [LabelColumns]
+// may follow), or a JSON list of objects with those keys (chosen by the extension .json, or by content starting with '[').
 // Relative paths are made absolute against the manifest's folder. It checks
 // that every row has an id, a reference and an evaluated dose, that ids are
 // filesystem-safe and unique (also ignoring case, for case-insensitive
@@ -182,13 +221,14 @@ func parseCSV(data []byte, name string) ([]Case, error) {
 	hline, _ := r.FieldPos(0)
 	col := map[string]int{}
 	for i, h := range header {
-		h = strings.ToLower(strings.TrimSpace(h))
+		h = strings.NewReplacer(" ", "_", "-", "_").Replace(strings.ToLower(strings.TrimSpace(h)))
 		known := false
 		for _, k := range ManifestColumns {
 			known = known || h == k
 		}
+		known = known || (&Labels{}).column(h) != nil
 		if !known {
-			return nil, fmt.Errorf("manifest %s, line %d (header): unknown column %q; want %s", name, hline, header[i], strings.Join(ManifestColumns, ","))
+			return nil, fmt.Errorf("manifest %s, line %d (header): unknown column %q; want %s", name, hline, header[i], knownColumns())
 		}
 		if _, dup := col[h]; dup {
 			return nil, fmt.Errorf("manifest %s, line %d (header): column %q named twice", name, hline, h)
@@ -220,8 +260,12 @@ func parseCSV(data []byte, name string) ([]Case, error) {
 			}
 			return ""
 		}
-		cases = append(cases, Case{ID: get("id"), Reference: get("reference"), Evaluated: get("evaluated"),
-			Structures: get("structures"), Protocol: get("protocol"), Row: row})
+		c := Case{ID: get("id"), Reference: get("reference"), Evaluated: get("evaluated"),
+			Structures: get("structures"), Protocol: get("protocol"), Row: row}
+		for _, k := range LabelColumns {
+			*c.Labels.column(k) = get(k)
+		}
+		cases = append(cases, c)
 	}
 	return cases, nil
 }
@@ -229,7 +273,7 @@ func parseCSV(data []byte, name string) ([]Case, error) {
 func parseJSON(data []byte, name string) ([]Case, error) {
 	var raw []json.RawMessage
 	if err := json.Unmarshal(data, &raw); err != nil {
-		return nil, fmt.Errorf("manifest %s: want a JSON list of objects with keys %s: %w", name, strings.Join(ManifestColumns, ", "), err)
+		return nil, fmt.Errorf("manifest %s: want a JSON list of objects with keys %s: %w", name, knownColumns(), err)
 	}
 	cases := make([]Case, 0, len(raw))
 	for i, m := range raw {
@@ -238,10 +282,14 @@ func parseJSON(data []byte, name string) ([]Case, error) {
 		dec := json.NewDecoder(bytes.NewReader(m))
 		dec.DisallowUnknownFields()
 		if err := dec.Decode(&c); err != nil {
-			return nil, fmt.Errorf("manifest %s, %s: %w (keys: %s)", name, row, err, strings.Join(ManifestColumns, ", "))
+			return nil, fmt.Errorf("manifest %s, %s: %w (keys: %s)", name, row, err, knownColumns())
 		}
 		c.ID, c.Reference, c.Evaluated = strings.TrimSpace(c.ID), strings.TrimSpace(c.Reference), strings.TrimSpace(c.Evaluated)
 		c.Structures, c.Protocol = strings.TrimSpace(c.Structures), strings.TrimSpace(c.Protocol)
+		for _, k := range LabelColumns {
+			f := c.Labels.column(k)
+			*f = strings.TrimSpace(*f)
+		}
 		c.Row = row
 		cases = append(cases, c)
 	}

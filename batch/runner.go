@@ -2,6 +2,7 @@ package batch
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -85,6 +86,39 @@ type Options struct {
 	// Progress is called after each case with the cases done and the
 	// total (nil: none).
 	Progress func(done, total int)
+	// Record, when not nil, is called for every case of this run that was
+	// evaluated (verdict pass or fail), computed or found up to date, with
+	// the result in its folder: a results store records it (idempotently,
+	// so that a resumed batch records each case once, and one killed
+	// between a case's folder and its record records it when resumed). An
+	// error is logged and counted in Report.NotRecorded.
+	Record RecordFunc
+}
+
+// RecordFunc records a case's result (see Options.Record).
+type RecordFunc func(ctx context.Context, c Case, r *result.Result) error
+
+// recordCase calls rec with the result in the case folder dir when the
+// folder holds an evaluated case; it reports whether it tried and the
+// error.
+func recordCase(ctx context.Context, rec RecordFunc, c Case, dir string) (bool, error) {
+	st, err := ReadStatus(dir)
+	if err != nil || (st.Verdict != VerdictPass && st.Verdict != VerdictFail) {
+		return false, nil
+	}
+	path := filepath.Join(dir, ResultJSON)
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return true, fmt.Errorf("case %s: %w", c.ID, err)
+	}
+	var r result.Result
+	if err := json.Unmarshal(data, &r); err != nil {
+		return true, fmt.Errorf("case %s: reading %s: %w", c.ID, path, err)
+	}
+	if err := rec(ctx, c, &r); err != nil {
+		return true, fmt.Errorf("case %s: %w", c.ID, err)
+	}
+	return true, nil
 }
 
 // Report is the outcome of [Run].
@@ -103,6 +137,9 @@ type Report struct {
 	SummaryFiles []string
 	// Cleaned lists stale temporary folders removed or restored at start.
 	Cleaned []string
+	// Recorded counts the cases recorded by Options.Record; NotRecorded
+	// those it failed for (each logged).
+	Recorded, NotRecorded int
 }
 
 // caseWork is one case resolved and ready to compute.
@@ -240,7 +277,7 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 	mem := semaphore.NewWeighted(rep.Budget)
 	work := make(chan Case)
 	var done atomic.Int64
-	var computed, skipped, notRun atomic.Int64
+	var computed, skipped, notRun, recorded, notRecorded atomic.Int64
 	var wg sync.WaitGroup
 	var reachedMu sync.Mutex
 	reached := map[string]bool{}
@@ -263,6 +300,16 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 					skipped.Add(1)
 				default:
 					notRun.Add(1)
+				}
+				if outcome != outcomeInterrupted && opt.Record != nil {
+					tried, err := recordCase(ctx, opt.Record, c, filepath.Join(casesDir, c.ID))
+					switch {
+					case err != nil:
+						notRecorded.Add(1)
+						log.Error("case not recorded (run the batch again to record it)", "id", c.ID, "error", oneLine(err.Error()))
+					case tried:
+						recorded.Add(1)
+					}
 				}
 				if outcome != outcomeInterrupted {
 					reachedMu.Lock()
@@ -288,6 +335,7 @@ feed:
 	close(work)
 	wg.Wait()
 	rep.Computed, rep.Skipped = int(computed.Load()), int(skipped.Load())
+	rep.Recorded, rep.NotRecorded = int(recorded.Load()), int(notRecorded.Load())
 	rep.NotRun = int(notRun.Load()) + len(mine) - fed
 
 	sum := BuildSummary([]string{opt.Out}, mine)

@@ -88,6 +88,11 @@ type WatchOptions struct {
 	// Log receives one line per case start and finish, and what was moved
 	// aside (nil: none).
 	Log *slog.Logger
+	// Record, when not nil, is called for every case evaluated (pass or
+	// fail) with its result, before the case counts as processed: a case
+	// whose record fails is tried again at a later poll (and recorded
+	// then, idempotently), never lost.
+	Record RecordFunc
 }
 
 // WatchedCase is one case a poll finished.
@@ -848,7 +853,13 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	final := filepath.Join(w.out, c.key)
 	prev, _ := ReadStatus(final)
 	if prev != nil && prev.WatchKey == full && prev.SettingsSHA256 == w.settingsHash && prev.Verdict != VerdictError {
-		// Finished before the state was saved (a stop in between).
+		// Finished before the state was saved (a stop in between, or a
+		// record that failed).
+		if w.opt.Record != nil {
+			if _, err := recordCase(ctx, w.opt.Record, cs, final); err != nil {
+				return nil, false, err
+			}
+		}
 		w.record(full, quick, c, all, prev.Verdict, "", final, "")
 		return nil, false, w.saveState()
 	}
@@ -874,6 +885,11 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 		// Not the inputs' fault (an output that could not be written, an
 		// internal error): the results folder says so; try again later.
 		return nil, false, fmt.Errorf("case %s: %w", c.key, caseErr)
+	}
+	if w.opt.Record != nil {
+		if _, err := recordCase(ctx, w.opt.Record, cs, final); err != nil {
+			return nil, false, fmt.Errorf("%w (the results are in %s; it is recorded at a later poll)", err, final)
+		}
 	}
 	w.record(full, quick, c, all, st.Verdict, "", final, "")
 	if err := w.saveState(); err != nil {

@@ -61,6 +61,11 @@
 //     and an effective dose certainly differ. [Protocol.RefuseSwappedDoses]
 //     and [Protocol.RefuseDoseTypeMismatch] read them; a parsed protocol
 //     and a preset have them filled in.
+//   - record: optional, the results store every comparison run with this
+//     protocol is recorded in: an SQLite file (relative to the protocol
+//     file's folder) or a postgres:// URL (see package record). A
+//     command's --record option overrides it. It is left out of the
+//     protocol as results show it.
 //
 // Every key left out of a file takes the default documented here, never
 // Go's zero value (a key written with no value, or ~, counts as left out);

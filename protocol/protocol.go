@@ -45,6 +45,12 @@ type Protocol struct {
 	// Inputs say what to do when the input files themselves say something
 	// is off (see [InputChecks]).
 	Inputs InputChecks `yaml:"inputs" json:"inputs"`
+	// Record names the results store every comparison run with this
+	// protocol is recorded in (an SQLite file, relative to the protocol
+	// file's folder, or a postgres:// URL); empty for none. It is not part
+	// of the protocol's content as results show it (nor of a batch's
+	// settings hash): where results are kept does not change them.
+	Record string `yaml:"record,omitempty" json:"-"`
 }
 
 // InputChecks say what a comparison does when its input files say that
