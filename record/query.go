@@ -173,3 +173,43 @@ func (s *Store) ProtocolJSON(ctx context.Context, id int64) (string, error) {
 	}
 	return p, nil
 }
+
+// GroupCount is the number of comparisons recorded with one set of
+// labels and criteria.
+type GroupCount struct {
+	Labels           Labels
+	CriteriaLabel    string
+	ThresholdPercent float64
+	// Comparisons counts them, Passed those whose verdict is pass.
+	Comparisons, Passed int64
+	// First and Last bound the times compared.
+	First, Last time.Time
+}
+
+// Groups counts the recorded comparisons by labels and criteria, ordered
+// by labels then criteria.
+func (s *Store) Groups(ctx context.Context) ([]GroupCount, error) {
+	rows, err := s.db.QueryContext(ctx, `SELECT machine, technique, site, planning_system, recalculation_engine, criteria_label, threshold_percent,
+	COUNT(*), SUM(CASE WHEN verdict = 'pass' THEN 1 ELSE 0 END), MIN(compared_at), MAX(compared_at)
+	FROM comparisons
+	GROUP BY machine, technique, site, planning_system, recalculation_engine, criteria_label, threshold_percent
+	ORDER BY machine, technique, site, planning_system, recalculation_engine, criteria_label, threshold_percent`)
+	if err != nil {
+		return nil, fmt.Errorf("results store %s: %w", s.name, err)
+	}
+	defer rows.Close()
+	var out []GroupCount
+	for rows.Next() {
+		var g GroupCount
+		var first, last string
+		l := &g.Labels
+		if err := rows.Scan(&l.Machine, &l.Technique, &l.Site, &l.PlanningSystem, &l.RecalculationEngine, &g.CriteriaLabel, &g.ThresholdPercent,
+			&g.Comparisons, &g.Passed, &first, &last); err != nil {
+			return nil, fmt.Errorf("results store %s: %w", s.name, err)
+		}
+		g.First, _ = parseTime(first)
+		g.Last, _ = parseTime(last)
+		out = append(out, g)
+	}
+	return out, rows.Err()
+}

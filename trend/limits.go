@@ -67,6 +67,9 @@ type Limit struct {
 	OutOfControl int `json:"out_of_control"`
 	// Warnings: fewer than 20 plans, no variation, no limits.
 	Warnings []string `json:"warnings"`
+	// allLabels is set when grouped by every label (the default): empty
+	// labels are then left out of the group's name.
+	allLabels bool
 }
 
 // Method describes the computation, with its sources, for every output.
@@ -109,7 +112,7 @@ func (s *Series) limit() Limit {
 	}
 	r := Limit{Group: g, Criteria: s.Group.Criteria, Metric: s.Metric.Name, Title: s.Metric.Title, Unit: s.Metric.Unit,
 		Worse: "lower", Plans: len(s.Values), First: stamp(s.Points[0].ComparedAt), Last: stamp(s.Points[len(s.Points)-1].ComparedAt),
-		Warnings: append([]string{}, s.Warnings...)}
+		Warnings: append([]string{}, s.Warnings...), allLabels: s.Group.allLabels}
 	if s.Metric.HigherIsWorse {
 		r.Worse = "higher"
 	}
@@ -143,33 +146,51 @@ func num(p *float64, digits int) string {
 	return fmt.Sprintf("%.*f", digits, *p)
 }
 
-// Table writes the limits as a text table, one row per group and metric,
-// with the warnings under it.
+// Table writes the limits as text: per group a heading, then one row per
+// metric, then the group's warnings.
 func (l *Limits) Table(w io.Writer) {
 	fmt.Fprintf(w, "%d plans, %s to %s\n", l.Plans, l.First, l.Last)
-	fmt.Fprintf(w, "%-44s %-20s %6s %8s %8s %8s %8s %10s %9s %4s\n", "group", "metric", "plans", "centre", "mR̄", "LCL", "UCL", "tolerance", "action", "OOC")
-	for _, r := range l.Rows {
-		fmt.Fprintf(w, "%-44s %-20s %6d %8s %8s %8s %8s %10s %9s %4d\n", groupText(r), r.Metric, r.Plans, num(r.Centre, 3), num(r.MRBar, 3),
-			num(r.LCL, 3), num(r.UCL, 3), num(r.Tolerance, 3), num(r.Action, 3), r.OutOfControl)
+	prev := ""
+	var warns []string
+	flush := func() {
+		for _, m := range warns {
+			fmt.Fprintf(w, "  warning: %s\n", m)
+		}
+		warns = nil
 	}
 	for _, r := range l.Rows {
-		for _, wmsg := range r.Warnings {
-			fmt.Fprintf(w, "warning: %s, %s: %s\n", groupText(r), r.Metric, wmsg)
+		if g := groupText(r); g != prev {
+			flush()
+			fmt.Fprintf(w, "\ngroup %s\n", g)
+			fmt.Fprintf(w, "  %-18s %6s %9s %9s %9s %9s %10s %9s %4s\n", "metric", "plans", "centre", "σ̂(mR̄)", "LCL", "UCL", "tolerance", "action", "OOC")
+			prev = g
+		}
+		d := 2
+		if r.Unit == "" {
+			d = 3
+		}
+		fmt.Fprintf(w, "  %-18s %6d %9s %9s %9s %9s %10s %9s %4d\n", r.Metric, r.Plans, num(r.Centre, d), num(r.SigmaMR, d+1),
+			num(r.LCL, d), num(r.UCL, d), num(r.Tolerance, d), num(r.Action, d), r.OutOfControl)
+		for _, m := range r.Warnings {
+			warns = append(warns, r.Metric+": "+m)
 		}
 	}
+	flush()
 }
 
 func groupText(r Limit) string {
 	var parts []string
 	for _, k := range sortedKeys(r.Group) {
-		v := r.Group[k]
-		if v == "" {
-			v = "(none)"
+		if v := r.Group[k]; v != "" {
+			parts = append(parts, k+"="+v)
+		} else if !r.allLabels {
+			parts = append(parts, k+"=(none)")
 		}
-		parts = append(parts, k+"="+v)
 	}
-	parts = append(parts, r.Criteria)
-	return strings.Join(parts, ", ")
+	if len(parts) == 0 {
+		return r.Criteria
+	}
+	return strings.Join(parts, ", ") + " · " + r.Criteria
 }
 
 func sortedKeys(m map[string]string) []string {

@@ -94,6 +94,9 @@ type Group struct {
 	Criteria string
 	// Points are the group's plans in time order.
 	Points []record.Point
+	// allLabels is set when grouped by every label (the default): empty
+	// labels are then left out of the name.
+	allLabels bool
 }
 
 // Name is the group in words: its labels and criteria.
@@ -102,12 +105,15 @@ func (g *Group) Name() string {
 	for _, k := range g.By {
 		v := g.Labels.Get(k)
 		if v == "" {
+			if g.allLabels {
+				continue
+			}
 			v = "(none)"
 		}
 		parts = append(parts, k+"="+v)
 	}
 	if len(parts) == 0 {
-		return "all plans · " + g.Criteria
+		return g.Criteria
 	}
 	return strings.Join(parts, ", ") + " · " + g.Criteria
 }
@@ -223,7 +229,7 @@ func Analyze(points []record.Point, opt Options) (*Analysis, error) {
 		key := fmt.Sprintf("%q|%s", []string{l.Machine, l.Technique, l.Site, l.PlanningSystem, l.RecalculationEngine}, crit)
 		g := groups[key]
 		if g == nil {
-			g = &Group{Labels: l, By: by, Criteria: crit}
+			g = &Group{Labels: l, By: by, Criteria: crit, allLabels: opt.By == nil}
 			groups[key] = g
 			a.Groups = append(a.Groups, g)
 		}

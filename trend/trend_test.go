@@ -95,7 +95,7 @@ func TestAnalyzeNIST(t *testing.T) {
 	}
 	var buf bytes.Buffer
 	lim.Table(&buf)
-	if !strings.Contains(buf.String(), "technique=VMAT, 3%/2mm global, threshold 10 %") || !strings.Contains(buf.String(), "warning:") {
+	if !strings.Contains(buf.String(), "technique=VMAT · 3%/2mm global, threshold 10 %") || !strings.Contains(buf.String(), "warning:") {
 		t.Errorf("table:\n%s", buf.String())
 	}
 	// The 2%/1mm group has one plan: no chart, said so.

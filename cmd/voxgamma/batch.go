@@ -28,6 +28,7 @@ type caseFlags struct {
 	protocol                        string
 	allowFrameMismatch              bool
 	gammaMap, diffMap, report, deid bool
+	rec                             recordFlags
 }
 
 func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
@@ -52,6 +53,7 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 	fl.BoolVar(&f.report, "report", false, "also write each case's review page as report.html")
 	fl.BoolVar(&f.deid, "deidentify", false, "replace patient names and IDs with a hash and leave dates out of every output")
 	fl.IntVar(&f.workers, "workers", 0, "gamma worker goroutines per case (default: the cores divided among the cases run at once)")
+	f.rec.register(cmd, false)
 }
 
 func (f *caseFlags) outputs() batch.Outputs {
@@ -248,6 +250,18 @@ last line on stderr gives the counts.`,
 			}
 			ctx, stop := signal.NotifyContext(ctx, os.Interrupt, syscall.SIGTERM)
 			defer stop()
+			var protos []string
+			for _, c := range cases {
+				protos = append(protos, c.Protocol)
+			}
+			rec, err := newBatchRecorder(ctx, &f.rec, "batch", f.protocol, protos, f.deid)
+			if err != nil {
+				return err
+			}
+			if rec != nil {
+				defer rec.stores.close()
+				opt.Record = rec.record
+			}
 			bar := newCaseBar(g.stderr, g.quiet, "cases")
 			opt.Log = runLogger(g, bar)
 			opt.Progress = bar.update
@@ -267,8 +281,15 @@ last line on stderr gives the counts.`,
 			if opt.Shard.Sharded() {
 				extra += fmt.Sprintf(", shard %s", opt.Shard)
 			}
+			if rec != nil {
+				extra += fmt.Sprintf("; %d recorded in %s", rec.recorded.Load(), rec.storeNames())
+			}
 			if err != nil {
 				return fmt.Errorf("%w; %s%s", err, rep.Summary.Line(), extra)
+			}
+			if rep.NotRecorded > 0 {
+				return fmt.Errorf("batch: %s%s; %d evaluated cases not recorded in the results store (named in the log; run the same command again to record them)",
+					rep.Summary.Line(), extra, rep.NotRecorded)
 			}
 			return summaryOutcome(g, "batch", rep.Summary, extra)
 		},

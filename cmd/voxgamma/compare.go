@@ -26,6 +26,7 @@ type compareFlags struct {
 	jsonOut, csvOut, gammaMap, diffMap, reportOut     string
 	allowFrameMismatch, force, deidentify             bool
 	maxMemory                                         string
+	rec                                               recordFlags
 }
 
 // comparisonFlags are the options that shape a comparison beyond its
@@ -165,14 +166,25 @@ Exit status: 0 every rule met, 2 a rule not met, 1 could not evaluate.`,
   voxgamma compare --reference-points array.csv --evaluated plan/RD.dcm --criteria 3%/3mm`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
+			st, err := openCompareStore(cmd, f)
+			if err != nil {
+				return err
+			}
+			if st != nil {
+				defer st.Close()
+			}
 			out, err := runCompare(cmd.Context(), cmd, g, f)
 			if err != nil {
+				return err
+			}
+			if err := recordCompare(cmd, g, f, st, out.Result); err != nil {
 				return err
 			}
 			return verdictOf(g, out.Result)
 		},
 	}
 	f.register(cmd)
+	f.rec.register(cmd, true)
 	return cmd
 }
 

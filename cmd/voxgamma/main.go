@@ -155,7 +155,8 @@ Exit status: 0 every rule met, 2 a rule not met, 1 could not evaluate.`,
 	root.SetErr(stderr)
 	root.PersistentFlags().BoolVarP(&g.quiet, "quiet", "q", false, "print nothing but errors and the verdict line")
 	root.PersistentFlags().BoolVarP(&g.verbose, "verbose", "v", false, "print diagnostics (may include patient names from the files)")
-	root.AddCommand(newCompare(g), newDemo(g), newInspect(g), newSweep(g), newBatch(g), newBatchSummary(g), newWatch(g))
+	root.AddCommand(newCompare(g), newDemo(g), newInspect(g), newSweep(g), newBatch(g), newBatchSummary(g), newWatch(g),
+		newRecordCmd(g), newLimits(g), newTrend(g))
 	root.Version = version
 	return root, g
 }

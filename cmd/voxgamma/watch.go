@@ -81,13 +81,21 @@ failed its rules, 1 when one could not be evaluated.`,
 			if cmd.Flags().Changed("evaluated-match") {
 				opt.EvaluatedMatch = evalMatch
 			}
-			w, err := batch.NewWatcher(opt)
-			if err != nil {
-				return err
-			}
 			ctx := cmd.Context()
 			if ctx == nil {
 				ctx = context.Background()
+			}
+			rec, err := newBatchRecorder(ctx, &f.rec, "watch", f.protocol, nil, f.deid)
+			if err != nil {
+				return err
+			}
+			if rec != nil {
+				defer rec.stores.close()
+				opt.Record = rec.record
+			}
+			w, err := batch.NewWatcher(opt)
+			if err != nil {
+				return err
 			}
 			ctx, stop := signal.NotifyContext(ctx, os.Interrupt, syscall.SIGTERM)
 			defer stop()
