@@ -65,6 +65,11 @@ func (f *selectFlags) analyse(cmd *cobra.Command) (*trend.Analysis, *record.Stor
 	if dsn == "" {
 		return nil, nil, "", fmt.Errorf("--record is required (or set %s): the results store to read", record.EnvVar)
 	}
+	for _, m := range f.metrics {
+		if _, ok := trend.MetricByName(m); !ok {
+			return nil, nil, "", fmt.Errorf("--metric: unknown metric %q: want one of %s", m, strings.Join(trend.MetricNames(), ", "))
+		}
+	}
 	var filter record.Filter
 	var err error
 	if filter.Since, err = parseWhen("--since", f.since, false); err != nil {
