@@ -127,7 +127,7 @@ func TestConcurrentProcesses(t *testing.T) {
 				t.Errorf("%d ROI rows (want %d), %d comparisons whose ROI rows do not match their count", rois, 6*writers*per, badROIs)
 			}
 			// Every case is there.
-			pts, err := s.Points(context.Background(), Filter{})
+			pts, err := allPoints(t, s, Filter{})
 			if err != nil {
 				t.Fatal(err)
 			}

@@ -11,6 +11,18 @@ import (
 	"voxgamma/result"
 )
 
+// Kinds are the ROI kinds whose worst pass rate is kept per comparison.
+var Kinds = [4]string{"target", "oar", "body", "other"}
+
+func kindIndex(kind string) int {
+	for i, k := range Kinds {
+		if k == kind {
+			return i
+		}
+	}
+	return -1
+}
+
 // LabelKeys are the grouping labels of a comparison, as named in a batch
 // manifest's columns, in the --group option and in the store's columns.
 var LabelKeys = []string{"machine", "technique", "site", "planning_system", "recalculation_engine"}
@@ -42,6 +54,10 @@ func (l *Labels) field(key string) *string {
 // NormaliseKey writes a label key in its canonical form: lower case, with
 // '_' for spaces and hyphens ("Planning system" → "planning_system").
 func NormaliseKey(key string) string {
+	switch key {
+	case "machine", "technique", "site", "planning_system", "recalculation_engine":
+		return key
+	}
 	k := strings.ToLower(strings.TrimSpace(key))
 	return strings.NewReplacer(" ", "_", "-", "_").Replace(k)
 }
@@ -128,6 +144,7 @@ type comparison struct {
 	rulesTotal, rulesNotMet                 int
 	overall                                 result.GammaStats
 	rois                                    []result.ROI
+	worst                                   [len(Kinds)]*float64
 	version, schemaVersion                  string
 }
 
@@ -220,6 +237,16 @@ func newComparison(r *result.Result, m Meta, now time.Time) (*comparison, error)
 	for _, o := range r.Rules {
 		if !o.Met {
 			c.rulesNotMet++
+		}
+	}
+	for _, x := range r.ROIs {
+		k := kindIndex(x.Kind)
+		if x.Source != "structure set" || x.PassRate == nil || k < 0 {
+			continue
+		}
+		if c.worst[k] == nil || *x.PassRate < *c.worst[k] {
+			v := *x.PassRate
+			c.worst[k] = &v
 		}
 	}
 	c.comparedAt = m.Time

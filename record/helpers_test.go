@@ -95,3 +95,17 @@ func TestMain(m *testing.M) {
 	}
 	os.Exit(m.Run())
 }
+
+// allPoints reads the points f selects with all their details.
+func allPoints(t *testing.T, s *Store, f Filter) ([]Point, error) {
+	t.Helper()
+	pts, err := s.Points(context.Background(), f)
+	if err != nil {
+		return nil, err
+	}
+	ptrs := make([]*Point, len(pts))
+	for i := range pts {
+		ptrs[i] = &pts[i]
+	}
+	return pts, s.Details(context.Background(), ptrs)
+}

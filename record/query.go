@@ -24,7 +24,9 @@ type Point struct {
 	ID int64
 	// ComparedAt is when the comparison ran.
 	ComparedAt time.Time
-	// CaseID, PatientID (pseudonyms when recorded de-identified), Source.
+	// CaseID, PatientID (pseudonyms when recorded de-identified), Source,
+	// and the fields below up to PassRate but for the labels, the criteria
+	// label and the threshold, are read by [Store.Details].
 	CaseID, PatientID, Source string
 	// Verdict is "pass" or "fail".
 	Verdict string
@@ -45,92 +47,173 @@ type Point struct {
 	SearchMM         float64
 	// PassRate and GammaMean are the overall figures (nil when none).
 	PassRate, GammaMean *float64
-	// WorstByKind holds, per ROI kind ("target", "oar", "body", "other"),
-	// the lowest pass rate among the structure set's ROIs of that kind that
-	// were evaluated.
-	WorstByKind map[string]float64
+	// worst holds, per ROI kind (in the order of Kinds), the lowest pass
+	// rate among the structure set's evaluated ROIs of that kind, when has
+	// says there is one.
+	worst [len(Kinds)]float64
+	has   [len(Kinds)]bool
+}
+
+// Worst returns the lowest pass rate among the structure set's evaluated
+// ROIs of a kind ("target", "oar", "body", "other"), and whether there is
+// one.
+func (p *Point) Worst(kind string) (float64, bool) {
+	k := kindIndex(kind)
+	if k < 0 || !p.has[k] {
+		return 0, false
+	}
+	return p.worst[k], true
+}
+
+// SetWorst sets the lowest pass rate of a kind (for tests and callers that
+// build points themselves).
+func (p *Point) SetWorst(kind string, v float64) {
+	if k := kindIndex(kind); k >= 0 {
+		p.worst[k], p.has[k] = v, true
+	}
 }
 
 // Points returns the comparisons f selects, in the order they were
-// compared (ties by id, the order recorded).
+// compared (ties by id, the order recorded). For speed over a long history
+// it reads only what process control needs: ID, ComparedAt, Labels,
+// CriteriaLabel, ThresholdPercent, PassRate, GammaMean and the worst pass
+// rate per ROI kind; [Store.Details] reads the rest for the points that
+// need it.
 func (s *Store) Points(ctx context.Context, f Filter) ([]Point, error) {
 	where, args, err := f.where()
 	if err != nil {
 		return nil, err
 	}
-	rows, err := s.db.QueryContext(ctx, s.rebind(`SELECT id, compared_at, case_id, patient_id, source, verdict,
-	reference_sha256, evaluated_sha256, machine, technique, site, planning_system, recalculation_engine,
-	protocol_name, criteria_label, dose_percent, dta_mm, normalisation, norm_dose_gy, norm_dose_source,
-	threshold_percent, search_mm, pass_rate, gamma_mean
+	var n int
+	if err := s.db.QueryRowContext(ctx, s.rebind(`SELECT COUNT(*) FROM comparisons`+where), args...).Scan(&n); err != nil {
+		return nil, fmt.Errorf("results store %s: %w", s.name, err)
+	}
+	rows, err := s.db.QueryContext(ctx, s.rebind(`SELECT id, compared_at, machine, technique, site, planning_system, recalculation_engine,
+	criteria_label, threshold_percent, pass_rate, gamma_mean,
+	target_pass_rate_min, oar_pass_rate_min, body_pass_rate_min, other_pass_rate_min
 	FROM comparisons`+where+` ORDER BY compared_at, id`), args...)
 	if err != nil {
 		return nil, fmt.Errorf("results store %s: %w", s.name, err)
 	}
 	defer rows.Close()
-	var pts []Point
-	index := map[int64]int{}
+	pts := make([]Point, 0, n+16)
+	var at, crit sql.RawBytes
+	var lab [5]sql.RawBytes
+	var pr, gm sql.NullFloat64
+	var worst [len(Kinds)]sql.NullFloat64
+	// Labels and criteria repeat: one string each.
+	interned := map[string]string{}
+	intern := func(b []byte) string {
+		if v, ok := interned[string(b)]; ok {
+			return v
+		}
+		v := string(b)
+		interned[v] = v
+		return v
+	}
 	for rows.Next() {
 		var p Point
-		var at string
-		var pr, gm sql.NullFloat64
-		l := &p.Labels
-		if err := rows.Scan(&p.ID, &at, &p.CaseID, &p.PatientID, &p.Source, &p.Verdict, &p.ReferenceSHA256, &p.EvaluatedSHA256,
-			&l.Machine, &l.Technique, &l.Site, &l.PlanningSystem, &l.RecalculationEngine,
-			&p.ProtocolName, &p.CriteriaLabel, &p.DosePercent, &p.DTAmm, &p.Normalisation, &p.NormDoseGy, &p.NormDoseSource,
-			&p.ThresholdPercent, &p.SearchMM, &pr, &gm); err != nil {
+		if err := rows.Scan(&p.ID, &at, &lab[0], &lab[1], &lab[2], &lab[3], &lab[4], &crit, &p.ThresholdPercent, &pr, &gm,
+			&worst[0], &worst[1], &worst[2], &worst[3]); err != nil {
 			return nil, fmt.Errorf("results store %s: %w", s.name, err)
 		}
-		if p.ComparedAt, err = parseTime(at); err != nil {
-			return nil, fmt.Errorf("results store %s: comparison %d: time %q: %w", s.name, p.ID, at, err)
+		var ok bool
+		if p.ComparedAt, ok = parseStamp(at); !ok {
+			return nil, fmt.Errorf("results store %s: comparison %d: time %q is not in the store's format", s.name, p.ID, at)
 		}
+		p.Labels = Labels{intern(lab[0]), intern(lab[1]), intern(lab[2]), intern(lab[3]), intern(lab[4])}
+		p.CriteriaLabel = intern(crit)
 		if pr.Valid {
-			p.PassRate = &pr.Float64
+			v := pr.Float64
+			p.PassRate = &v
 		}
 		if gm.Valid {
-			p.GammaMean = &gm.Float64
+			v := gm.Float64
+			p.GammaMean = &v
 		}
-		index[p.ID] = len(pts)
+		for k, w := range worst {
+			p.worst[k], p.has[k] = w.Float64, w.Valid
+		}
 		pts = append(pts, p)
 	}
 	if err := rows.Err(); err != nil {
 		return nil, fmt.Errorf("results store %s: %w", s.name, err)
 	}
-	if len(pts) == 0 {
-		return pts, nil
-	}
-	// The worst evaluated structure-set ROI of each kind, per comparison.
-	rq := `SELECT r.comparison_id, r.kind, MIN(r.pass_rate) FROM comparison_rois r`
-	if where != "" {
-		rq += ` JOIN comparisons ON comparisons.id = r.comparison_id` + where + ` AND`
-	} else {
-		rq += ` WHERE`
-	}
-	rq += ` r.source = 'structure set' AND r.pass_rate IS NOT NULL GROUP BY r.comparison_id, r.kind`
-	kr, err := s.db.QueryContext(ctx, s.rebind(rq), args...)
-	if err != nil {
-		return nil, fmt.Errorf("results store %s: %w", s.name, err)
-	}
-	defer kr.Close()
-	for kr.Next() {
-		var id int64
-		var kind string
-		var v float64
-		if err := kr.Scan(&id, &kind, &v); err != nil {
-			return nil, fmt.Errorf("results store %s: %w", s.name, err)
-		}
-		i, ok := index[id]
-		if !ok {
-			continue
-		}
-		if pts[i].WorstByKind == nil {
-			pts[i].WorstByKind = map[string]float64{}
-		}
-		pts[i].WorstByKind[kind] = v
-	}
-	if err := kr.Err(); err != nil {
-		return nil, fmt.Errorf("results store %s: %w", s.name, err)
-	}
 	return pts, nil
+}
+
+// parseStamp reads a stored time ("2006-01-02T15:04:05.000000Z") without
+// allocating.
+func parseStamp(b []byte) (time.Time, bool) {
+	if len(b) != len(timeLayout) || b[4] != '-' || b[7] != '-' || b[10] != 'T' || b[13] != ':' || b[16] != ':' || b[19] != '.' || b[26] != 'Z' {
+		return time.Time{}, false
+	}
+	num := func(from, to int) (int, bool) {
+		n := 0
+		for _, c := range b[from:to] {
+			if c < '0' || c > '9' {
+				return 0, false
+			}
+			n = 10*n + int(c-'0')
+		}
+		return n, true
+	}
+	var v [7]int
+	for i, r := range [7][2]int{{0, 4}, {5, 7}, {8, 10}, {11, 13}, {14, 16}, {17, 19}, {20, 26}} {
+		var ok bool
+		if v[i], ok = num(r[0], r[1]); !ok {
+			return time.Time{}, false
+		}
+	}
+	t := time.Date(v[0], time.Month(v[1]), v[2], v[3], v[4], v[5], v[6]*1000, time.UTC)
+	if t.Month() != time.Month(v[1]) || t.Day() != v[2] || v[3] > 23 || v[4] > 59 || v[5] > 59 {
+		return time.Time{}, false
+	}
+	return t, true
+}
+
+// Details reads, for the points given (from [Store.Points]), the fields
+// Points leaves out: case, patient, source, verdict, input SHA-256s,
+// protocol name and the criteria in full.
+func (s *Store) Details(ctx context.Context, pts []*Point) error {
+	byID := map[int64][]*Point{}
+	var ids []any
+	for _, p := range pts {
+		if _, ok := byID[p.ID]; !ok {
+			ids = append(ids, p.ID)
+		}
+		byID[p.ID] = append(byID[p.ID], p)
+	}
+	for len(ids) > 0 {
+		chunk := ids[:min(len(ids), 500)]
+		ids = ids[len(chunk):]
+		rows, err := s.db.QueryContext(ctx, s.rebind(`SELECT id, case_id, patient_id, source, verdict, reference_sha256, evaluated_sha256,
+	protocol_name, dose_percent, dta_mm, normalisation, norm_dose_gy, norm_dose_source, search_mm
+	FROM comparisons WHERE id IN (`+placeholders(len(chunk))+`)`), chunk...)
+		if err != nil {
+			return fmt.Errorf("results store %s: %w", s.name, err)
+		}
+		for rows.Next() {
+			var d Point
+			if err := rows.Scan(&d.ID, &d.CaseID, &d.PatientID, &d.Source, &d.Verdict, &d.ReferenceSHA256, &d.EvaluatedSHA256,
+				&d.ProtocolName, &d.DosePercent, &d.DTAmm, &d.Normalisation, &d.NormDoseGy, &d.NormDoseSource, &d.SearchMM); err != nil {
+				rows.Close()
+				return fmt.Errorf("results store %s: %w", s.name, err)
+			}
+			for _, p := range byID[d.ID] {
+				p.CaseID, p.PatientID, p.Source, p.Verdict = d.CaseID, d.PatientID, d.Source, d.Verdict
+				p.ReferenceSHA256, p.EvaluatedSHA256, p.ProtocolName = d.ReferenceSHA256, d.EvaluatedSHA256, d.ProtocolName
+				p.DosePercent, p.DTAmm, p.Normalisation, p.NormDoseGy, p.NormDoseSource, p.SearchMM =
+					d.DosePercent, d.DTAmm, d.Normalisation, d.NormDoseGy, d.NormDoseSource, d.SearchMM
+			}
+		}
+		err = rows.Err()
+		rows.Close()
+		if err != nil {
+			return fmt.Errorf("results store %s: %w", s.name, err)
+		}
+	}
+	return nil
 }
 
 // where returns the WHERE clause of a filter (with a leading space, empty

@@ -69,6 +69,10 @@ var migrations = []migration{
 	gamma_p95 DOUBLE PRECISION,
 	gamma_p99 DOUBLE PRECISION,
 	gamma_max DOUBLE PRECISION,
+	target_pass_rate_min DOUBLE PRECISION,
+	oar_pass_rate_min DOUBLE PRECISION,
+	body_pass_rate_min DOUBLE PRECISION,
+	other_pass_rate_min DOUBLE PRECISION,
 	roi_count BIGINT NOT NULL,
 	voxgamma_version TEXT NOT NULL,
 	result_schema_version TEXT NOT NULL

@@ -4,6 +4,7 @@ import (
 	"context"
 	"database/sql"
 	"encoding/json"
+	"fmt"
 	"os"
 	"path/filepath"
 	"strings"
@@ -30,7 +31,7 @@ func TestRoundTrip(t *testing.T) {
 					t.Errorf("case %d: %+v, want one new", i, n)
 				}
 			}
-			pts, err := s.Points(ctx, Filter{})
+			pts, err := allPoints(t, s, Filter{})
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -45,8 +46,8 @@ func TestRoundTrip(t *testing.T) {
 				if *p.PassRate != 90+float64(i) || p.Verdict != "fail" || p.CriteriaLabel != "3%/2mm global" || p.ThresholdPercent != 10 {
 					t.Errorf("case %d: pass rate %v verdict %s criteria %q threshold %g", i, *p.PassRate, p.Verdict, p.CriteriaLabel, p.ThresholdPercent)
 				}
-				if p.WorstByKind["target"] != 96+float64(i)/10 || p.WorstByKind["oar"] != 98 || p.WorstByKind["body"] != 90+float64(i) {
-					t.Errorf("case %d: worst by kind %v", i, p.WorstByKind)
+				if worst(p, "target") != 96+float64(i)/10 || worst(p, "oar") != 98 || worst(p, "body") != 90+float64(i) || worst(p, "other") != -1 {
+					t.Errorf("case %d: worst target %v, oar %v, body %v, other %v", i, worst(p, "target"), worst(p, "oar"), worst(p, "body"), worst(p, "other"))
 				}
 				want := time.Date(2025, 1, 1, 8+i, 0, 0, 0, time.UTC)
 				if !p.ComparedAt.Equal(want) {
@@ -56,14 +57,14 @@ func TestRoundTrip(t *testing.T) {
 					t.Errorf("patient %q", p.PatientID)
 				}
 			}
-			la1, err := s.Points(ctx, Filter{Labels: map[string]string{"machine": "LA1"}})
+			la1, err := allPoints(t, s, Filter{Labels: map[string]string{"machine": "LA1"}})
 			if err != nil || len(la1) != 2 || la1[0].CaseID != "c1" || la1[1].CaseID != "c3" {
 				t.Errorf("machine=LA1: %d points %v", len(la1), err)
 			}
-			if len(la1) > 0 && la1[0].WorstByKind["target"] != 96.1 {
-				t.Errorf("filtered worst target %v", la1[0].WorstByKind)
+			if len(la1) > 0 && worst(la1[0], "target") != 96.1 {
+				t.Errorf("filtered worst target %v", worst(la1[0], "target"))
 			}
-			win, err := s.Points(ctx, Filter{Since: time.Date(2025, 1, 1, 10, 0, 0, 0, time.UTC), Until: time.Date(2025, 1, 1, 11, 0, 0, 0, time.UTC)})
+			win, err := allPoints(t, s, Filter{Since: time.Date(2025, 1, 1, 10, 0, 0, 0, time.UTC), Until: time.Date(2025, 1, 1, 11, 0, 0, 0, time.UTC)})
 			if err != nil || len(win) != 1 || win[0].CaseID != "c2" {
 				t.Errorf("time window: %v %v", win, err)
 			}
@@ -99,7 +100,7 @@ func TestIdempotent(t *testing.T) {
 			if c, _ := s.Count(ctx); c != 1 {
 				t.Fatalf("%d comparisons after recording one twice", c)
 			}
-			pts, _ := s.Points(ctx, Filter{})
+			pts, _ := allPoints(t, s, Filter{})
 			p := pts[0]
 			if p.Labels.Technique != "VMAT" || p.Labels.Site != "pelvis" {
 				t.Errorf("labels %+v: want the technique kept, the site replaced", p.Labels)
@@ -283,7 +284,7 @@ func TestImport(t *testing.T) {
 	if rep.Results != 4 || rep.New != 3 || rep.Updated != 0 || rep.Skipped != 3 || len(rep.Errors) != 1 || !strings.Contains(rep.Errors[0], "plan8.json") {
 		t.Errorf("report %+v", rep)
 	}
-	pts, _ := s.Points(ctx, Filter{})
+	pts, _ := allPoints(t, s, Filter{})
 	got := map[string]Point{}
 	for _, p := range pts {
 		got[p.CaseID] = p
@@ -303,5 +304,64 @@ func TestImport(t *testing.T) {
 	}
 	if c, _ := s.Count(ctx); c != 3 {
 		t.Errorf("%d comparisons after importing twice", c)
+	}
+}
+
+func worst(p Point, kind string) float64 {
+	v, ok := p.Worst(kind)
+	if !ok {
+		return -1
+	}
+	return v
+}
+
+// TestStamp: the fast reader of stored times agrees with time.Parse of the
+// layout and refuses what is not one.
+func TestStamp(t *testing.T) {
+	for _, tm := range []time.Time{time.Date(2025, 2, 28, 23, 59, 59, 999999000, time.UTC), time.Date(1999, 12, 31, 0, 0, 0, 1000, time.UTC)} {
+		s := formatTime(tm)
+		got, ok := parseStamp([]byte(s))
+		want, err := parseTime(s)
+		if !ok || err != nil || !got.Equal(want) || !got.Equal(tm) {
+			t.Errorf("%s: %v %v, time.Parse %v %v", s, got, ok, want, err)
+		}
+	}
+	for _, bad := range []string{"", "2025-02-30T00:00:00.000000Z", "2025-02-28 00:00:00.000000Z", "2025-02-28T24:00:00.000000Z", "2025-02-28T00:00:00.00000xZ"} {
+		if _, ok := parseStamp([]byte(bad)); ok {
+			t.Errorf("%q accepted", bad)
+		}
+	}
+}
+
+// TestManyROIs: a structure set of 250 ROIs (written 100 to a statement)
+// is stored whole, in order, and its worst target found.
+func TestManyROIs(t *testing.T) {
+	for kind, mk := range storeKinds(t) {
+		t.Run(kind, func(t *testing.T) {
+			s := openStore(t, mk(t))
+			r := synthResult(1, 97, 98, 99)
+			base := r.ROIs[0]
+			r.ROIs = nil
+			for i := range 250 {
+				x := base
+				x.Name = fmt.Sprintf("PTV_%03d", i)
+				x.PassRate = ptr(90 + float64((i*37)%100)/10)
+				r.ROIs = append(r.ROIs, x)
+			}
+			if _, err := s.Record(context.Background(), r, Meta{}); err != nil {
+				t.Fatal(err)
+			}
+			var n, maxPos int
+			var last string
+			s.db.QueryRow(`SELECT COUNT(*), MAX(position) FROM comparison_rois`).Scan(&n, &maxPos)
+			s.db.QueryRow(`SELECT name FROM comparison_rois WHERE position = 249`).Scan(&last)
+			if n != 250 || maxPos != 249 || last != "PTV_249" {
+				t.Errorf("%d ROI rows, last position %d named %q", n, maxPos, last)
+			}
+			pts, _ := allPoints(t, s, Filter{})
+			if w := worst(pts[0], "target"); w != 90 {
+				t.Errorf("worst target %g, want 90 (i = 0)", w)
+			}
+		})
 	}
 }

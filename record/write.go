@@ -5,6 +5,7 @@ import (
 	"database/sql"
 	"errors"
 	"fmt"
+	"strings"
 	"time"
 
 	"voxgamma/result"
@@ -105,6 +106,7 @@ const comparisonColumns = `comparison_key, compared_at, recorded_at, updated_at,
 	criteria_label, dose_percent, dta_mm, normalisation, norm_dose_gy, norm_dose_source, threshold_percent, search_mm, method,
 	verdict, rules_total, rules_not_met, evaluated, passed,
 	pass_rate, gamma_mean, gamma_median, gamma_p95, gamma_p99, gamma_max,
+	target_pass_rate_min, oar_pass_rate_min, body_pass_rate_min, other_pass_rate_min,
 	roi_count, voxgamma_version, result_schema_version`
 
 func (c *comparison) values(stamp string) []any {
@@ -118,6 +120,7 @@ func (c *comparison) values(stamp string) []any {
 		cr.Label, cr.DosePercent, cr.DTAmm, cr.Normalisation, cr.NormDoseGy, cr.NormDoseSource, cr.ThresholdPercent, cr.SearchMM, cr.Method,
 		c.verdict, c.rulesTotal, c.rulesNotMet, o.Evaluated, o.Passed,
 		nullable(o.PassRate), nullable(o.GammaMean), nullable(o.GammaMedian), nullable(o.GammaP95), nullable(o.GammaP99), nullable(o.GammaMax),
+		nullable(c.worst[0]), nullable(c.worst[1]), nullable(c.worst[2]), nullable(c.worst[3]),
 		len(c.rois), c.version, c.schemaVersion}
 }
 
@@ -146,6 +149,7 @@ const updateSet = `updated_at = ?, source = ?, case_id = ?, patient_id = ?, deid
 	protocol_name = ?, protocol_json = ?, criteria_label = ?, norm_dose_source = ?,
 	verdict = ?, rules_total = ?, rules_not_met = ?, evaluated = ?, passed = ?,
 	pass_rate = ?, gamma_mean = ?, gamma_median = ?, gamma_p95 = ?, gamma_p99 = ?, gamma_max = ?,
+	target_pass_rate_min = ?, oar_pass_rate_min = ?, body_pass_rate_min = ?, other_pass_rate_min = ?,
 	roi_count = ?, voxgamma_version = ?, result_schema_version = ?`
 
 func (c *comparison) updateValues(stamp string) []any {
@@ -158,6 +162,7 @@ func (c *comparison) updateValues(stamp string) []any {
 		c.protocolName, c.protocolJSON, c.criteria.Label, c.criteria.NormDoseSource,
 		c.verdict, c.rulesTotal, c.rulesNotMet, o.Evaluated, o.Passed,
 		nullable(o.PassRate), nullable(o.GammaMean), nullable(o.GammaMedian), nullable(o.GammaP95), nullable(o.GammaP99), nullable(o.GammaMax),
+		nullable(c.worst[0]), nullable(c.worst[1]), nullable(c.worst[2]), nullable(c.worst[3]),
 		len(c.rois), c.version, c.schemaVersion}
 }
 
@@ -188,19 +193,24 @@ func (s *Store) upsert(ctx context.Context, tx *sql.Tx, c *comparison, stamp str
 	case err != nil:
 		return false, fmt.Errorf("inserting: %w", err)
 	}
-	if len(c.rois) == 0 {
-		return isNew, nil
-	}
-	stmt, err := tx.PrepareContext(ctx, s.rebind(`INSERT INTO comparison_rois (`+roiColumns+`) VALUES (`+placeholders(19)+`)`))
-	if err != nil {
-		return false, fmt.Errorf("ROIs: %w", err)
-	}
-	defer stmt.Close()
-	for i, x := range c.rois {
-		if _, err := stmt.ExecContext(ctx, id, i, x.Name, x.Number, x.Kind, x.InterpretedType, x.Source, x.Status,
-			x.VolumeCC, x.Evaluated, x.Passed, nullable(x.PassRate), nullable(x.GammaMean), nullable(x.GammaP95), nullable(x.GammaMax),
-			x.FailingVolumeCC, nullable(dvhDiff(x, "d95")), nullable(dvhDiff(x, "d2")), nullable(dvhDiff(x, "mean"))); err != nil {
-			return false, fmt.Errorf("ROI %q: %w", x.Name, err)
+	// The ROI rows, many to a statement.
+	const perStatement = 100
+	for start := 0; start < len(c.rois); start += perStatement {
+		part := c.rois[start:min(len(c.rois), start+perStatement)]
+		args := make([]any, 0, 19*len(part))
+		var q strings.Builder
+		q.WriteString(`INSERT INTO comparison_rois (` + roiColumns + `) VALUES `)
+		for j, x := range part {
+			if j > 0 {
+				q.WriteByte(',')
+			}
+			q.WriteString("(" + placeholders(19) + ")")
+			args = append(args, id, start+j, x.Name, x.Number, x.Kind, x.InterpretedType, x.Source, x.Status,
+				x.VolumeCC, x.Evaluated, x.Passed, nullable(x.PassRate), nullable(x.GammaMean), nullable(x.GammaP95), nullable(x.GammaMax),
+				x.FailingVolumeCC, nullable(dvhDiff(x, "d95")), nullable(dvhDiff(x, "d2")), nullable(dvhDiff(x, "mean")))
+		}
+		if _, err := tx.ExecContext(ctx, s.rebind(q.String()), args...); err != nil {
+			return false, fmt.Errorf("ROIs: %w", err)
 		}
 	}
 	return isNew, nil

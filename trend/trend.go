@@ -38,7 +38,7 @@ func (m Metric) IsPassRate() bool { return m.Unit == "%" }
 
 func kindMetric(kind, title, subject string) Metric {
 	return Metric{Name: kind + "_pass_rate", Title: title, Unit: "%", Kind: kind, Subject: subject, RuleMetric: "pass_rate",
-		value: func(p *record.Point) (float64, bool) { v, ok := p.WorstByKind[kind]; return v, ok }}
+		value: func(p *record.Point) (float64, bool) { return p.Worst(kind) }}
 }
 
 // Metrics are the metrics followed, in the order shown. A plan's per-kind
@@ -124,7 +124,7 @@ type Series struct {
 	Metric Metric
 	// Points are the group's plans that have the metric, in time order, and
 	// Values their values.
-	Points []record.Point
+	Points []*record.Point
 	Values []float64
 	// Chart is the individuals chart; ChartErr is set when it cannot be
 	// made (fewer than two plans).
@@ -213,7 +213,12 @@ func Analyze(points []record.Point, opt Options) (*Analysis, error) {
 		metrics = append(metrics, m)
 	}
 	a := &Analysis{Plans: len(points)}
-	groups := map[string]*Group{}
+	type groupKey struct {
+		labels   record.Labels
+		criteria string
+		thresh   float64
+	}
+	groups := map[groupKey]*Group{}
 	for _, p := range points {
 		if a.First.IsZero() || p.ComparedAt.Before(a.First) {
 			a.First = p.ComparedAt
@@ -225,10 +230,10 @@ func Analyze(points []record.Point, opt Options) (*Analysis, error) {
 		for _, k := range by {
 			l.Set(k, p.Labels.Get(k))
 		}
-		crit := fmt.Sprintf("%s, threshold %g %%", p.CriteriaLabel, p.ThresholdPercent)
-		key := fmt.Sprintf("%q|%s", []string{l.Machine, l.Technique, l.Site, l.PlanningSystem, l.RecalculationEngine}, crit)
+		key := groupKey{l, p.CriteriaLabel, p.ThresholdPercent}
 		g := groups[key]
 		if g == nil {
+			crit := fmt.Sprintf("%s, threshold %g %%", p.CriteriaLabel, p.ThresholdPercent)
 			g = &Group{Labels: l, By: by, Criteria: crit, allLabels: opt.By == nil}
 			groups[key] = g
 			a.Groups = append(a.Groups, g)
@@ -239,9 +244,11 @@ func Analyze(points []record.Point, opt Options) (*Analysis, error) {
 	for _, g := range a.Groups {
 		for _, m := range metrics {
 			s := &Series{Group: g, Metric: m}
+			s.Points = make([]*record.Point, 0, len(g.Points))
+			s.Values = make([]float64, 0, len(g.Points))
 			for i := range g.Points {
 				if v, ok := m.value(&g.Points[i]); ok {
-					s.Points = append(s.Points, g.Points[i])
+					s.Points = append(s.Points, &g.Points[i])
 					s.Values = append(s.Values, v)
 				}
 			}
@@ -270,6 +277,25 @@ func Analyze(points []record.Point, opt Options) (*Analysis, error) {
 		}
 	}
 	return a, nil
+}
+
+// NeedDetails returns the plans whose details (case, patient, verdict,
+// input files, criteria in full: see record.Store.Details) the page and
+// the protocol show: every plan flagged by a rule and each group's latest
+// plan. Fill them before WritePage or Protocol when the points came from
+// record.Store.Points.
+func (a *Analysis) NeedDetails() []*record.Point {
+	var out []*record.Point
+	for _, g := range a.Groups {
+		out = append(out, &g.Points[len(g.Points)-1])
+	}
+	for _, s := range a.Series {
+		idx, _ := s.Flagged()
+		for _, i := range idx {
+			out = append(out, s.Points[i])
+		}
+	}
+	return out
 }
 
 // ErrNoPlans is returned when the store holds no plan the selection

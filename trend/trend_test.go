@@ -25,12 +25,14 @@ func ptr(v float64) *float64 { return &v }
 
 // plan is an invented recorded comparison with overall pass rate rate.
 func plan(i int, rate float64, l record.Labels) record.Point {
-	return record.Point{ID: int64(i + 1), ComparedAt: time.Date(2025, 2, 1, 0, 0, 0, 0, time.UTC).Add(time.Duration(i) * 24 * time.Hour),
+	p := record.Point{ID: int64(i + 1), ComparedAt: time.Date(2025, 2, 1, 0, 0, 0, 0, time.UTC).Add(time.Duration(i) * 24 * time.Hour),
 		CaseID: "case-" + string(rune('A'+i%26)), PatientID: "VG-DEMO-001", Verdict: "pass", ReferenceSHA256: strings.Repeat("ab", 32),
 		Labels: l, ProtocolName: "tg218", CriteriaLabel: "3%/2mm global", DosePercent: 3, DTAmm: 2, Normalisation: "global",
 		NormDoseGy: 60, NormDoseSource: "reference maximum", ThresholdPercent: 10, SearchMM: 6,
-		PassRate: ptr(rate), GammaMean: ptr(0.2 + (100-rate)/100),
-		WorstByKind: map[string]float64{"target": math.Min(100, rate+1), "oar": 99}}
+		PassRate: ptr(rate), GammaMean: ptr(0.2 + (100-rate)/100)}
+	p.SetWorst("target", math.Min(100, rate+1))
+	p.SetWorst("oar", 99)
+	return p
 }
 
 // TestAnalyzeNIST: the overall pass rates of a group are the NIST flow

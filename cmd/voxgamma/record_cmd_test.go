@@ -43,6 +43,13 @@ func rcPoints(t *testing.T, dsn string) []record.Point {
 	if err != nil {
 		t.Fatal(err)
 	}
+	ptrs := make([]*record.Point, len(pts))
+	for i := range pts {
+		ptrs[i] = &pts[i]
+	}
+	if err := st.Details(context.Background(), ptrs); err != nil {
+		t.Fatal(err)
+	}
 	return pts
 }
 

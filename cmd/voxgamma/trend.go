@@ -131,6 +131,9 @@ func (f *selectFlags) analyse(cmd *cobra.Command) (*trend.Analysis, *record.Stor
 		return nil, nil, "", fmt.Errorf("%w in %s (%s)", trend.ErrNoPlans, st.Name(), selection)
 	}
 	a, err := trend.Analyze(pts, trend.Options{By: by, Metrics: f.metrics})
+	if err == nil {
+		err = st.Details(cmdContext(cmd), a.NeedDetails())
+	}
 	if err != nil {
 		st.Close()
 		return nil, nil, "", err
