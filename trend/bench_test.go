@@ -3,6 +3,7 @@ package trend
 import (
 	"context"
 	"crypto/sha256"
+	"database/sql"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -74,7 +75,33 @@ func fillStore(b *testing.B, dsn string) {
 	b.Logf("recorded %d comparisons in %.1f s", benchPlans, time.Since(t0).Seconds())
 }
 
-var sqliteBenchOnce sync.Once
+var sqliteBenchOnce, pgBenchOnce sync.Once
+
+// benchPostgres returns the benchmark's database on the test server,
+// created when missing and kept (like the SQLite file) for later runs.
+func benchPostgres(b *testing.B) string {
+	server := pgtest.ServerURL(b)
+	name := fmt.Sprintf("voxgamma_bench_limits_%d_schema%d_b2", benchPlans, record.SchemaVersion())
+	db, err := sql.Open("pgx", server)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer db.Close()
+	var n int
+	if err := db.QueryRow(`SELECT COUNT(*) FROM pg_database WHERE datname = $1`, name).Scan(&n); err != nil {
+		b.Fatal(err)
+	}
+	if n == 0 {
+		if _, err := db.Exec("CREATE DATABASE " + name); err != nil {
+			b.Fatal(err)
+		}
+	}
+	dsn, err := pgtest.WithDatabase(server, name)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return dsn
+}
 
 // BenchmarkLimits100k times what voxgamma limits does on a store of
 // 100,000 comparisons (600,000 ROI rows): read every plan with its worst
@@ -89,8 +116,8 @@ func BenchmarkLimits100k(b *testing.B) {
 		benchLimits(b, path)
 	})
 	b.Run("postgres", func(b *testing.B) {
-		dsn := pgtest.NewDatabase(b)
-		fillStore(b, dsn)
+		dsn := benchPostgres(b)
+		pgBenchOnce.Do(func() { fillStore(b, dsn) })
 		benchLimits(b, dsn)
 	})
 }
