@@ -31,12 +31,16 @@
 //     norm_dose_source, threshold_percent, search_mm, method), verdict
 //     (pass or fail), rules_total, rules_not_met, the overall figures
 //     (evaluated, passed, pass_rate, gamma_mean, gamma_median, gamma_p95,
-//     gamma_p99, gamma_max; NULL where the result has null), roi_count,
+//     gamma_p99, gamma_max, coverage_percent; NULL where the result has null),
+//     the worst pass rate of each kind among the structure set's evaluated
+//     ROIs (target_pass_rate_min, oar_pass_rate_min, body_pass_rate_min,
+//     other_pass_rate_min; NULL when the plan has none), roi_count,
 //     voxgamma_version, result_schema_version.
 //   - comparison_rois: one row per ROI of the result, in its order
 //     (position): name, roi_number, kind, interpreted_type, source,
 //     status, volume_cc, evaluated, passed, pass_rate, gamma_mean,
-//     gamma_p95, gamma_max, failing_volume_cc, and the DVH differences
+//     gamma_p95, gamma_max, failing_volume_cc, covered_percent, and the DVH
+//     differences
 //     d95_diff_percent, d2_diff_percent, mean_diff_percent.
 //
 // # Writes

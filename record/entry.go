@@ -235,7 +235,9 @@ func newComparison(r *result.Result, m Meta, now time.Time) (*comparison, error)
 	json.Unmarshal(pj, &pn)
 	c.protocolName = pn.Name
 	for _, o := range r.Rules {
-		if !o.Met {
+		// "not applicable" is not a rule not met; results of schema 1.0
+		// have no outcome, only met.
+		if o.Outcome == result.NotMet || (o.Outcome == "" && !o.Met) {
 			c.rulesNotMet++
 		}
 	}

@@ -105,7 +105,7 @@ const comparisonColumns = `comparison_key, compared_at, recorded_at, updated_at,
 	protocol_name, protocol_sha256, protocol_json,
 	criteria_label, dose_percent, dta_mm, normalisation, norm_dose_gy, norm_dose_source, threshold_percent, search_mm, method,
 	verdict, rules_total, rules_not_met, evaluated, passed,
-	pass_rate, gamma_mean, gamma_median, gamma_p95, gamma_p99, gamma_max,
+	pass_rate, gamma_mean, gamma_median, gamma_p95, gamma_p99, gamma_max, coverage_percent,
 	target_pass_rate_min, oar_pass_rate_min, body_pass_rate_min, other_pass_rate_min,
 	roi_count, voxgamma_version, result_schema_version`
 
@@ -119,7 +119,7 @@ func (c *comparison) values(stamp string) []any {
 		c.protocolName, c.protocolSHA, c.protocolJSON,
 		cr.Label, cr.DosePercent, cr.DTAmm, cr.Normalisation, cr.NormDoseGy, cr.NormDoseSource, cr.ThresholdPercent, cr.SearchMM, cr.Method,
 		c.verdict, c.rulesTotal, c.rulesNotMet, o.Evaluated, o.Passed,
-		nullable(o.PassRate), nullable(o.GammaMean), nullable(o.GammaMedian), nullable(o.GammaP95), nullable(o.GammaP99), nullable(o.GammaMax),
+		nullable(o.PassRate), nullable(o.GammaMean), nullable(o.GammaMedian), nullable(o.GammaP95), nullable(o.GammaP99), nullable(o.GammaMax), nullable(o.CoveragePercent),
 		nullable(c.worst[0]), nullable(c.worst[1]), nullable(c.worst[2]), nullable(c.worst[3]),
 		len(c.rois), c.version, c.schemaVersion}
 }
@@ -148,7 +148,7 @@ const updateSet = `updated_at = ?, source = ?, case_id = ?, patient_id = ?, deid
 	reference_path = ?, evaluated_path = ?, structures_path = ?,
 	protocol_name = ?, protocol_json = ?, criteria_label = ?, norm_dose_source = ?,
 	verdict = ?, rules_total = ?, rules_not_met = ?, evaluated = ?, passed = ?,
-	pass_rate = ?, gamma_mean = ?, gamma_median = ?, gamma_p95 = ?, gamma_p99 = ?, gamma_max = ?,
+	pass_rate = ?, gamma_mean = ?, gamma_median = ?, gamma_p95 = ?, gamma_p99 = ?, gamma_max = ?, coverage_percent = ?,
 	target_pass_rate_min = ?, oar_pass_rate_min = ?, body_pass_rate_min = ?, other_pass_rate_min = ?,
 	roi_count = ?, voxgamma_version = ?, result_schema_version = ?`
 
@@ -161,13 +161,13 @@ func (c *comparison) updateValues(stamp string) []any {
 		nullString(c.refPath), nullString(c.evalPath), nullString(c.structPath),
 		c.protocolName, c.protocolJSON, c.criteria.Label, c.criteria.NormDoseSource,
 		c.verdict, c.rulesTotal, c.rulesNotMet, o.Evaluated, o.Passed,
-		nullable(o.PassRate), nullable(o.GammaMean), nullable(o.GammaMedian), nullable(o.GammaP95), nullable(o.GammaP99), nullable(o.GammaMax),
+		nullable(o.PassRate), nullable(o.GammaMean), nullable(o.GammaMedian), nullable(o.GammaP95), nullable(o.GammaP99), nullable(o.GammaMax), nullable(o.CoveragePercent),
 		nullable(c.worst[0]), nullable(c.worst[1]), nullable(c.worst[2]), nullable(c.worst[3]),
 		len(c.rois), c.version, c.schemaVersion}
 }
 
 const roiColumns = `comparison_id, position, name, roi_number, kind, interpreted_type, source, status,
-	volume_cc, evaluated, passed, pass_rate, gamma_mean, gamma_p95, gamma_max, failing_volume_cc,
+	volume_cc, evaluated, passed, pass_rate, gamma_mean, gamma_p95, gamma_max, failing_volume_cc, covered_percent,
 	d95_diff_percent, d2_diff_percent, mean_diff_percent`
 
 // upsert writes one comparison and its ROIs in tx and reports whether it
@@ -197,17 +197,17 @@ func (s *Store) upsert(ctx context.Context, tx *sql.Tx, c *comparison, stamp str
 	const perStatement = 100
 	for start := 0; start < len(c.rois); start += perStatement {
 		part := c.rois[start:min(len(c.rois), start+perStatement)]
-		args := make([]any, 0, 19*len(part))
+		args := make([]any, 0, 20*len(part))
 		var q strings.Builder
 		q.WriteString(`INSERT INTO comparison_rois (` + roiColumns + `) VALUES `)
 		for j, x := range part {
 			if j > 0 {
 				q.WriteByte(',')
 			}
-			q.WriteString("(" + placeholders(19) + ")")
-			args = append(args, id, start+j, x.Name, x.Number, x.Kind, x.InterpretedType, x.Source, x.Status,
+			q.WriteString("(" + placeholders(20) + ")")
+			args = append(args, id, start+j, x.Name, x.Number, x.Kind, x.InterpretedType, x.Source, string(x.Status),
 				x.VolumeCC, x.Evaluated, x.Passed, nullable(x.PassRate), nullable(x.GammaMean), nullable(x.GammaP95), nullable(x.GammaMax),
-				x.FailingVolumeCC, nullable(dvhDiff(x, "d95")), nullable(dvhDiff(x, "d2")), nullable(dvhDiff(x, "mean")))
+				x.FailingVolumeCC, nullable(x.CoveredPercent), nullable(dvhDiff(x, "d95")), nullable(dvhDiff(x, "d2")), nullable(dvhDiff(x, "mean")))
 		}
 		if _, err := tx.ExecContext(ctx, s.rebind(q.String()), args...); err != nil {
 			return false, fmt.Errorf("ROIs: %w", err)

@@ -81,7 +81,7 @@ var sqliteBenchOnce, pgBenchOnce sync.Once
 // created when missing and kept (like the SQLite file) for later runs.
 func benchPostgres(b *testing.B) string {
 	server := pgtest.ServerURL(b)
-	name := fmt.Sprintf("voxgamma_bench_limits_%d_schema%d_b2", benchPlans, record.SchemaVersion())
+	name := fmt.Sprintf("voxgamma_bench_limits_%d_schema%d_b3", benchPlans, record.SchemaVersion())
 	db, err := sql.Open("pgx", server)
 	if err != nil {
 		b.Fatal(err)
@@ -111,7 +111,7 @@ func benchPostgres(b *testing.B) string {
 // folder across runs) and not timed.
 func BenchmarkLimits100k(b *testing.B) {
 	b.Run("sqlite", func(b *testing.B) {
-		path := filepath.Join(os.TempDir(), fmt.Sprintf("voxgamma-bench-limits-%d-schema%d-b2.db", benchPlans, record.SchemaVersion()))
+		path := filepath.Join(os.TempDir(), fmt.Sprintf("voxgamma-bench-limits-%d-schema%d-b3.db", benchPlans, record.SchemaVersion()))
 		sqliteBenchOnce.Do(func() { fillStore(b, path) })
 		benchLimits(b, path)
 	})

@@ -219,19 +219,32 @@ func roundStrict(v float64, decimals int, lower bool) float64 {
 // rule at the control limit on the worse side and, for pass rates, an
 // action rule at TG-218's action limit; limits rounded to 0.01 % (Γ:
 // 0.001) toward the stricter side. The criteria are the group's as
-// recorded (base their ROI classes and isodose ROIs on the base protocol
-// the group's plans used, the latest one's). Metrics without limits (fewer
+// recorded; the ROI classes, isodose ROIs, coverage requirements and the
+// rules' when_missing come from the base protocol (the one the group's
+// latest plan used), else their defaults. Metrics without limits (fewer
 // than two plans) give no rule; a group without any rule is an error.
 func (a *Analysis) Protocol(g *Group, base *protocol.Protocol, name string) (*protocol.Protocol, error) {
 	last := g.Points[len(g.Points)-1]
-	p := &protocol.Protocol{Name: name}
+	p := &protocol.Protocol{Name: name, Coverage: protocol.DefaultCoverage()}
+	// whenMissing keeps the base protocol's choice for a rule on a subject
+	// the comparison lacks; "fail" (the default) otherwise.
+	whenMissing := func(subject, metric string) string {
+		if base != nil {
+			for _, r := range base.Rules {
+				if r.Subject == subject && r.Metric == metric && r.WhenMissing != "" {
+					return r.WhenMissing
+				}
+			}
+		}
+		return protocol.MissingFail
+	}
 	if base != nil {
-		p.KindRules, p.Isodose = base.KindRules, base.Isodose
+		p.KindRules, p.Isodose, p.Coverage = base.KindRules, base.Isodose, base.Coverage
 	}
 	p.Criteria = protocol.Criteria{Criteria: fmt.Sprintf("%g%%/%gmm", last.DosePercent, last.DTAmm), Normalisation: last.Normalisation,
-		ThresholdPercent: last.ThresholdPercent, SearchMM: last.SearchMM}
+		ThresholdPercent: last.ThresholdPercent, SearchMM: last.SearchMM, NormDoseFrom: protocol.NormDoseReferenceMax}
 	if last.NormDoseSource != "reference maximum" {
-		p.Criteria.NormDoseGy = last.NormDoseGy
+		p.Criteria.NormDoseGy, p.Criteria.NormDoseFrom = last.NormDoseGy, protocol.NormDoseValue
 	}
 	var counts []string
 	for _, s := range a.Series {
@@ -240,11 +253,14 @@ func (a *Analysis) Protocol(g *Group, base *protocol.Protocol, name string) (*pr
 		}
 		tol := *s.Tolerance()
 		if s.Metric.HigherIsWorse {
-			p.Rules = append(p.Rules, protocol.Rule{Level: "tolerance", Subject: s.Metric.Subject, Metric: s.Metric.RuleMetric, Op: "<=", Limit: roundStrict(tol, 3, false)})
+			p.Rules = append(p.Rules, protocol.Rule{Level: "tolerance", Subject: s.Metric.Subject, Metric: s.Metric.RuleMetric, Op: "<=", Limit: roundStrict(tol, 3, false),
+				WhenMissing: whenMissing(s.Metric.Subject, s.Metric.RuleMetric)})
 		} else {
-			p.Rules = append(p.Rules, protocol.Rule{Level: "tolerance", Subject: s.Metric.Subject, Metric: s.Metric.RuleMetric, Op: ">=", Limit: roundStrict(tol, 2, true)})
+			p.Rules = append(p.Rules, protocol.Rule{Level: "tolerance", Subject: s.Metric.Subject, Metric: s.Metric.RuleMetric, Op: ">=", Limit: roundStrict(tol, 2, true),
+				WhenMissing: whenMissing(s.Metric.Subject, s.Metric.RuleMetric)})
 			if s.Action != nil {
-				p.Rules = append(p.Rules, protocol.Rule{Level: "action", Subject: s.Metric.Subject, Metric: s.Metric.RuleMetric, Op: ">=", Limit: roundStrict(math.Min(100, *s.Action), 2, true)})
+				p.Rules = append(p.Rules, protocol.Rule{Level: "action", Subject: s.Metric.Subject, Metric: s.Metric.RuleMetric, Op: ">=", Limit: roundStrict(math.Min(100, *s.Action), 2, true),
+					WhenMissing: whenMissing(s.Metric.Subject, s.Metric.RuleMetric)})
 			}
 		}
 		counts = append(counts, fmt.Sprintf("%s %d", s.Metric.Name, len(s.Values)))

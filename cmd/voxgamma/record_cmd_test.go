@@ -66,7 +66,7 @@ func TestRecordCompare(t *testing.T) {
 			pass := newUniformCase(t, 2, 1.02)
 			js := filepath.Join(pass.dir, "result.json")
 			args := []string{"compare", "--reference", pass.ref, "--evaluated", pass.eval, "--json", js, "--record", dsn,
-				"--technique", "VMAT", "--machine", "LA1", "--case-id", "VG-DEMO-001", "-q"}
+				"--technique", "VMAT", "--machine", "LA1", "--case-id", "VG-DEMO-001", "--no-structures", "-q"}
 			vgExit(t, exitPass, args...)
 			r := readResultJSON(t, js)
 			pts := rcPoints(t, dsn)
@@ -95,7 +95,7 @@ func TestRecordCompare(t *testing.T) {
 				t.Errorf("%d comparisons after comparing the same plan twice", n)
 			}
 			fail := newUniformCase(t, 2, 1.05)
-			vgExit(t, exitRuleFail, "compare", "--reference", fail.ref, "--evaluated", fail.eval, "--record", dsn, "-q")
+			vgExit(t, exitRuleFail, "compare", "--reference", fail.ref, "--evaluated", fail.eval, "--record", dsn, "--no-structures", "-q")
 			pts = rcPoints(t, dsn)
 			if len(pts) != 2 || *pts[1].PassRate != 0 || pts[1].Verdict != "fail" {
 				t.Errorf("after a failing plan: %d comparisons, last %v %s", len(pts), pts[len(pts)-1].PassRate, pts[len(pts)-1].Verdict)
@@ -114,16 +114,16 @@ func TestRecordStoreSources(t *testing.T) {
 	writeTextFile(t, proto, "name: clinic\ncriteria: {criteria: 3%/2mm, threshold_percent: 10}\nrecord: history.db\nrules:\n  - {subject: overall, metric: pass_rate, op: \">=\", limit: 95}\n")
 	env := filepath.Join(t.TempDir(), "env.db")
 	t.Setenv(record.EnvVar, env)
-	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--protocol", proto, "-q")
+	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--protocol", proto, "--no-structures", "-q")
 	if n := len(rcPoints(t, filepath.Join(dir, "history.db"))); n != 1 {
 		t.Errorf("protocol's store: %d comparisons, want 1", n)
 	}
-	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "-q")
+	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--no-structures", "-q")
 	if n := len(rcPoints(t, env)); n != 1 {
 		t.Errorf("$%s store: %d comparisons, want 1", record.EnvVar, n)
 	}
 	flag := filepath.Join(t.TempDir(), "flag.db")
-	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--protocol", proto, "--record", flag, "-q")
+	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--protocol", proto, "--record", flag, "--no-structures", "-q")
 	if n := len(rcPoints(t, flag)); n != 1 {
 		t.Errorf("--record store: %d comparisons, want 1", n)
 	}
@@ -132,7 +132,7 @@ func TestRecordStoreSources(t *testing.T) {
 	}
 	// The protocol's record field is not part of the result's protocol.
 	js := filepath.Join(t.TempDir(), "r.json")
-	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--protocol", proto, "--json", js, "-q")
+	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--protocol", proto, "--json", js, "--no-structures", "-q")
 	if b, _ := os.ReadFile(js); bytes.Contains(b, []byte("history.db")) {
 		t.Error("result.json names the store")
 	}
@@ -317,11 +317,11 @@ func TestLimitsProtocolRoundTrip(t *testing.T) {
 	if err != nil {
 		t.Fatalf("the protocol written does not load: %v", err)
 	}
-	if p.Name != "tg218-process-limits" || len(p.Rules) != 5 || p.Criteria.Criteria != "3%/2mm" {
-		t.Errorf("protocol %s, %d rules, criteria %q", p.Name, len(p.Rules), p.Criteria.Criteria)
+	if p.Name != "tg218-process-limits" || len(p.Rules) != 5 || p.Criteria.Criteria != "3%/2mm" || p.Coverage != protocol.DefaultCoverage() {
+		t.Errorf("protocol %s, %d rules, criteria %q, coverage %+v", p.Name, len(p.Rules), p.Criteria.Criteria, p.Coverage)
 	}
 	c := newUniformCase(t, 2, 1.005)
-	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--protocol", out, "-q")
+	vgExit(t, exitPass, "compare", "--reference", c.ref, "--evaluated", c.eval, "--protocol", out, "--no-structures", "-q")
 	// Two groups cannot make one protocol.
 	more := t.TempDir()
 	rcWriteResults(t, more, []float64{99.5, 99})

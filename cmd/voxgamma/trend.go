@@ -227,7 +227,14 @@ process-based limits describe the process as it was.`,
 				var base *protocol.Protocol
 				if pj, err := st.ProtocolJSON(cmdContext(cmd), gr.Points[len(gr.Points)-1].ID); err == nil {
 					var p protocol.Protocol
-					if json.Unmarshal([]byte(pj), &p) == nil {
+					var keys map[string]json.RawMessage
+					if json.Unmarshal([]byte(pj), &p) == nil && json.Unmarshal([]byte(pj), &keys) == nil {
+						// A result of an older schema shows no coverage:
+						// the defaults, not Go's zeros (which turn the
+						// checks off).
+						if _, ok := keys["coverage"]; !ok {
+							p.Coverage = protocol.DefaultCoverage()
+						}
 						base = &p
 					}
 				}
