@@ -242,3 +242,44 @@ func checkConsistent(t *testing.T, s *Store, kind string) {
 		t.Errorf("%d comparisons with missing ROI rows, %d ROI rows without a comparison", bad, orphans)
 	}
 }
+
+// TestConcurrentGoroutines: 8 goroutines sharing one store (batch workers)
+// record 400 comparisons, each a fifth of them twice: 400 rows, each once.
+func TestConcurrentGoroutines(t *testing.T) {
+	for kind, mk := range storeKinds(t) {
+		t.Run(kind, func(t *testing.T) {
+			s := openStore(t, mk(t))
+			var wg sync.WaitGroup
+			errs := make(chan error, 8)
+			for w := range 8 {
+				wg.Add(1)
+				go func() {
+					defer wg.Done()
+					for k := range 50 {
+						i := w*50 + k
+						for _, j := range []int{i, (i + 50) % 400} {
+							if j != i && k%5 != 0 {
+								continue
+							}
+							if _, err := s.Record(context.Background(), synthResult(j, 96, 97, 99), Meta{CaseID: fmt.Sprintf("case-%05d", j)}); err != nil {
+								errs <- err
+								return
+							}
+						}
+					}
+				}()
+			}
+			wg.Wait()
+			close(errs)
+			for err := range errs {
+				t.Error(err)
+			}
+			var rows, cases, rois int
+			s.db.QueryRow(`SELECT COUNT(*), COUNT(DISTINCT case_id) FROM comparisons`).Scan(&rows, &cases)
+			s.db.QueryRow(`SELECT COUNT(*) FROM comparison_rois`).Scan(&rois)
+			if rows != 400 || cases != 400 || rois != 6*400 {
+				t.Errorf("%d rows, %d cases, %d ROI rows: want 400, 400, 2400", rows, cases, rois)
+			}
+		})
+	}
+}

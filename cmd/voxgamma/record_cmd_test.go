@@ -269,8 +269,12 @@ func TestLimitsCommandNIST(t *testing.T) {
 	if status != exitPass || !strings.Contains(stderr, "10 results found: 10 recorded as new") {
 		t.Fatalf("import: exit %d %s", status, stderr)
 	}
+	status, stdout, _ := btRun("record", "stats", "--record", db)
+	if status != exitPass || !strings.Contains(stdout, "10 comparisons") || !strings.Contains(stdout, "VMAT") {
+		t.Errorf("record stats: exit %d\n%s", status, stdout)
+	}
 	js := filepath.Join(t.TempDir(), "limits.json")
-	status, stdout, stderr := btRun("limits", "--record", db, "--group", "technique=VMAT", "--metric", "overall_pass_rate", "--json", js)
+	status, stdout, stderr = btRun("limits", "--record", db, "--group", "technique=VMAT", "--metric", "overall_pass_rate", "--json", js)
 	if status != exitPass {
 		t.Fatalf("limits: exit %d %s", status, stderr)
 	}
