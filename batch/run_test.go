@@ -76,7 +76,7 @@ func TestBatchEndToEnd(t *testing.T) {
 		t.Errorf("counts %d/%d/%d exit %d", s.Passed, s.FailedRules, s.CouldNotEvaluate, s.ExitStatus())
 	}
 	p01, p02 := s.Rows[0], s.Rows[1]
-	if p01.OverallPassRateText != "100.0" || p01.TargetPassRates != "PTV_A:100.0" || p01.WorstROI == "" {
+	if p01.OverallPassRateText != "100.0" || p01.TargetPassRates != `[["PTV_A","100.0"]]` || p01.WorstROI == "" {
 		t.Errorf("p01 row %+v", p01)
 	}
 	if p02.WorstROI != "PTV_A" || p02.RulesFailed == 0 || *p02.WorstROIPassRate >= 95 {
@@ -88,7 +88,7 @@ func TestBatchEndToEnd(t *testing.T) {
 	if !strings.Contains(s.Rows[4].Error, "no-such-file.dcm") {
 		t.Errorf("p05 error %q does not name the file", s.Rows[4].Error)
 	}
-	if s.Rows[3].TargetPassRates != "" || s.Rows[3].WorstROI != "" {
+	if s.Rows[3].TargetPassRates != "[]" || s.Rows[3].WorstROI != "" {
 		t.Errorf("p04 has no structures but %+v", s.Rows[3])
 	}
 
@@ -108,7 +108,7 @@ func TestBatchEndToEnd(t *testing.T) {
 		t.Fatal(err)
 	}
 	lines := strings.Split(strings.TrimSpace(string(csvData)), "\n")
-	if lines[0] != strings.Join(SummaryColumns, ",") || len(lines) != 7 || !strings.HasPrefix(lines[1], "p01,pass,100.0,PTV_A:100.0,") {
+	if lines[0] != strings.Join(SummaryColumns, ",") || len(lines) != 7 || !strings.HasPrefix(lines[1], `p01,pass,100.0,"[[""PTV_A"",""100.0""]]",`) {
 		t.Errorf("summary.csv:\n%s", csvData)
 	}
 

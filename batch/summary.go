@@ -13,6 +13,7 @@ import (
 	"strings"
 
 	"voxgamma/internal/atomicfile"
+	"voxgamma/internal/safetext"
 	"voxgamma/result"
 )
 
@@ -34,8 +35,10 @@ type Row struct {
 	// with one decimal, rounded down.
 	OverallPassRate     *float64 `json:"overall_pass_rate"`
 	OverallPassRateText string   `json:"overall_pass_rate_text"`
-	// TargetPassRates is "NAME:RATE;NAME:RATE" over the target ROIs in
-	// structure-set order (rates as text); Targets the same as a list.
+	// TargetPassRates lists the target ROIs in structure-set order with
+	// their pass rates as text, as a JSON array of [name, rate] pairs:
+	// [["PTV_60","98.1"],["PTV_54","96.0"]] (see [TargetList]); empty for
+	// a case in error. Targets is the same as a list.
 	TargetPassRates string    `json:"target_pass_rates"`
 	Targets         []ROIRate `json:"targets"`
 	// WorstROI is the structure-set ROI with the lowest pass rate.
@@ -96,11 +99,7 @@ func rowFromStatus(id string, st *Status) Row {
 	}
 	if f := st.Summary; f != nil && st.Verdict != VerdictError {
 		r.OverallPassRate, r.OverallPassRateText = f.OverallPassRate, f.OverallPassRateText
-		var parts []string
-		for _, t := range f.Targets {
-			parts = append(parts, t.Name+":"+t.PassRateText)
-		}
-		r.TargetPassRates = strings.Join(parts, ";")
+		r.TargetPassRates = TargetList(f.Targets)
 		if f.Targets != nil {
 			r.Targets = f.Targets
 		}
@@ -110,6 +109,25 @@ func rowFromStatus(id string, st *Status) Row {
 		r.RulesFailed = f.RulesFailed
 	}
 	return r
+}
+
+// TargetList writes ROI pass rates as a JSON array of [name, rate text]
+// pairs, in order: [["PTV_60","98.1"],["PTV_54","96.0"]]. JSON quotes and
+// escapes each name, so no ROI name (not even "PTV_S:100.0;PTV_X" or one
+// holding quotes or brackets) can forge another entry, and any JSON reader
+// splits the list back exactly.
+func TargetList(rates []ROIRate) string {
+	pairs := make([][2]string, 0, len(rates))
+	for _, t := range rates {
+		pairs = append(pairs, [2]string{t.Name, t.PassRateText})
+	}
+	var b bytes.Buffer
+	enc := json.NewEncoder(&b)
+	enc.SetEscapeHTML(false)
+	if err := enc.Encode(pairs); err != nil {
+		return "[]" // [][2]string always encodes
+	}
+	return strings.TrimSuffix(b.String(), "\n")
 }
 
 // notRunRow is the row of a case without a finished folder.
@@ -260,15 +278,18 @@ func (s *Summary) replace(i int, r Row) {
 
 // EncodeCSV writes the summary table: a header ([SummaryColumns]) and one
 // row per case; pass rates as text with one decimal, rounded down ("n/a"
-// when nothing was evaluated, empty for a case in error).
+// when nothing was evaluated, empty for a case in error). Cells of text
+// from the inputs (the worst ROI's name, the error) that a spreadsheet
+// would read as a formula get a leading apostrophe (safetext.CSVCell).
 func (s *Summary) EncodeCSV(w io.Writer) error {
 	cw := csv.NewWriter(w)
 	if err := cw.Write(SummaryColumns); err != nil {
 		return err
 	}
 	for _, r := range s.Rows {
-		if err := cw.Write([]string{r.ID, r.Verdict, r.OverallPassRateText, r.TargetPassRates, r.WorstROI, r.WorstROIPassRateText,
-			strconv.Itoa(r.RulesFailed), r.Error, strconv.FormatFloat(r.Seconds, 'f', 3, 64)}); err != nil {
+		c := safetext.CSVCell
+		if err := cw.Write([]string{c(r.ID), r.Verdict, r.OverallPassRateText, c(r.TargetPassRates), c(r.WorstROI), r.WorstROIPassRateText,
+			strconv.Itoa(r.RulesFailed), c(r.Error), strconv.FormatFloat(r.Seconds, 'f', 3, 64)}); err != nil {
 			return err
 		}
 	}

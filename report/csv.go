@@ -8,6 +8,7 @@ import (
 	"strconv"
 
 	"voxgamma/internal/atomicfile"
+	"voxgamma/internal/safetext"
 	"voxgamma/result"
 )
 
@@ -36,7 +37,8 @@ func CSVColumns() []string { return append([]string(nil), csvHeader...) }
 // coverage_percent, covered_percent), which follow the one display rule of
 // every output: rounded down to the digits shown (two decimals), never 100
 // unless every point passed (result.FormatPercent). The exact values are in
-// the JSON.
+// the JSON. Text cells (names, kinds, statuses) that a spreadsheet would
+// read as a formula get a leading apostrophe (see safetext.CSVCell).
 func EncodeCSV(w io.Writer, r *result.Result) error {
 	if r == nil {
 		return fmt.Errorf("report: encoding CSV: no result")
@@ -58,10 +60,10 @@ func EncodeCSV(w io.Writer, r *result.Result) error {
 			dvh = *roi.DVH
 		}
 		rows = append(rows, []string{
-			roi.Name, roi.Kind, roi.Source, csvFloat(roi.VolumeCC), strconv.Itoa(roi.Voxels),
+			safetext.CSVCell(roi.Name), safetext.CSVCell(roi.Kind), safetext.CSVCell(roi.Source), csvFloat(roi.VolumeCC), strconv.Itoa(roi.Voxels),
 			strconv.Itoa(roi.Evaluated), strconv.Itoa(roi.Passed), csvPercent(roi.PassRate),
 			csvNum(roi.GammaMean), csvNum(roi.GammaP95), csvNum(roi.GammaMax),
-			csvFloat(roi.FailingVolumeCC), statusText(roi),
+			csvFloat(roi.FailingVolumeCC), safetext.CSVCell(statusText(roi)),
 			csvPercent(roi.CoveragePercent), csvPercent(roi.CoveredPercent),
 			csvNum(dvh.Reference.MeanGy), csvNum(dvh.Evaluated.MeanGy),
 			csvNum(dvh.Reference.D95Gy), csvNum(dvh.Evaluated.D95Gy), csvNum(dvh.DifferencePercent.D95Gy),

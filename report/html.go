@@ -8,6 +8,7 @@ import (
 	"io"
 
 	"voxgamma/internal/atomicfile"
+	"voxgamma/internal/safetext"
 )
 
 // pageScript switches which ROI's histogram and DVH are shown. It only
@@ -51,10 +52,23 @@ func RenderHTML(w io.Writer, in Page) error {
 	if err != nil {
 		return fmt.Errorf("report: HTML page: %w", err)
 	}
-	if err := pageTemplate.Execute(w, m); err != nil {
+	if err := executePage(w, m); err != nil {
 		return fmt.Errorf("report: HTML page: %w", err)
 	}
 	return nil
+}
+
+// executePage renders the page through a filter that writes every control
+// character, bidirectional override and other non-printable character of
+// the text (ROI names, descriptions and messages from the input files) as
+// a visible escape such as \x1b or \u202e: the template escapes HTML
+// syntax, not control characters.
+func executePage(w io.Writer, m *model) error {
+	sw := safetext.NewWriter(w)
+	if err := pageTemplate.Execute(sw, m); err != nil {
+		return err
+	}
+	return sw.Flush()
 }
 
 // WriteHTML writes the review page (see [RenderHTML]) to the file at path,
@@ -64,7 +78,7 @@ func WriteHTML(path string, in Page) error {
 	if err != nil {
 		return fmt.Errorf("report: HTML page %s: %w", path, err)
 	}
-	if err := atomicfile.Write(path, func(w io.Writer) error { return pageTemplate.Execute(w, m) }); err != nil {
+	if err := atomicfile.Write(path, func(w io.Writer) error { return executePage(w, m) }); err != nil {
 		return fmt.Errorf("report: HTML page: %w", err)
 	}
 	return nil

@@ -44,6 +44,22 @@ type Spec struct {
 	// cloud; zero means 9 mm. A wider cloud puts more of the grid above
 	// the low-dose threshold, and so makes the case slower to compute.
 	Sigma float64
+	// PatientName, PatientBirthDate and StudyDate replace the phantom's
+	// (dicomio.DemoPatientName, none, 20260101) when not empty.
+	PatientName, PatientBirthDate, StudyDate string
+	// Description becomes both doses' SeriesDescription and DoseComment
+	// (at most 64 characters) when not empty; Label the structure set's
+	// StructureSetLabel (at most 16).
+	Description, Label string
+	// ROIs replace the structure set's ROIs (a target PTV_A and an organ
+	// at risk Organ_B) when not nil: spheres of radius 4 mm along x, 8 mm
+	// apart, centred on the dose cloud (at most 5).
+	ROIs []ROI
+}
+
+// ROI names an ROI of [Spec.ROIs] and gives its RTROIInterpretedType.
+type ROI struct {
+	Name, InterpretedType string
 }
 
 // Files are the paths of a written case ("" for a file left out).
@@ -76,8 +92,16 @@ func Write(dir string, spec Spec) (*Files, error) {
 		return filepath.Join(dir, n)
 	}
 	f := &Files{Dir: dir, Reference: name(spec.Reference, "reference.dcm"), Evaluated: name(spec.Evaluated, "evaluated.dcm")}
-	ids := dicomio.PhantomIdentifiers(dicomio.DemoPatientName, spec.PatientID)
+	patient := dicomio.DemoPatientName
+	if spec.PatientName != "" {
+		patient = spec.PatientName
+	}
+	ids := dicomio.PhantomIdentifiers(patient, spec.PatientID)
 	ids.StudyDate, ids.StudyTime = "20260101", "090000"
+	if spec.StudyDate != "" {
+		ids.StudyDate = spec.StudyDate
+	}
+	ids.PatientBirthDate = spec.PatientBirthDate
 	f.FrameOfReferenceUID = ids.FrameOfReferenceUID
 
 	origin := [3]float64{-float64(dims[0]-1) / 2 * 2, -float64(dims[1]-1) / 2 * 2, -float64(dims[2]-1) / 2 * 2}
@@ -97,14 +121,18 @@ func Write(dir string, spec Spec) (*Files, error) {
 	for i, v := range ref.Data {
 		eval.Data[i] = v * float32(scale)
 	}
-	if _, err := dicomio.WriteDose(f.Reference, ref, ids, dicomio.DoseOptions("invented planning dose, Gy")); err != nil {
+	refDesc, evalDesc := "invented planning dose, Gy", "invented recalculation, Gy"
+	if spec.Description != "" {
+		refDesc, evalDesc = spec.Description, spec.Description
+	}
+	if _, err := dicomio.WriteDose(f.Reference, ref, ids, dicomio.DoseOptions(refDesc)); err != nil {
 		return nil, fmt.Errorf("batchtest: %w", err)
 	}
 	evalIDs := ids
 	if spec.EvaluatedFrame {
 		evalIDs.FrameOfReferenceUID = dicomio.NewUID()
 	}
-	opt := dicomio.DoseOptions("invented recalculation, Gy")
+	opt := dicomio.DoseOptions(evalDesc)
 	opt.SeriesNumber = 2
 	if _, err := dicomio.WriteDose(f.Evaluated, eval, evalIDs, opt); err != nil {
 		return nil, fmt.Errorf("batchtest: %w", err)
@@ -113,14 +141,30 @@ func Write(dir string, spec Spec) (*Files, error) {
 		return f, nil
 	}
 	f.Structures = name(spec.Structures, "structures.dcm")
-	set := &structure.Set{Label: "INVENTED", FrameOfReferenceUID: ids.FrameOfReferenceUID}
-	for i, it := range []struct {
+	label := "INVENTED"
+	if spec.Label != "" {
+		label = spec.Label
+	}
+	set := &structure.Set{Label: label, FrameOfReferenceUID: ids.FrameOfReferenceUID}
+	type roiSpec struct {
 		name, kind string
 		shape      phantom.Shape
-	}{
+	}
+	rois := []roiSpec{
 		{"PTV_A", "PTV", phantom.Sphere{Centre: [3]float64{0, 0, 0}, Radius: 8}},
 		{"Organ_B", "ORGAN", phantom.Sphere{Centre: [3]float64{14, 0, 0}, Radius: 5}},
-	} {
+	}
+	if spec.ROIs != nil {
+		if len(spec.ROIs) > 5 {
+			return nil, fmt.Errorf("batchtest: %d ROIs, at most 5", len(spec.ROIs))
+		}
+		rois = nil
+		for i, r := range spec.ROIs {
+			x := 8 * (float64(i) - float64(len(spec.ROIs)-1)/2)
+			rois = append(rois, roiSpec{r.Name, r.InterpretedType, phantom.Sphere{Centre: [3]float64{x, 0, 0}, Radius: 4}})
+		}
+	}
+	for i, it := range rois {
 		r, err := phantom.NewROI(it.shape, phantom.ROISpec{Name: it.name, Number: i + 1, InterpretedType: it.kind,
 			Color: [3]uint8{200, uint8(60 * i), 60}, FrameOfReferenceUID: ids.FrameOfReferenceUID, PlaneSpacing: 2, PointsPerContour: 32})
 		if err != nil {

@@ -66,7 +66,8 @@ func (f *caseFlags) outputs() batch.Outputs {
 // plain writer.
 type caseBar struct {
 	mu          sync.Mutex
-	w           io.Writer
+	w           io.Writer // the terminal: the bar's own control sequences
+	log         io.Writer // log lines
 	on          bool
 	label       string
 	done, total int
@@ -74,8 +75,8 @@ type caseBar struct {
 	drawn       bool
 }
 
-func newCaseBar(w io.Writer, quiet bool, label string) *caseBar {
-	b := &caseBar{w: w, label: label, started: time.Now()}
+func newCaseBar(w, log io.Writer, quiet bool, label string) *caseBar {
+	b := &caseBar{w: w, log: log, label: label, started: time.Now()}
 	if f, ok := w.(*os.File); ok && !quiet {
 		if st, err := f.Stat(); err == nil && st.Mode()&os.ModeCharDevice != 0 {
 			b.on = true
@@ -92,7 +93,7 @@ func (b *caseBar) Write(p []byte) (int, error) {
 		fmt.Fprint(b.w, "\r\033[K")
 		b.drawn = false
 	}
-	n, err := b.w.Write(p)
+	n, err := b.log.Write(p)
 	b.draw()
 	return n, err
 }
@@ -262,7 +263,7 @@ last line on stderr gives the counts.`,
 				defer rec.stores.close()
 				opt.Record = rec.record
 			}
-			bar := newCaseBar(g.stderr, g.quiet, "cases")
+			bar := newCaseBar(g.term, g.stderr, g.quiet, "cases")
 			opt.Log = runLogger(g, bar)
 			opt.Progress = bar.update
 			opt.MemorySource = budgetSource

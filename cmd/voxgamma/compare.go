@@ -298,7 +298,7 @@ func compareInputs(ctx context.Context, g *globals, in analysis.Inputs, s analys
 	ctx, stop := signal.NotifyContext(ctx, os.Interrupt, syscall.SIGTERM)
 	defer stop()
 	g.log.Debug("loading", "reference", in.Reference, "points", in.ReferencePoints, "evaluated", in.Evaluated, "structures", in.Structures)
-	bar := newProgress(g.stderr, g.quiet, "gamma")
+	bar := newProgress(g.term, g.quiet, "gamma")
 	s.Progress = bar.update
 	out, err := job.CompareFor(ctx, in, s, outs, force)
 	bar.done()

@@ -22,6 +22,7 @@ import (
 
 	"voxgamma/batch"
 	"voxgamma/internal/fault"
+	"voxgamma/internal/safetext"
 )
 
 // version is the voxgamma version recorded in every result.
@@ -47,7 +48,9 @@ func main() {
 // run executes the command line and returns the exit status. Every error
 // ends as one line on stderr.
 func run(args []string, stdout, stderr io.Writer) (status int) {
-	var g *globals
+	g := newGlobals(stdout, stderr)
+	stderr = g.stderr
+	defer g.flush()
 	defer func() {
 		if g != nil && g.restoreLimit != nil {
 			g.restoreLimit()
@@ -57,8 +60,7 @@ func run(args []string, stdout, stderr io.Writer) (status int) {
 			status = exitError
 		}
 	}()
-	var root *cobra.Command
-	root, g = newRoot(stdout, stderr)
+	root := newRoot(g)
 	root.SetArgs(args)
 	err := root.Execute()
 	var v *verdictError
@@ -112,8 +114,15 @@ func oneLine(s string) string {
 // globals are the options every command shares.
 type globals struct {
 	quiet, verbose bool
-	stdout, stderr io.Writer
-	log            *slog.Logger
+	// stdout and stderr escape every control character but line feeds and
+	// tabs (see internal/safetext): text from input files (ROI names,
+	// descriptions, paths) cannot drive the terminal. Every message goes
+	// through them.
+	stdout, stderr *safetext.Writer
+	// term is stderr as given, for the progress bars' own control
+	// sequences only.
+	term io.Writer
+	log  *slog.Logger
 	// outcome is the line a command that ends well leaves for stderr (run
 	// prints it, also with --quiet): a pipeline always reads the outcome
 	// on the last line.
@@ -122,8 +131,18 @@ type globals struct {
 	restoreLimit func()
 }
 
-func newRoot(stdout, stderr io.Writer) (*cobra.Command, *globals) {
-	g := &globals{stdout: stdout, stderr: stderr}
+func newGlobals(stdout, stderr io.Writer) *globals {
+	return &globals{stdout: safetext.NewWriter(stdout), stderr: safetext.NewWriter(stderr), term: stderr}
+}
+
+// flush writes what the console writers held back.
+func (g *globals) flush() {
+	g.stdout.Flush()
+	g.stderr.Flush()
+}
+
+func newRoot(g *globals) *cobra.Command {
+	stdout, stderr := g.stdout, g.stderr
 	root := &cobra.Command{
 		Use:   "voxgamma",
 		Short: "Volumetric gamma comparison of radiotherapy doses, per structure",
@@ -158,5 +177,5 @@ Exit status: 0 every rule met, 2 a rule not met, 1 could not evaluate.`,
 	root.AddCommand(newCompare(g), newDemo(g), newInspect(g), newSweep(g), newBatch(g), newBatchSummary(g), newWatch(g),
 		newRecordCmd(g), newLimits(g), newTrend(g))
 	root.Version = version
-	return root, g
+	return root
 }

@@ -14,6 +14,7 @@ import (
 	"voxgamma/analysis"
 	"voxgamma/gamma"
 	"voxgamma/internal/atomicfile"
+	"voxgamma/internal/safetext"
 	"voxgamma/job"
 	"voxgamma/result"
 )
@@ -132,7 +133,7 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 					run.Criteria.Search = 0 // 3 × each DTA
 				}
 				run.Checker = nil
-				bar := newProgress(g.stderr, g.quiet, run.Criteria.Label())
+				bar := newProgress(g.term, g.quiet, run.Criteria.Label())
 				run.Progress = bar.update
 				out, err := p.Run(ctx, run)
 				bar.done()
@@ -226,7 +227,7 @@ func writeSweepCSV(w io.Writer, doc sweepDoc) error {
 			return err
 		}
 		for _, r := range row.ROIs {
-			if err := cw.Write(append(append([]string{}, base...), r.Name, r.Kind, strconv.Itoa(r.Evaluated), f(r.PassRate), f(r.GammaMean))); err != nil {
+			if err := cw.Write(append(append([]string{}, base...), safetext.CSVCell(r.Name), safetext.CSVCell(r.Kind), strconv.Itoa(r.Evaluated), f(r.PassRate), f(r.GammaMean))); err != nil {
 				return err
 			}
 		}
