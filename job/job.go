@@ -24,6 +24,7 @@ import (
 	"voxgamma/analysis"
 	"voxgamma/dicomio"
 	"voxgamma/gamma"
+	"voxgamma/internal/atomicfile"
 	"voxgamma/metaimage"
 	"voxgamma/protocol"
 	"voxgamma/report"
@@ -266,8 +267,10 @@ func (o Outputs) List() []string {
 }
 
 // Check refuses, before any computation, output paths that would replace an
-// input or another output, existing files unless force, missing or
-// unwritable directories and map names without a known extension.
+// input or another output, existing files unless force, anything but a
+// regular file even with force (a directory, symbolic link, named pipe,
+// socket or device node), missing or unwritable directories and map names
+// without a known extension.
 func (o Outputs) Check(inputs []string, force bool) error {
 	seen := map[string]string{}
 	in := map[string]bool{}
@@ -293,11 +296,13 @@ func (o Outputs) Check(inputs []string, force bool) error {
 			return fmt.Errorf("output %s is named twice (also as %s)", p, other)
 		}
 		seen[c] = p
-		if st, err := os.Stat(p); err == nil {
-			if st.IsDir() {
+		if st, err := os.Lstat(p); err == nil {
+			switch {
+			case st.IsDir():
 				return fmt.Errorf("output %s is a directory", p)
-			}
-			if !force {
+			case !st.Mode().IsRegular():
+				return fmt.Errorf("output %s is %s, not a regular file: refusing to replace it (--force overwrites regular files only)", p, atomicfile.Kind(st.Mode()))
+			case !force:
 				return fmt.Errorf("output %s exists (pass --force to overwrite)", p)
 			}
 		}
@@ -476,6 +481,10 @@ func Write(o Outputs, out *analysis.Outcome, deidentify bool) (err error) {
 		return err
 	}
 	for i, s := range done {
+		if err := atomicfile.CheckTarget(s.final); err != nil {
+			done = done[i:]
+			return err
+		}
 		if err := os.Rename(s.tmp, s.final); err != nil {
 			// Those already renamed stay (complete); the rest are removed.
 			done = done[i:]

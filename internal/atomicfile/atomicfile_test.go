@@ -5,6 +5,8 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"strings"
+	"syscall"
 	"testing"
 )
 
@@ -63,5 +65,39 @@ func assertOnly(t *testing.T, dir string, names ...string) {
 			got = append(got, e.Name())
 		}
 		t.Fatalf("directory holds %v, want only %v", got, names)
+	}
+}
+
+// TestWriteRegularFilesOnly: Write replaces a regular file but refuses a
+// named pipe, a directory and a symbolic link, leaving them as they were
+// and no temporary file behind.
+func TestWriteRegularFilesOnly(t *testing.T) {
+	dir := t.TempDir()
+	fifo := filepath.Join(dir, "fifo")
+	if err := syscall.Mkfifo(fifo, 0o644); err != nil {
+		t.Skipf("no FIFO: %v", err)
+	}
+	sub := filepath.Join(dir, "sub")
+	os.Mkdir(sub, 0o755)
+	link := filepath.Join(dir, "link")
+	os.Symlink(filepath.Join(dir, "elsewhere"), link)
+	for _, p := range []string{fifo, sub, link} {
+		err := WriteBytes(p, []byte("x"))
+		if err == nil || !strings.Contains(err.Error(), "not a regular file") {
+			t.Errorf("%s: %v", p, err)
+		}
+	}
+	if st, _ := os.Lstat(fifo); st.Mode()&os.ModeNamedPipe == 0 {
+		t.Error("the FIFO was replaced")
+	}
+	reg := filepath.Join(dir, "reg")
+	if err := WriteBytes(reg, []byte("a")); err != nil {
+		t.Fatal(err)
+	}
+	if err := WriteBytes(reg, []byte("b")); err != nil {
+		t.Fatal(err)
+	}
+	if names, _ := os.ReadDir(dir); len(names) != 4 {
+		t.Errorf("%d entries left", len(names))
 	}
 }
