@@ -20,6 +20,7 @@ import (
 
 	"voxgamma/analysis"
 	"voxgamma/internal/fault"
+	"voxgamma/internal/pathcheck"
 	"voxgamma/job"
 	"voxgamma/result"
 )
@@ -55,8 +56,13 @@ type Outputs struct {
 
 // Options configure a batch run.
 type Options struct {
-	// Out is the batch's output folder (created if needed).
+	// Out is the batch's output folder (created if needed). It may not
+	// overlap an input: be one, contain one or lie inside an input folder
+	// (see [CheckOut]).
 	Out string
+	// Manifest is the manifest file the cases came from, checked against
+	// Out like the inputs ("" when none).
+	Manifest string
 	// DefaultProtocol is used by cases that name none; empty means
 	// DefaultProtocol ("tg218").
 	DefaultProtocol string
@@ -233,6 +239,9 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 		rep.Workers = max(1, AvailableCPUs()/rep.Jobs)
 	}
 
+	if err := CheckOut(opt.Out, opt.Manifest, cases); err != nil {
+		return nil, err
+	}
 	casesDir := filepath.Join(opt.Out, CasesDir)
 	if err := os.MkdirAll(casesDir, 0o755); err != nil {
 		return nil, fmt.Errorf("batch: creating the output folder: %w", err)
@@ -367,6 +376,28 @@ feed:
 		return rep, fmt.Errorf("batch interrupted: %d of %d cases not finished (run the same command again to resume): %w", rep.NotRun, len(mine), err)
 	}
 	return rep, nil
+}
+
+// CheckOut refuses an output folder that overlaps an input of the cases
+// (reference, evaluated dose, structures, a protocol file) or the manifest:
+// the output folder may not be an input, contain one (a case folder
+// replaced, a stale temporary folder removed, would take it along) or lie
+// inside an input folder (whose content, and so its hash, would change).
+// Paths are compared as written and with symbolic links resolved.
+func CheckOut(out, manifest string, cases []Case) error {
+	inputs := []string{manifest}
+	for _, c := range cases {
+		inputs = append(inputs, c.Reference, c.Evaluated, c.Structures)
+		if c.Protocol != "" {
+			if st, err := os.Stat(c.Protocol); err == nil && !st.IsDir() {
+				inputs = append(inputs, c.Protocol)
+			}
+		}
+	}
+	if err := pathcheck.FolderOverlap(out, inputs); err != nil {
+		return fmt.Errorf("batch: --out: %w: an output folder may never hold, replace or remove an input; give a folder apart from the inputs", err)
+	}
+	return nil
 }
 
 type outcome int

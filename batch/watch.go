@@ -20,6 +20,7 @@ import (
 	"voxgamma/dicomio"
 	"voxgamma/internal/atomicfile"
 	"voxgamma/internal/fault"
+	"voxgamma/internal/pathcheck"
 	"voxgamma/job"
 )
 
@@ -236,6 +237,7 @@ type watchState struct {
 type Watcher struct {
 	opt          WatchOptions
 	dir, out     string
+	outInfo      os.FileInfo // the results folder, to skip it however it is named
 	refRules     []matchRule
 	evalRules    []matchRule
 	settings     analysis.Settings
@@ -270,6 +272,9 @@ func NewWatcher(opt WatchOptions) (*Watcher, error) {
 	if w.out, err = filepath.Abs(w.out); err != nil {
 		return nil, fmt.Errorf("watch: %w", err)
 	}
+	if err := checkWatchOut(w.dir, w.out); err != nil {
+		return nil, err
+	}
 	if w.opt.Settle <= 0 {
 		w.opt.Settle = DefaultSettle
 	}
@@ -300,6 +305,9 @@ func NewWatcher(opt WatchOptions) (*Watcher, error) {
 	if err := os.MkdirAll(w.out, 0o755); err != nil {
 		return nil, fmt.Errorf("watch: creating %s: %w", w.out, err)
 	}
+	if w.outInfo, err = os.Stat(w.out); err != nil {
+		return nil, fmt.Errorf("watch: %w", err)
+	}
 	if err := w.loadState(); err != nil {
 		return nil, err
 	}
@@ -316,6 +324,33 @@ func NewWatcher(opt WatchOptions) (*Watcher, error) {
 
 // Out is the results folder.
 func (w *Watcher) Out() string { return w.out }
+
+// checkWatchOut refuses a results folder that overlaps the watched folder
+// dir (both absolute): the watched folder itself (results would be written
+// among the cases, and a broken case moved aside with them), a folder
+// containing it, a folder inside a case subfolder (moved away with the
+// case) or the folder broken cases are moved into. An immediate subfolder
+// of dir, like the default dir/.voxgamma, is allowed: the scan skips it.
+// Symbolic links are resolved.
+func checkWatchOut(dir, out string) error {
+	d, o := pathcheck.Resolve(dir), pathcheck.Resolve(out)
+	const advice = ": an output folder may never hold, replace or remove an input; give a folder outside the watched one (or leave --out out for DIR/" + DefaultWatchOut + ")"
+	switch {
+	case o == d:
+		return fmt.Errorf("watch: --out %s is the watched folder %s%s", out, dir, advice)
+	case pathcheck.Within(d, o):
+		return fmt.Errorf("watch: --out %s contains the watched folder %s%s", out, dir, advice)
+	case pathcheck.Within(o, d):
+		rel, _ := filepath.Rel(d, o)
+		if strings.Contains(rel, string(filepath.Separator)) {
+			return fmt.Errorf("watch: --out %s is inside the case folder %s of the watched folder%s", out, filepath.Join(dir, strings.SplitN(rel, string(filepath.Separator), 2)[0]), advice)
+		}
+		if rel == FailedDir {
+			return fmt.Errorf("watch: --out %s is the folder broken cases are moved into%s", out, advice)
+		}
+	}
+	return nil
+}
 
 func (w *Watcher) statePath() string { return filepath.Join(w.out, WatchStateFile) }
 
@@ -388,7 +423,7 @@ func (w *Watcher) scan() (map[string][]string, error) {
 		case e.Type().IsRegular():
 			units["."] = append(units["."], p)
 		case e.IsDir():
-			if p == w.out {
+			if st, err := os.Stat(p); err == nil && os.SameFile(st, w.outInfo) {
 				continue
 			}
 			sub, err := os.ReadDir(p)

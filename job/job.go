@@ -25,6 +25,7 @@ import (
 	"voxgamma/dicomio"
 	"voxgamma/gamma"
 	"voxgamma/internal/atomicfile"
+	"voxgamma/internal/pathcheck"
 	"voxgamma/metaimage"
 	"voxgamma/protocol"
 	"voxgamma/report"
@@ -267,7 +268,7 @@ func (o Outputs) List() []string {
 }
 
 // Check refuses, before any computation, output paths that would replace an
-// input or another output, existing files unless force, anything but a
+// input or another output, or land inside an input folder, existing files unless force, anything but a
 // regular file even with force (a directory, symbolic link, named pipe,
 // socket or device node), missing or unwritable directories and map names
 // without a known extension.
@@ -291,6 +292,9 @@ func (o Outputs) Check(inputs []string, force bool) error {
 		c := canonical(p)
 		if in[c] {
 			return fmt.Errorf("output %s is an input file: refusing to overwrite it", p)
+		}
+		if folder := pathcheck.FileInFolder(p, inputs); folder != "" {
+			return fmt.Errorf("output %s is inside the input folder %s: refusing to write into an input (write the outputs elsewhere)", p, folder)
 		}
 		if other, dup := seen[c]; dup {
 			return fmt.Errorf("output %s is named twice (also as %s)", p, other)

@@ -219,7 +219,7 @@ last line on stderr gives the counts.`,
 			if err != nil {
 				return err
 			}
-			opt := batch.Options{Out: out, DefaultProtocol: f.protocol, Overrides: f.overrides(cmd), Outputs: f.outputs(),
+			opt := batch.Options{Out: out, Manifest: args[0], DefaultProtocol: f.protocol, Overrides: f.overrides(cmd), Outputs: f.outputs(),
 				AllowFrameMismatch: f.allowFrameMismatch, Jobs: jobs, Rerun: rerun}
 			if jobs < 0 {
 				return fmt.Errorf("--jobs %d: want 1 or more (0: as the budget allows, at most the core count)", jobs)

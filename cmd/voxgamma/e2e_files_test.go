@@ -6,6 +6,8 @@ import (
 	"path/filepath"
 	"syscall"
 	"testing"
+
+	"voxgamma/batch/batchtest"
 )
 
 // TestForceRegularFilesOnly: --force overwrites regular files only. An
@@ -62,4 +64,101 @@ func TestForceRegularFilesOnly(t *testing.T) {
 	if names := testDirNames(t, dir); len(names) != 5 {
 		t.Errorf("left behind: %v", names)
 	}
+}
+
+// snapshot lists every file under dir with its size: what must be left
+// exactly as it was.
+func snapshot(t *testing.T, dir string) map[string]int64 {
+	t.Helper()
+	m := map[string]int64{}
+	filepath.Walk(dir, func(p string, info os.FileInfo, err error) error {
+		if err == nil {
+			m[p] = info.Size()
+			if info.IsDir() {
+				m[p] = -1
+			}
+		}
+		return nil
+	})
+	return m
+}
+
+func sameSnapshot(t *testing.T, what string, before, after map[string]int64) {
+	t.Helper()
+	for p, n := range before {
+		if m, ok := after[p]; !ok || m != n {
+			t.Errorf("%s: %s changed or removed", what, p)
+		}
+	}
+	for p := range after {
+		if _, ok := before[p]; !ok {
+			t.Errorf("%s: %s was created among the inputs", what, p)
+		}
+	}
+}
+
+// TestOutputNeverOverInput: an output folder may never contain, replace or
+// remove an input. watch with --out the watched folder (the case:
+// the results went into the case folder and both DICOM files were deleted),
+// batch with --out a folder holding the inputs under cases/<id>/, and each
+// of these through a symbolic link, or with the output inside an input
+// folder, are refused up front: exit 1, one line naming both, every input
+// file as it was and nothing written among them.
+func TestOutputNeverOverInput(t *testing.T) {
+	sw := t.TempDir()
+	if _, err := batchtest.Write(filepath.Join(sw, "c1"), batchtest.Spec{Reference: "ref.dcm", Evaluated: "eval.dcm"}); err != nil {
+		t.Fatal(err)
+	}
+	btSettleAll(t, sw)
+	link := filepath.Join(t.TempDir(), "link")
+	os.Symlink(sw, link)
+	before := snapshot(t, sw)
+	for _, c := range []struct {
+		out, want string
+	}{
+		{sw, "is the watched folder"},
+		{link, "is the watched folder"},
+		{filepath.Dir(sw), "contains the watched folder"},
+		{filepath.Join(sw, "c1", "res"), "inside the case folder"},
+		{filepath.Join(sw, ".failed"), "broken cases are moved into"},
+	} {
+		r := vgExit(t, exitError, "watch", sw, "--out", c.out, "--once", "--settle", "1s", "--poll", "50ms")
+		oneErrorLine(t, r, c.out, c.want)
+		sameSnapshot(t, "watch --out "+c.out, before, snapshot(t, sw))
+	}
+
+	bd := t.TempDir()
+	for _, id := range []string{"c1", "c2"} {
+		if _, err := batchtest.Write(filepath.Join(bd, "cases", id), batchtest.Spec{}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	manifest := filepath.Join(t.TempDir(), "m.csv")
+	os.WriteFile(manifest, []byte("id,reference,evaluated,structures\n"+
+		"c1,"+bd+"/cases/c1/reference.dcm,"+bd+"/cases/c1/evaluated.dcm,"+bd+"/cases/c1/structures.dcm\n"+
+		"c2,"+bd+"/cases/c2,"+bd+"/cases/c2/evaluated.dcm,\n"), 0o644)
+	blink := filepath.Join(t.TempDir(), "blink")
+	os.Symlink(bd, blink)
+	before = snapshot(t, bd)
+	for _, c := range []struct{ out, want string }{
+		{bd, "contains the input"},
+		{blink, "contains the input"},
+		{filepath.Join(bd, "cases", "c1", "reference.dcm"), "is the input"},
+		{filepath.Join(bd, "cases", "c2", "out"), "is inside the input folder"},
+		{filepath.Dir(manifest), "contains the input " + manifest},
+	} {
+		status, _, stderr := btRun("batch", manifest, "--out", c.out)
+		if status != exitError {
+			t.Errorf("batch --out %s: exit %d", c.out, status)
+		}
+		oneErrorLine(t, invocation{stderr: stderr}, c.out, c.want)
+		sameSnapshot(t, "batch --out "+c.out, before, snapshot(t, bd))
+	}
+
+	// compare: an output inside a folder given as an input.
+	before = snapshot(t, bd)
+	r := vgExit(t, exitError, "compare", "--reference", filepath.Join(bd, "cases", "c2"), "--evaluated", filepath.Join(bd, "cases", "c1", "evaluated.dcm"),
+		"--json", filepath.Join(bd, "cases", "c2", "r.json"), "--force")
+	oneErrorLine(t, r, "inside the input folder")
+	sameSnapshot(t, "compare", before, snapshot(t, bd))
 }
