@@ -246,6 +246,13 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 	if err := os.MkdirAll(casesDir, 0o755); err != nil {
 		return nil, fmt.Errorf("batch: creating the output folder: %w", err)
 	}
+	// One run per output folder (per shard): another run's temporary
+	// folders would otherwise look stale and be removed under it.
+	lock, err := acquireLock(opt.Out, shard, log)
+	if err != nil {
+		return nil, err
+	}
+	defer lock.release()
 	owned := map[string]bool{}
 	for _, c := range mine {
 		owned[c.ID] = true
@@ -290,6 +297,7 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 	var wg sync.WaitGroup
 	var reachedMu sync.Mutex
 	reached := map[string]bool{}
+	notWritten := map[string]string{}
 	for range rep.Jobs {
 		wg.Add(1)
 		go func() {
@@ -301,7 +309,12 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 				}
 				r := protos[name]
 				w := caseWork{c: c, protocolName: name, settings: r.s, settingsHash: r.hash, outs: opt.Outputs, allowFM: opt.AllowFrameMismatch}
-				outcome := runOneProtected(ctx, casesDir, w, r.err, opt.Rerun, mem, rep.Budget, log)
+				outcome, unwritten := runOneProtected(ctx, casesDir, w, r.err, opt.Rerun, mem, rep.Budget, log)
+				if unwritten != "" {
+					reachedMu.Lock()
+					notWritten[c.ID] = unwritten
+					reachedMu.Unlock()
+				}
 				switch outcome {
 				case outcomeComputed:
 					computed.Add(1)
@@ -348,6 +361,13 @@ feed:
 	rep.NotRun = int(notRun.Load()) + len(mine) - fed
 
 	sum := BuildSummary([]string{opt.Out}, mine)
+	for i := range sum.Rows {
+		// A case whose folder could not be written could not be
+		// evaluated, whatever an older folder of it says.
+		if msg, ok := notWritten[sum.Rows[i].ID]; ok {
+			sum.replace(i, Row{ID: sum.Rows[i].ID, Verdict: VerdictError, Targets: []ROIRate{}, Error: "case folder not written: " + msg})
+		}
+	}
 	if rep.NotRun > 0 {
 		// A folder left by an earlier run may not match this run's
 		// settings: a case this run did not reach is "not run".
@@ -412,7 +432,7 @@ const (
 // the whole process (and every other case with it) whatever the command
 // recovers: the panic becomes this case's error instead, written to its
 // folder like any other case that could not be evaluated.
-func runOneProtected(ctx context.Context, casesDir string, w caseWork, protoErr error, rerun bool, mem *semaphore.Weighted, budget int64, log *slog.Logger) (out outcome) {
+func runOneProtected(ctx context.Context, casesDir string, w caseWork, protoErr error, rerun bool, mem *semaphore.Weighted, budget int64, log *slog.Logger) (out outcome, unwritten string) {
 	defer func() {
 		if p := recover(); p != nil {
 			err := fmt.Errorf("internal error: %v (please report it)", p)
@@ -420,6 +440,7 @@ func runOneProtected(ctx context.Context, casesDir string, w caseWork, protoErr 
 			st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, caseMessage(w.c.ID, err)
 			if ierr := writeErrorCase(casesDir, st); ierr != nil {
 				log.Error("case folder not written", "id", w.c.ID, "error", ierr.Error())
+				unwritten = st.Error + "; " + oneLine(ierr.Error())
 			}
 			log.Error("case failed", "id", w.c.ID, "error", st.Error)
 			out = outcomeComputed
@@ -430,22 +451,25 @@ func runOneProtected(ctx context.Context, casesDir string, w caseWork, protoErr 
 }
 
 // runOne runs one case of a batch: the resume check, the memory
-// estimate, waiting for budget, the comparison, the case folder.
-func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, rerun bool, mem *semaphore.Weighted, budget int64, log *slog.Logger) outcome {
+// estimate, waiting for budget, the comparison, the case folder. unwritten
+// says why the case's folder could not be written ("" when it was, or the
+// case was skipped or interrupted).
+func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, rerun bool, mem *semaphore.Weighted, budget int64, log *slog.Logger) (_ outcome, unwritten string) {
 	c := w.c
 	if ctx.Err() != nil {
-		return outcomeInterrupted
+		return outcomeInterrupted, ""
 	}
 	final := filepath.Join(casesDir, c.ID)
 	prev, _ := ReadStatus(final)
-	fail := func(err error) outcome {
+	fail := func(err error) (outcome, string) {
 		st := newStatus(w, nil, prev)
 		st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, caseMessage(c.ID, err)
 		if ierr := writeErrorCase(casesDir, st); ierr != nil {
 			log.Error("case folder not written", "id", c.ID, "error", ierr.Error())
+			return outcomeComputed, st.Error + "; " + oneLine(ierr.Error())
 		}
 		log.Info("case finished", "id", c.ID, "verdict", st.Verdict, "seconds", 0.0, "error", st.Error)
-		return outcomeComputed
+		return outcomeComputed, ""
 	}
 	if protoErr != nil {
 		return fail(fmt.Errorf("protocol %s: %w", w.protocolName, protoErr))
@@ -456,7 +480,7 @@ func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, re
 	}
 	if !rerun && upToDate(prev, inputs, w.settingsHash, final) {
 		log.Info("case skipped (up to date)", "id", c.ID, "verdict", prev.Verdict)
-		return outcomeSkipped
+		return outcomeSkipped, ""
 	}
 	need, err := EstimateCase(c)
 	if err != nil {
@@ -466,7 +490,7 @@ func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, re
 		return fail(fmt.Errorf("needs about %s of memory (estimated from its dose grids), more than the whole memory budget of %s: give more with --max-memory, or run it on a larger machine", FormatBytes(need), FormatBytes(budget)))
 	}
 	if err := mem.Acquire(ctx, need); err != nil {
-		return outcomeInterrupted
+		return outcomeInterrupted, ""
 	}
 	defer mem.Release(need)
 	log.Info("case started", "id", c.ID, "memory_estimate", FormatBytes(need))
@@ -474,17 +498,17 @@ func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, re
 	if err != nil {
 		if ctx.Err() != nil {
 			log.Info("case interrupted", "id", c.ID)
-			return outcomeInterrupted
+			return outcomeInterrupted, ""
 		}
 		log.Error("case folder not written", "id", c.ID, "error", err.Error())
-		return outcomeComputed
+		return outcomeComputed, oneLine(err.Error())
 	}
 	attrs := []any{"id", c.ID, "verdict", st.Verdict, "seconds", round3(st.Seconds)}
 	if st.Error != "" {
 		attrs = append(attrs, "error", st.Error)
 	}
 	log.Info("case finished", attrs...)
-	return outcomeComputed
+	return outcomeComputed, ""
 }
 
 // caseMessage is err in one line for a case's status and the summary,

@@ -1,12 +1,18 @@
 package main
 
 import (
+	"encoding/json"
+	"fmt"
 	"net"
 	"os"
+	"os/exec"
 	"path/filepath"
+	"strings"
 	"syscall"
 	"testing"
+	"time"
 
+	"voxgamma/batch"
 	"voxgamma/batch/batchtest"
 )
 
@@ -161,4 +167,104 @@ func TestOutputNeverOverInput(t *testing.T) {
 		"--json", filepath.Join(bd, "cases", "c2", "r.json"), "--force")
 	oneErrorLine(t, r, "inside the input folder")
 	sameSnapshot(t, "compare", before, snapshot(t, bd))
+}
+
+// writeLock plants a batch lock file as a run with that PID on that host
+// would have left it (the layout of batch.LockFile: JSON with pid, host,
+// started, shard).
+func writeLock(t *testing.T, path string, pid int, host, shard string, age time.Duration) {
+	t.Helper()
+	data, _ := json.Marshal(map[string]any{"pid": pid, "host": host, "started": "2026-01-01T00:00:00Z", "shard": shard})
+	if err := os.WriteFile(path, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	old := time.Now().Add(-age)
+	os.Chtimes(path, old, old)
+}
+
+// TestBatchOneRunPerFolder: one batch run per output folder. A lock held
+// by a live process (a real child process of the test, on this host) makes
+// a second batch on the same --out exit 1 with one line naming the PID,
+// the host and the lock file, before any case folder is touched; a lock
+// left by a process that has exited is taken over with a message naming
+// it; a lock from another host is honoured while it is refreshed and taken
+// over once stale. Shards of one count lock apart and run side by side; an
+// unsharded run and a shard of another count do not. The lock is gone when
+// the run ends.
+func TestBatchOneRunPerFolder(t *testing.T) {
+	dir := t.TempDir()
+	manifest := btWriteManifest(t, dir, []btCase{{id: "c1"}, {id: "c2"}})
+	out := filepath.Join(t.TempDir(), "out")
+	os.MkdirAll(filepath.Join(out, batch.CasesDir), 0o755)
+	// A half-built case folder of the live run: must survive the refused
+	// second run (it removed it as stale before).
+	inProgress := filepath.Join(out, batch.CasesDir, ".c1.tmp-123")
+	os.Mkdir(inProgress, 0o755)
+	host, _ := os.Hostname()
+	lock := filepath.Join(out, batch.LockFile)
+
+	live := exec.Command("sleep", "60")
+	if err := live.Start(); err != nil {
+		t.Skipf("cannot start a child process: %v", err)
+	}
+	defer live.Process.Kill()
+	writeLock(t, lock, live.Process.Pid, host, "", 0)
+	status, _, stderr := btRun("batch", manifest, "--out", out)
+	if status != exitError {
+		t.Fatalf("second run on a locked folder: exit %d\n%s", status, stderr)
+	}
+	oneErrorLine(t, invocation{stderr: stderr}, "in use by another batch run", fmt.Sprintf("PID %d on host %s", live.Process.Pid, host), lock)
+	if _, err := os.Stat(inProgress); err != nil {
+		t.Errorf("the live run's temporary folder was removed: %v", err)
+	}
+	if names := testDirNames(t, filepath.Join(out, batch.CasesDir)); len(names) != 1 {
+		t.Errorf("case folders written by a refused run: %v", names)
+	}
+	// A shard of any count is refused too while the whole run holds it.
+	if status, _, _ := btRun("batch", manifest, "--out", out, "--shard", "0/2"); status != exitError {
+		t.Errorf("shard beside a live unsharded run: exit %d", status)
+	}
+
+	// The owner dies: its lock is taken over, with a message.
+	live.Process.Kill()
+	live.Wait()
+	status, _, stderr = btRun("batch", manifest, "--out", out)
+	if status != exitPass {
+		t.Fatalf("after the owner died: exit %d\n%s", status, stderr)
+	}
+	if !strings.Contains(stderr, "took over a stale lock") || !strings.Contains(stderr, fmt.Sprintf("PID %d on this host", live.Process.Pid)) {
+		t.Errorf("no take-over message:\n%s", stderr)
+	}
+	if _, err := os.Stat(lock); !os.IsNotExist(err) {
+		t.Errorf("lock left after the run: %v", err)
+	}
+
+	// Another host: honoured while fresh, taken over when stale.
+	writeLock(t, lock, 4242, "other-host.example", "", time.Minute)
+	status, _, stderr = btRun("batch", manifest, "--out", out, "--rerun")
+	if status != exitError {
+		t.Fatalf("fresh lock of another host: exit %d", status)
+	}
+	oneErrorLine(t, invocation{stderr: stderr}, "PID 4242 on host other-host.example")
+	writeLock(t, lock, 4242, "other-host.example", "", time.Hour)
+	if status, _, stderr = btRun("batch", manifest, "--out", out); status != exitPass || !strings.Contains(stderr, "not refreshed") {
+		t.Fatalf("stale lock of another host: exit %d\n%s", status, stderr)
+	}
+
+	// Shards: 1/2 runs beside a live 0/2; an unsharded run and 1/3 do not.
+	live2 := exec.Command("sleep", "60")
+	if err := live2.Start(); err != nil {
+		t.Fatal(err)
+	}
+	defer live2.Process.Kill()
+	writeLock(t, filepath.Join(out, ".voxgamma-batch.shard-0-of-2.lock"), live2.Process.Pid, host, "0/2", 0)
+	if status, _, stderr := btRun("batch", manifest, "--out", out, "--shard", "1/2", "--rerun"); status != exitPass {
+		t.Errorf("shard 1/2 beside shard 0/2: exit %d\n%s", status, stderr)
+	}
+	for _, args := range [][]string{{}, {"--shard", "1/3"}, {"--shard", "0/2"}} {
+		status, _, stderr := btRun(append([]string{"batch", manifest, "--out", out}, args...)...)
+		if status != exitError || !strings.Contains(stderr, "shard 0/2") {
+			t.Errorf("batch %v beside shard 0/2: exit %d\n%s", args, status, stderr)
+		}
+	}
 }
