@@ -40,6 +40,19 @@ type Inputs struct {
 	// set: none is looked for in the reference folder, Structures must be
 	// empty, and per-ROI rules are not applicable.
 	NoStructures bool
+	// Seen, when not nil, is told of every file as it is about to be read
+	// (dose and set nil) and once its header has been read: role is
+	// "reference", "evaluated", "structures" or "reference points" for the
+	// files compared, "" for the other files of a folder scanned. The
+	// de-identification learns there what to remove from messages before
+	// any message can name it.
+	Seen func(role, path string, dose *dicomio.DoseInfo, set *structure.Set)
+}
+
+func (in Inputs) seen(role, path string, dose *dicomio.DoseInfo, set *structure.Set) {
+	if in.Seen != nil && path != "" {
+		in.Seen(role, path, dose, set)
+	}
 }
 
 // Loaded is everything read for one comparison, checked for consistency.
@@ -90,16 +103,20 @@ func Load(in Inputs) (*Loaded, error) {
 		return nil, badInput("a structure set (%s) was given with --no-structures: give one or the other", in.Structures)
 	}
 
+	in.seen("reference", in.Reference, nil, nil)
+	in.seen("reference points", in.ReferencePoints, nil, nil)
+	in.seen("evaluated", in.Evaluated, nil, nil)
+	in.seen("structures", in.Structures, nil, nil)
 	// Evaluated first: the reference points are in its coordinates. A
 	// folder never yields the file given as the other dose, and when both
 	// are folders the words of the files decide which is which.
-	evalPath, _, evalAccount, err := resolveDose(in.Evaluated, dicomio.ChooseOptions{Role: dicomio.EvaluatedRole,
+	evalPath, _, evalAccount, err := in.resolveDose("evaluated", in.Evaluated, dicomio.ChooseOptions{Role: dicomio.EvaluatedRole,
 		Exclude: []string{fileOnly(in.Reference)}, ExcludeRole: dicomio.ReferenceRole})
 	if err != nil {
 		return nil, err
 	}
 	l.Notes = append(l.Notes, evalAccount...)
-	if l.Evaluated, l.EvaluatedInfo, err = readDose(evalPath, "evaluated dose"); err != nil {
+	if l.Evaluated, l.EvaluatedInfo, err = in.readDose(evalPath, "evaluated dose", "evaluated"); err != nil {
 		return nil, err
 	}
 	if err := l.addDoseInput("evaluated", evalPath, l.EvaluatedInfo, l.Evaluated); err != nil {
@@ -108,7 +125,7 @@ func Load(in Inputs) (*Loaded, error) {
 
 	structuresPath := in.Structures
 	if in.Reference != "" {
-		refPath, folderRS, account, err := resolveDose(in.Reference, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
+		refPath, folderRS, account, err := in.resolveDose("reference", in.Reference, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
 			Exclude: []string{evalPath}, ExcludeRole: dicomio.EvaluatedRole})
 		if err != nil {
 			return nil, err
@@ -117,7 +134,7 @@ func Load(in Inputs) (*Loaded, error) {
 		if refPath == evalPath {
 			return nil, badInput("%s is both the reference and the evaluated dose", refPath)
 		}
-		if l.Reference, l.ReferenceInfo, err = readDose(refPath, "reference"); err != nil {
+		if l.Reference, l.ReferenceInfo, err = in.readDose(refPath, "reference", "reference"); err != nil {
 			return nil, err
 		}
 		if err := l.addDoseInput("reference", refPath, l.ReferenceInfo, l.Reference); err != nil {
@@ -143,9 +160,11 @@ func Load(in Inputs) (*Loaded, error) {
 	}
 
 	if structuresPath != "" {
+		in.seen("structures", structuresPath, nil, nil)
 		if l.Structures, err = dicomio.ReadStructureSet(structuresPath); err != nil {
 			return nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 		}
+		in.seen("structures", structuresPath, nil, l.Structures)
 		sum, err := fileSHA256(structuresPath)
 		if err != nil {
 			return nil, badInput("reading %s: %v", structuresPath, err)
@@ -188,8 +207,9 @@ func fileOnly(path string) string {
 // resolveDose returns the RT Dose file named by path: path itself, or the
 // plan dose chosen in a folder (see dicomio.Folder.ChooseFor), with the
 // structure set chosen with it ("" when none) and the account of the
-// choice.
-func resolveDose(path string, opt dicomio.ChooseOptions) (dose, structures string, account []string, err error) {
+// choice. Every file of a folder is reported to Seen (role "" but for the
+// chosen ones, which get seenRole).
+func (in Inputs) resolveDose(seenRole, path string, opt dicomio.ChooseOptions) (dose, structures string, account []string, err error) {
 	st, err := os.Stat(path)
 	if err != nil {
 		return "", "", nil, badInput("%v", err)
@@ -201,24 +221,38 @@ func resolveDose(path string, opt dicomio.ChooseOptions) (dose, structures strin
 	if err != nil {
 		return "", "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 	}
+	for _, d := range folder.Doses {
+		in.seen("", d.Path, d.Info, nil)
+	}
+	for _, s := range folder.StructureSets {
+		in.seen("", s.Path, nil, s.Set)
+	}
+	for _, ig := range folder.Ignored {
+		in.seen("", ig.Path, nil, nil)
+	}
 	choice, err := folder.ChooseFor(opt)
 	if err != nil {
 		return "", "", nil, fmt.Errorf("%w: folder %s (for the %s): %w", ErrBadInput, path, opt.Role, err)
 	}
 	if choice.StructureSet != nil {
 		structures = choice.StructureSet.Path
+		in.seen("structures", structures, nil, choice.StructureSet.Set)
 	}
+	in.seen(seenRole, choice.Dose.Path, choice.Dose.Info, nil)
 	return choice.Dose.Path, structures, choice.Account, nil
 }
 
 // readDose reads the dose given for role ("reference", "evaluated dose"),
 // refusing a map of disagreement (DoseType ERROR: a gamma or difference
-// map) in either role.
-func readDose(path, role string) (*volume.Grid, *dicomio.DoseInfo, error) {
+// map) in either role. Seen learns of the file as seenRole before it is
+// read and with its header after.
+func (in Inputs) readDose(path, role, seenRole string) (*volume.Grid, *dicomio.DoseInfo, error) {
+	in.seen(seenRole, path, nil, nil)
 	g, info, err := dicomio.ReadDose(path)
 	if err != nil {
 		return nil, nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 	}
+	in.seen(seenRole, path, info, nil)
 	if why := info.DisagreementMap(); why != "" {
 		return nil, nil, badInput("%s %s: %s; give a dose as the %s", role, path, why, role)
 	}

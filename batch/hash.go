@@ -19,7 +19,8 @@ import (
 type InputHash struct {
 	// Role is "reference", "evaluated" or "structures".
 	Role string `json:"role"`
-	// Path as resolved from the manifest (absolute).
+	// Path as resolved from the manifest (absolute); the role alone when
+	// de-identified. Resume compares roles and hashes, not paths.
 	Path string `json:"path"`
 	// SHA256 of the file's bytes, hex; for a folder, of its listing of
 	// regular files (name and SHA-256 of each, sorted by name).
@@ -101,12 +102,16 @@ func HashInputs(c Case) ([]InputHash, error) {
 	return out, nil
 }
 
+// sameInputs reports whether two lists name the same inputs by role and
+// content (SHA-256, file or folder), whatever their paths: a study moved
+// to another disk, or a de-identified status that records no paths, still
+// resumes.
 func sameInputs(a, b []InputHash) bool {
 	if len(a) != len(b) {
 		return false
 	}
 	for i := range a {
-		if a[i] != b[i] {
+		if a[i].Role != b[i].Role || a[i].SHA256 != b[i].SHA256 || a[i].Folder != b[i].Folder {
 			return false
 		}
 	}
@@ -141,6 +146,9 @@ type settingsKey struct {
 	AllowFrameMismatch bool               `json:"allow_frame_mismatch"`
 	NoStructures       bool               `json:"no_structures"`
 	AcceptNormDose     bool               `json:"accept_norm_dose"`
+	// DeidentifyKey is deid.Key.ID: a new site key reruns a case; random
+	// keys ("per-run") do not.
+	DeidentifyKey string `json:"deidentify_key,omitempty"`
 }
 
 // SettingsHash returns the hex SHA-256 of the canonical JSON of everything
@@ -157,6 +165,9 @@ func SettingsHash(p *protocol.Protocol, s analysis.Settings, o Outputs, allowFra
 		SubGrid: s.SubGridROIs, SubGridStep: s.SubGridStep, MinClusterCC: s.MinClusterCC,
 		GammaMap: o.GammaMap, DifferenceMap: o.DifferenceMap, Report: o.Report, Deidentify: o.Deidentify,
 		AllowFrameMismatch: allowFrameMismatch, NoStructures: s.Choices.NoStructures, AcceptNormDose: s.AcceptNormDose,
+	}
+	if o.Deidentify {
+		k.DeidentifyKey = o.KeyID
 	}
 	for _, r := range s.KindRules {
 		k.KindRules = append(k.KindRules, r.String())

@@ -19,6 +19,7 @@ import (
 	"golang.org/x/sync/semaphore"
 
 	"voxgamma/analysis"
+	"voxgamma/deid"
 	"voxgamma/internal/fault"
 	"voxgamma/internal/pathcheck"
 	"voxgamma/job"
@@ -49,9 +50,12 @@ type Outputs struct {
 	// GammaMap writes gamma.dcm, DifferenceMap difference.dcm (RT Dose),
 	// Report report.html.
 	GammaMap, DifferenceMap, Report bool
-	// Deidentify replaces patient names and IDs with hashes in every
-	// output (see job.Write).
+	// Deidentify de-identifies every output, status and log line of the
+	// cases (see job.Write and package deid).
 	Deidentify bool
+	// KeyID names the de-identification key in the settings hash (see
+	// deid.Key.ID); set by Run and NewWatcher.
+	KeyID string
 }
 
 // Options configure a batch run.
@@ -99,6 +103,11 @@ type Options struct {
 	// between a case's folder and its record records it when resumed). An
 	// error is logged and counted in Report.NotRecorded.
 	Record RecordFunc
+	// Deid is the run's de-identification when Outputs.Deidentify (nil:
+	// a random key for this run). Each case registers its inputs in a
+	// scope of it while it runs, so that a log written through Deid.Scrub
+	// stays de-identified.
+	Deid *deid.Run
 }
 
 // RecordFunc records a case's result (see Options.Record).
@@ -157,6 +166,19 @@ type caseWork struct {
 	outs         Outputs
 	allowFM      bool
 	watchKey     string
+	// deid is the run's de-identification (nil: none); scope that of this
+	// case, its inputs registered.
+	deid  *deid.Run
+	scope *deid.Scope
+}
+
+// scrub de-identifies a message of the case (unchanged without
+// de-identification).
+func (w caseWork) scrub(s string) string {
+	if w.scope == nil {
+		return s
+	}
+	return w.scope.Scrub(s)
 }
 
 // settingsFor resolves a protocol and the overrides into settings and
@@ -203,12 +225,23 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 	if defProto == "" {
 		defProto = DefaultProtocol
 	}
+	if opt.Outputs.Deidentify {
+		if opt.Deid == nil {
+			opt.Deid = deid.NewRun(deid.RandomKey())
+		}
+		opt.Outputs.KeyID = opt.Deid.Key.ID()
+	} else {
+		opt.Deid = nil
+	}
 	if _, _, err := settingsFor(defProto, opt.Overrides, opt.Outputs, opt.AllowFrameMismatch); err != nil {
 		return nil, fmt.Errorf("batch: %w", err)
 	}
 	log := opt.Log
 	if log == nil {
 		log = slog.New(slog.NewTextHandler(io.Discard, nil))
+	}
+	if opt.Deid != nil {
+		log = slog.New(deid.LogHandler(log.Handler(), opt.Deid.Scrub))
 	}
 	rep := &Report{}
 	rep.Budget, rep.BudgetSource = opt.MaxMemory, opt.MemorySource
@@ -240,6 +273,11 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 	}
 
 	if err := CheckOut(opt.Out, opt.Manifest, cases); err != nil {
+		var o *pathcheck.Overlap
+		if opt.Deid != nil && errors.As(err, &o) {
+			opt.Deid.Base().Path(o.Input, "an input")
+			err = errors.New(opt.Deid.Base().Scrub(err.Error()))
+		}
 		return nil, err
 	}
 	casesDir := filepath.Join(opt.Out, CasesDir)
@@ -287,6 +325,9 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 		}
 	}
 
+	if opt.Deid != nil {
+		log.Info("de-identifying", "note", opt.Deid.Key.Note())
+	}
 	log.Info("batch started", "cases", len(mine), "manifest_cases", len(cases), "shard", shard.String(),
 		"jobs", rep.Jobs, "workers_per_case", rep.Workers, "memory_budget", FormatBytes(rep.Budget), "budget_source", rep.BudgetSource)
 
@@ -308,7 +349,7 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 					name = defProto
 				}
 				r := protos[name]
-				w := caseWork{c: c, protocolName: name, settings: r.s, settingsHash: r.hash, outs: opt.Outputs, allowFM: opt.AllowFrameMismatch}
+				w := caseWork{c: c, protocolName: name, settings: r.s, settingsHash: r.hash, outs: opt.Outputs, allowFM: opt.AllowFrameMismatch, deid: opt.Deid}
 				outcome, unwritten := runOneProtected(ctx, casesDir, w, r.err, opt.Rerun, mem, rep.Budget, log)
 				if unwritten != "" {
 					reachedMu.Lock()
@@ -459,14 +500,22 @@ func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, re
 	if ctx.Err() != nil {
 		return outcomeInterrupted, ""
 	}
+	if w.deid != nil {
+		w.scope = w.deid.Scope()
+		defer w.scope.Close()
+		w.scope.Path(c.Reference, "reference")
+		w.scope.Path(c.Evaluated, "evaluated")
+		w.scope.Path(c.Structures, "structures")
+	}
 	final := filepath.Join(casesDir, c.ID)
 	prev, _ := ReadStatus(final)
 	fail := func(err error) (outcome, string) {
 		st := newStatus(w, nil, prev)
-		st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, caseMessage(c.ID, err)
+		st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, w.scrub(caseMessage(c.ID, err))
 		if ierr := writeErrorCase(casesDir, st); ierr != nil {
-			log.Error("case folder not written", "id", c.ID, "error", ierr.Error())
-			return outcomeComputed, st.Error + "; " + oneLine(ierr.Error())
+			msg := w.scrub(oneLine(ierr.Error()))
+			log.Error("case folder not written", "id", c.ID, "error", msg)
+			return outcomeComputed, st.Error + "; " + msg
 		}
 		log.Info("case finished", "id", c.ID, "verdict", st.Verdict, "seconds", 0.0, "error", st.Error)
 		return outcomeComputed, ""
@@ -500,8 +549,9 @@ func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, re
 			log.Info("case interrupted", "id", c.ID)
 			return outcomeInterrupted, ""
 		}
-		log.Error("case folder not written", "id", c.ID, "error", err.Error())
-		return outcomeComputed, oneLine(err.Error())
+		msg := w.scrub(oneLine(err.Error()))
+		log.Error("case folder not written", "id", c.ID, "error", msg)
+		return outcomeComputed, msg
 	}
 	attrs := []any{"id", c.ID, "verdict", st.Verdict, "seconds", round3(st.Seconds)}
 	if st.Error != "" {
@@ -524,8 +574,9 @@ func oneLine(s string) string {
 }
 
 // upToDate is the resume rule: the case folder holds a status of a case
-// that was evaluated (pass or fail) from the same inputs (paths and
-// SHA-256) with the same settings, and every output it lists is there.
+// that was evaluated (pass or fail) from the same inputs (by role and
+// SHA-256 of their content, not by path) with the same settings, and every
+// output it lists is there.
 func upToDate(prev *Status, inputs []InputHash, settingsHash, dir string) bool {
 	if prev == nil || prev.Verdict == VerdictError || prev.SettingsSHA256 != settingsHash || !sameInputs(prev.Inputs, inputs) {
 		return false
@@ -539,10 +590,9 @@ func upToDate(prev *Status, inputs []InputHash, settingsHash, dir string) bool {
 }
 
 func newStatus(w caseWork, inputs []InputHash, prev *Status) *Status {
-	st := &Status{SchemaVersion: StatusSchemaVersion, ID: w.c.ID, Inputs: inputs, Protocol: w.protocolName,
+	st := &Status{SchemaVersion: StatusSchemaVersion, ID: w.c.ID, Inputs: append([]InputHash{}, inputs...), Protocol: w.protocolName,
 		SettingsSHA256: w.settingsHash, Runs: 1, Outputs: []string{}, WatchKey: w.watchKey}
-	if st.Inputs == nil {
-		st.Inputs = []InputHash{}
+	if inputs == nil {
 		for _, in := range [][2]string{{"reference", w.c.Reference}, {"evaluated", w.c.Evaluated}, {"structures", w.c.Structures}} {
 			if in[1] != "" {
 				st.Inputs = append(st.Inputs, InputHash{Role: in[0], Path: in[1]})
@@ -553,6 +603,15 @@ func newStatus(w caseWork, inputs []InputHash, prev *Status) *Status {
 		st.Runs = prev.Runs + 1
 	}
 	st.Finished = time.Now().UTC().Format(time.RFC3339)
+	if w.scope != nil {
+		// No paths (they name patients) and no dates: the role stands for
+		// the path, and resume matches on content hashes.
+		for i := range st.Inputs {
+			st.Inputs[i].Path = st.Inputs[i].Role
+		}
+		st.Finished = ""
+		st.Protocol = w.scope.Scrub(st.Protocol)
+	}
 	return st
 }
 
@@ -609,12 +668,16 @@ func compute(ctx context.Context, parent string, w caseWork, inputs []InputHash,
 		}
 		s := w.settings
 		s.Choices.NoStructures = s.Choices.NoStructures || c.NoStructures
-		out, err := job.Compare(ctx, analysis.Inputs{Reference: c.Reference, Evaluated: c.Evaluated, Structures: c.Structures,
-			AllowFrameMismatch: w.allowFM, NoStructures: s.Choices.NoStructures}, s)
+		in := analysis.Inputs{Reference: c.Reference, Evaluated: c.Evaluated, Structures: c.Structures,
+			AllowFrameMismatch: w.allowFM, NoStructures: s.Choices.NoStructures}
+		if w.scope != nil {
+			in.Seen = w.scope.Seen
+		}
+		out, err := job.Compare(ctx, in, s)
 		if err != nil {
 			return nil, err
 		}
-		if err := job.Write(outs, out, w.outs.Deidentify); err != nil {
+		if err := job.Write(outs, out, w.scope); err != nil {
 			return nil, err
 		}
 		return out.Result, nil
@@ -625,7 +688,7 @@ func compute(ctx context.Context, parent string, w caseWork, inputs []InputHash,
 	st = newStatus(w, inputs, prev)
 	st.Seconds = time.Since(t0).Seconds()
 	if cerr != nil {
-		st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, caseMessage(c.ID, cerr)
+		st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, w.scrub(caseMessage(c.ID, cerr))
 		// Leave no partial outputs beside the status of a failed case.
 		if entries, err := os.ReadDir(tmp); err == nil {
 			for _, e := range entries {

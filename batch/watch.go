@@ -17,11 +17,13 @@ import (
 	"time"
 
 	"voxgamma/analysis"
+	"voxgamma/deid"
 	"voxgamma/dicomio"
 	"voxgamma/internal/atomicfile"
 	"voxgamma/internal/fault"
 	"voxgamma/internal/pathcheck"
 	"voxgamma/job"
+	"voxgamma/structure"
 )
 
 // Watch defaults and names.
@@ -94,12 +96,22 @@ type WatchOptions struct {
 	// whose record fails is tried again at a later poll (and recorded
 	// then, idempotently), never lost.
 	Record RecordFunc
+	// MaxMemory is the memory budget in bytes; 0 means [DefaultBudget]. A
+	// case estimated to need more (see [EstimateBytes]) is not loaded: it
+	// is moved aside with the reason.
+	MaxMemory int64
+	// Deid is the de-identification of the run when Outputs.Deidentify
+	// (nil: a random key for this run). Case keys (output folder names)
+	// are then keyed tokens, and the state file, statuses and logs hold
+	// no file or folder name, date or identifier.
+	Deid *deid.Run
 }
 
 // WatchedCase is one case a poll finished.
 type WatchedCase struct {
-	// Key names the case: its subfolder, or "for-<hash>" of its frame of
-	// reference in the flat layout.
+	// Key names the case and its output folder: its subfolder's name (see
+	// [Watcher] for the keys of other cases), or "for-<hash>" of its frame
+	// of reference in the flat layout; a keyed token when de-identified.
 	Key string
 	// Verdict is "pass", "fail" or "error".
 	Verdict string
@@ -182,6 +194,7 @@ type watchFile struct {
 	kind            int
 	reason          string
 	dose            *dicomio.DoseInfo
+	set             *structure.Set
 	frame           string
 	sha             string
 }
@@ -251,6 +264,17 @@ type Watcher struct {
 	waitLogged   map[string]string
 	// reads counts header and content reads, for tests of idle polls.
 	reads int
+	// budget is the memory budget in bytes.
+	budget int64
+	// finished maps the content fingerprint of each case finished into a
+	// folder of Out (its status's watch_key) to that folder: a case found
+	// after a restart is recognised by content, whatever its folder is
+	// called.
+	finished map[string]string
+	// deid is the run's de-identification (nil: none); scopes holds the
+	// identifying values of each folder seen, open while it exists.
+	deid   *deid.Run
+	scopes map[string]*deid.Scope
 }
 
 // NewWatcher checks the options, resolves the protocol and loads the state
@@ -261,7 +285,18 @@ func NewWatcher(opt WatchOptions) (*Watcher, error) {
 		return nil, fmt.Errorf("watch: %s is not a folder", opt.Dir)
 	}
 	w := &Watcher{opt: opt, obs: map[string]*observation{}, quick: map[string]string{},
-		retryAt: map[string]time.Time{}, waitLogged: map[string]string{}}
+		retryAt: map[string]time.Time{}, waitLogged: map[string]string{}, finished: map[string]string{}, scopes: map[string]*deid.Scope{}}
+	if opt.Outputs.Deidentify {
+		w.deid = opt.Deid
+		if w.deid == nil {
+			w.deid = deid.NewRun(deid.RandomKey())
+		}
+		w.opt.Outputs.KeyID = w.deid.Key.ID()
+	}
+	w.budget = opt.MaxMemory
+	if w.budget <= 0 {
+		w.budget, _ = DefaultBudget()
+	}
 	if w.dir, err = filepath.Abs(opt.Dir); err != nil {
 		return nil, fmt.Errorf("watch: %w", err)
 	}
@@ -295,12 +330,16 @@ func NewWatcher(opt WatchOptions) (*Watcher, error) {
 	if w.protocolName == "" {
 		w.protocolName = DefaultProtocol
 	}
-	if w.settings, w.settingsHash, err = settingsFor(w.protocolName, opt.Overrides, opt.Outputs, opt.AllowFrameMismatch); err != nil {
+	if w.settings, w.settingsHash, err = settingsFor(w.protocolName, opt.Overrides, w.opt.Outputs, opt.AllowFrameMismatch); err != nil {
 		return nil, fmt.Errorf("watch: %w", err)
 	}
 	w.log = opt.Log
 	if w.log == nil {
 		w.log = slog.New(slog.NewTextHandler(io.Discard, nil))
+	}
+	if w.deid != nil {
+		w.log = slog.New(deid.LogHandler(w.log.Handler(), w.deid.Scrub))
+		w.log.Info("de-identifying", "note", w.deid.Key.Note())
 	}
 	if err := os.MkdirAll(w.out, 0o755); err != nil {
 		return nil, fmt.Errorf("watch: creating %s: %w", w.out, err)
@@ -319,7 +358,100 @@ func NewWatcher(opt WatchOptions) (*Watcher, error) {
 	if err != nil {
 		return nil, fmt.Errorf("watch: %w", err)
 	}
+	w.indexFinished()
 	return w, nil
+}
+
+// indexFinished records the content fingerprint of every case folder in
+// Out that holds the status of an evaluated case.
+func (w *Watcher) indexFinished() {
+	entries, err := os.ReadDir(w.out)
+	if err != nil {
+		return
+	}
+	for _, e := range entries {
+		if !e.IsDir() || strings.HasPrefix(e.Name(), ".") {
+			continue
+		}
+		dir := filepath.Join(w.out, e.Name())
+		if st, err := ReadStatus(dir); err == nil && st.WatchKey != "" && st.Verdict != VerdictError {
+			w.finished[st.WatchKey] = dir
+		}
+	}
+}
+
+// scope returns the de-identification scope of a folder of the watched
+// folder (nil without de-identification), made on first use: the folder's
+// path and name stand for its case key, each file's for [deid.FileRemoved].
+func (w *Watcher) scope(unit string, paths []string) *deid.Scope {
+	if w.deid == nil {
+		return nil
+	}
+	s := w.scopes[unit]
+	if s == nil {
+		s = w.deid.Scope()
+		w.scopes[unit] = s
+		if unit != "." {
+			key := w.subfolderKey(unit)
+			s.Path(filepath.Join(w.dir, unit), key)
+			s.Text(unit, key)
+		}
+	}
+	for _, p := range paths {
+		s.File(p, deid.FileRemoved)
+		s.Text(w.rel(p), deid.FileRemoved)
+	}
+	return s
+}
+
+// scrub de-identifies a message about a folder of the watched folder.
+func (w *Watcher) scrub(unit, msg string) string {
+	if w.deid == nil {
+		return msg
+	}
+	return w.scope(unit, nil).Scrub(msg)
+}
+
+// unitName is a folder of the watched folder as logs and the state show it:
+// its name, or its case key when de-identified.
+func (w *Watcher) unitName(unit string) string {
+	if w.deid == nil || unit == "." {
+		return unit
+	}
+	return w.subfolderKey(unit)
+}
+
+// subfolderKey is the case key (and output folder name) of a subfolder:
+// its name when that is a valid id (letters, digits, '.', '_', '-') that
+// does not start with a prefix the other keys use ("for-", "file-", "x-",
+// "case-"), else "x-", the name made filesystem-safe and 16 hex digits of
+// its SHA-256; when de-identified, "case-" and a keyed token of the name.
+// The prefixes keep the kinds of keys apart, so no folder name can take
+// another case's output folder.
+func (w *Watcher) subfolderKey(unit string) string {
+	if w.deid != nil {
+		return "case-" + w.deid.Key.Token(deid.KindPath, unit)
+	}
+	return safeKey(unit)
+}
+
+// flatKey is the case key of a frame of reference in the flat layout:
+// "for-" and 12 hex digits of its SHA-256 (a keyed token when
+// de-identified).
+func (w *Watcher) flatKey(frame string) string {
+	if w.deid != nil {
+		return "for-" + w.deid.Key.Token(deid.KindFrame, frame)[:12]
+	}
+	return frameKey(frame)
+}
+
+// brokenKey is the case key of an unreadable file in the flat layout:
+// "file-" and the key its stem would have as a subfolder.
+func (w *Watcher) brokenKey(stem string) string {
+	if w.deid != nil {
+		return "file-" + w.deid.Key.Token(deid.KindPath, stem)
+	}
+	return "file-" + safeKey(stem)
 }
 
 // Out is the results folder.
@@ -428,7 +560,7 @@ func (w *Watcher) scan() (map[string][]string, error) {
 			}
 			sub, err := os.ReadDir(p)
 			if err != nil {
-				w.log.Warn("cannot list a subfolder", "folder", p, "error", err.Error())
+				w.log.Warn("cannot list a subfolder", "folder", w.unitName(e.Name()), "error", w.scrub(e.Name(), err.Error()))
 				continue
 			}
 			for _, s := range sub {
@@ -524,7 +656,7 @@ func (w *Watcher) Poll(ctx context.Context) (*PollReport, error) {
 		if ctx.Err() != nil {
 			return rep, ctx.Err()
 		}
-		if len(units[u]) == 0 || w.state.Units[u] == fps[u] {
+		if len(units[u]) == 0 || w.state.Units[w.unitKey(u)] == w.printKey(fps[u]) {
 			continue
 		}
 		if !settled[u] {
@@ -541,7 +673,7 @@ func (w *Watcher) Poll(ctx context.Context) (*PollReport, error) {
 			if ctx.Err() != nil {
 				return rep, ctx.Err()
 			}
-			w.log.Warn("folder to be tried again", "folder", u, "error", err.Error())
+			w.log.Warn("folder to be tried again", "folder", w.unitName(u), "error", w.scrub(u, err.Error()))
 			w.retryAt[u] = now.Add(max(w.opt.Settle, time.Minute))
 			rep.Waiting++
 			continue
@@ -552,17 +684,46 @@ func (w *Watcher) Poll(ctx context.Context) (*PollReport, error) {
 		}
 		// A unit whose files were moved aside changes again; otherwise
 		// remember it so that an idle folder costs a stat per file only.
-		w.state.Units[u] = fps[u]
+		w.state.Units[w.unitKey(u)] = w.printKey(fps[u])
 		if err := w.saveState(); err != nil {
 			return rep, err
 		}
 	}
-	for u := range w.state.Units {
+	present := map[string]bool{}
+	for u := range units {
+		present[w.unitKey(u)] = true
+	}
+	for k := range w.state.Units {
+		if !present[k] {
+			delete(w.state.Units, k)
+		}
+	}
+	for u, s := range w.scopes {
 		if _, ok := units[u]; !ok {
-			delete(w.state.Units, u)
+			s.Close()
+			delete(w.scopes, u)
 		}
 	}
 	return rep, nil
+}
+
+// unitKey is how the state file names a folder of the watched folder: its
+// name, or a keyed token of it when de-identified.
+func (w *Watcher) unitKey(unit string) string {
+	if w.deid == nil {
+		return unit
+	}
+	return "folder-" + w.deid.Key.Token(deid.KindPath, unit)
+}
+
+// printKey is how the state file records a fingerprint of file names,
+// sizes and times: as it is, or keyed when de-identified (an unkeyed hash
+// of a guessable name could be confirmed by anyone).
+func (w *Watcher) printKey(fp string) string {
+	if w.deid == nil || fp == "" {
+		return fp
+	}
+	return w.deid.Key.Token("fingerprint", fp)
 }
 
 // Once scans the watched folder, waits pause (a second at most when 0 or
@@ -639,7 +800,7 @@ func (w *Watcher) classify(p string) *watchFile {
 			if err != nil {
 				f.kind, f.reason = kindBroken, "unreadable RT Structure Set: "+err.Error()
 			} else {
-				f.kind, f.frame = kindStruct, set.FrameOfReferenceUID
+				f.kind, f.frame, f.set = kindStruct, set.FrameOfReferenceUID, set
 			}
 		case me.Got == "":
 			f.kind, f.reason = kindOther, "DICOM file without a Modality"
@@ -653,8 +814,27 @@ func (w *Watcher) classify(p string) *watchFile {
 	return f
 }
 
-// safeKey turns a folder name into a case key usable as a folder name.
+// reservedKeyPrefixes start the keys of cases that are not named after a
+// subfolder (flat layout, broken files, altered names, de-identified keys):
+// a subfolder named with one of them gets an altered key, so that it can
+// never take the output folder of another case.
+var reservedKeyPrefixes = []string{"for-", "file-", "x-", "case-"}
+
+// safeKey turns a folder name into a case key usable as a folder name: the
+// name itself when it is a valid id (see [ValidID]) that starts with no
+// reserved prefix, else "x-", the name with every character but ASCII
+// letters, digits, '.', '_' and '-' made '_' (at most 60 of them), "-" and
+// 16 hex digits of the name's SHA-256.
 func safeKey(name string) string {
+	keep := ValidID(name) == nil
+	for _, p := range reservedKeyPrefixes {
+		if len(name) >= len(p) && strings.EqualFold(name[:len(p)], p) {
+			keep = false
+		}
+	}
+	if keep {
+		return name
+	}
 	var b strings.Builder
 	for _, r := range name {
 		if r < 128 && (r == '.' || r == '_' || r == '-' || r >= '0' && r <= '9' || r >= 'a' && r <= 'z' || r >= 'A' && r <= 'Z') {
@@ -663,15 +843,12 @@ func safeKey(name string) string {
 			b.WriteByte('_')
 		}
 	}
-	k := strings.TrimLeft(b.String(), ".-_")
-	if k != name || ValidID(k) != nil {
-		sum := sha256.Sum256([]byte(name))
-		if len(k) > 60 {
-			k = k[:60]
-		}
-		k = strings.TrimLeft(strings.TrimRight(k, "_")+"-"+hex.EncodeToString(sum[:4]), "-")
+	k := b.String()
+	if len(k) > 60 {
+		k = k[:60]
 	}
-	return k
+	sum := sha256.Sum256([]byte(name))
+	return "x-" + k + "-" + hex.EncodeToString(sum[:8])
 }
 
 // frameKey is the case key of a frame of reference in the flat layout.
@@ -691,9 +868,16 @@ type watchCase struct {
 // handleUnit reads the headers of a settled folder, forms its cases and
 // processes each. waiting is true when a case is not complete yet.
 func (w *Watcher) handleUnit(ctx context.Context, unit string, paths []string) (done []WatchedCase, waiting bool, err error) {
+	sc := w.scope(unit, paths)
 	var files []*watchFile
 	for _, p := range paths {
-		files = append(files, w.classify(p))
+		f := w.classify(p)
+		if sc != nil {
+			sc.Dose(f.dose)
+			sc.Structures(f.set)
+			sc.UID(f.frame)
+		}
+		files = append(files, f)
 	}
 	var cases []*watchCase
 	if unit == "." {
@@ -702,11 +886,11 @@ func (w *Watcher) handleUnit(ctx context.Context, unit string, paths []string) (
 			switch f.kind {
 			case kindBroken:
 				stem := strings.TrimSuffix(f.name, filepath.Ext(f.name))
-				cases = append(cases, &watchCase{key: safeKey(stem), unit: unit, broken: []*watchFile{f}})
+				cases = append(cases, &watchCase{key: w.brokenKey(stem), unit: unit, broken: []*watchFile{f}})
 			case kindDose, kindStruct:
 				g := groups[f.frame]
 				if g == nil {
-					g = &watchCase{key: frameKey(f.frame), unit: unit}
+					g = &watchCase{key: w.flatKey(f.frame), unit: unit}
 					groups[f.frame] = g
 				}
 				g.files = append(g.files, f)
@@ -716,7 +900,7 @@ func (w *Watcher) handleUnit(ctx context.Context, unit string, paths []string) (
 			cases = append(cases, g)
 		}
 	} else {
-		c := &watchCase{key: safeKey(unit), unit: unit, whole: filepath.Join(w.dir, unit)}
+		c := &watchCase{key: w.subfolderKey(unit), unit: unit, whole: filepath.Join(w.dir, unit)}
 		for _, f := range files {
 			switch f.kind {
 			case kindBroken:
@@ -744,7 +928,7 @@ func (w *Watcher) handleUnit(ctx context.Context, unit string, paths []string) (
 }
 
 // quickPrint fingerprints files by relative path, size and modification
-// time; fullPrint adds the SHA-256 of each.
+// time: it recognises a case already handled without reading its files.
 func quickPrint(files []*watchFile) string {
 	h := sha256.New()
 	for _, f := range files {
@@ -753,10 +937,20 @@ func quickPrint(files []*watchFile) string {
 	return hex.EncodeToString(h.Sum(nil))
 }
 
-func fullPrint(files []*watchFile) string {
-	h := sha256.New()
+// contentPrint fingerprints a case by the content of its files alone: the
+// SHA-256 of each, sorted. A case is the same case whatever its files and
+// folder are called or when they were copied, so resume never depends on
+// paths (which de-identified records do not hold).
+func contentPrint(files []*watchFile) string {
+	sums := make([]string, 0, len(files))
 	for _, f := range files {
-		fmt.Fprintf(h, "%s\x00%d\x00%d\x00%s\n", f.rel, f.size, f.mtime.UnixNano(), f.sha)
+		sums = append(sums, f.sha)
+	}
+	sort.Strings(sums)
+	h := sha256.New()
+	fmt.Fprintf(h, "voxgamma-watch-case/2\n")
+	for _, x := range sums {
+		fmt.Fprintf(h, "%s\n", x)
 	}
 	return hex.EncodeToString(h.Sum(nil))
 }
@@ -768,16 +962,17 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	fault.Point(fault.WatchCase)
 	all := append(append([]*watchFile{}, c.files...), c.broken...)
 	sort.Slice(all, func(i, j int) bool { return all[i].rel < all[j].rel })
-	quick := quickPrint(all)
+	quick := w.printKey(quickPrint(all))
 	if k, ok := w.quick[quick]; ok && w.state.Cases[k] != nil {
 		return nil, false, nil
 	}
+	scrub := func(msg string) string { return w.scrub(c.unit, msg) }
 	if len(c.broken) > 0 {
 		var why []string
 		for _, f := range c.broken {
 			why = append(why, f.rel+": "+f.reason)
 		}
-		return w.moveAside(c, all, quick, "", strings.Join(why, "; "))
+		return w.moveAside(c, all, quick, "", scrub(strings.Join(why, "; ")))
 	}
 	for _, f := range all {
 		w.reads++
@@ -787,9 +982,10 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 		}
 		f.sha = sum
 	}
-	full := fullPrint(all)
-	if w.state.Cases[full] != nil {
+	full := contentPrint(all)
+	if e := w.state.Cases[full]; e != nil {
 		w.quick[quick] = full
+		w.log.Info("case already processed (same files)", "case", c.key, "as", e.Key, "verdict", e.Verdict)
 		return nil, false, nil
 	}
 
@@ -826,7 +1022,7 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 			for _, d := range same {
 				names = append(names, d.rel)
 			}
-			return w.moveAside(c, all, quick, full, fmt.Sprintf("%s matches both the reference and the evaluated rules: cannot tell which dose it is", strings.Join(names, " = ")))
+			return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("%s matches both the reference and the evaluated rules: cannot tell which dose it is", strings.Join(names, " = "))))
 		case isRef:
 			refs = append(refs, f)
 		case isEval:
@@ -844,11 +1040,11 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	}
 	switch {
 	case len(refs) > 1:
-		return w.moveAside(c, all, quick, full, fmt.Sprintf("%d reference doses (%s): one case needs exactly one (put each case in its own subfolder)", len(refs), names(refs)))
+		return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("%d reference doses (%s): one case needs exactly one (put each case in its own subfolder)", len(refs), names(refs))))
 	case len(evals) > 1:
-		return w.moveAside(c, all, quick, full, fmt.Sprintf("%d evaluated doses (%s): one case needs exactly one (put each case in its own subfolder)", len(evals), names(evals)))
+		return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("%d evaluated doses (%s): one case needs exactly one (put each case in its own subfolder)", len(evals), names(evals))))
 	case len(sets) > 1:
-		return w.moveAside(c, all, quick, full, fmt.Sprintf("%d structure sets (%s): one case needs at most one", len(sets), names(sets)))
+		return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("%d structure sets (%s): one case needs at most one", len(sets), names(sets))))
 	}
 	var missing []string
 	if len(refs) == 0 {
@@ -864,19 +1060,30 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 		msg := "waits for " + strings.Join(missing, " and ")
 		if w.waitLogged[c.key] != quick {
 			w.waitLogged[c.key] = quick
-			w.log.Info("case incomplete", "case", c.key, "folder", c.unit, "status", msg, "files", names(all))
+			w.log.Info("case incomplete", "case", c.key, "folder", w.unitName(c.unit), "status", msg, "files", scrub(names(all)))
 		}
 		return nil, true, nil
 	}
 	ref, eval := refs[0], evals[0]
+	if sc := w.scope(c.unit, nil); sc != nil {
+		// The files' roles stand for their names from here on.
+		sc.Path(ref.path, "reference")
+		sc.Text(ref.rel, "reference")
+		sc.Path(eval.path, "evaluated")
+		sc.Text(eval.rel, "evaluated")
+		if len(sets) == 1 {
+			sc.Path(sets[0].path, "structures")
+			sc.Text(sets[0].rel, "structures")
+		}
+	}
 	if !w.opt.AllowFrameMismatch {
 		if ref.frame != eval.frame {
-			return w.moveAside(c, all, quick, full, fmt.Sprintf("the reference dose %s (frame of reference %s) and the evaluated dose %s (%s) are in different frames of reference",
-				ref.rel, orNone(ref.frame), eval.rel, orNone(eval.frame)))
+			return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("the reference dose %s (frame of reference %s) and the evaluated dose %s (%s) are in different frames of reference",
+				ref.rel, orNone(ref.frame), eval.rel, orNone(eval.frame))))
 		}
 		if len(sets) == 1 && sets[0].frame != ref.frame {
-			return w.moveAside(c, all, quick, full, fmt.Sprintf("the structure set %s (frame of reference %s) is not in the reference dose %s's frame of reference (%s)",
-				sets[0].rel, orNone(sets[0].frame), ref.rel, orNone(ref.frame)))
+			return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("the structure set %s (frame of reference %s) is not in the reference dose %s's frame of reference (%s)",
+				sets[0].rel, orNone(sets[0].frame), ref.rel, orNone(ref.frame))))
 		}
 	}
 	cs := Case{ID: c.key, Reference: ref.path, Evaluated: eval.path}
@@ -886,31 +1093,48 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 		inputs = append(inputs, InputHash{Role: "structures", Path: sets[0].path, SHA256: sets[0].sha})
 	}
 	final := filepath.Join(w.out, c.key)
-	prev, _ := ReadStatus(final)
-	if prev != nil && prev.WatchKey == full && prev.SettingsSHA256 == w.settingsHash && prev.Verdict != VerdictError {
-		// Finished before the state was saved (a stop in between, or a
-		// record that failed).
-		if w.opt.Record != nil {
-			if _, err := recordCase(ctx, w.opt.Record, cs, final); err != nil {
+	// Finished before the state was saved (a stop in between, even a
+	// kill, or a record that failed): found by content in whichever folder
+	// holds it, recorded, and reported now with its verdict.
+	if dir, ok := w.finished[full]; ok {
+		if prev, err := ReadStatus(dir); err == nil && prev.WatchKey == full && prev.SettingsSHA256 == w.settingsHash && prev.Verdict != VerdictError {
+			if w.opt.Record != nil {
+				if _, err := recordCase(ctx, w.opt.Record, cs, dir); err != nil {
+					return nil, false, err
+				}
+			}
+			w.record(full, quick, c, all, prev.Verdict, "", dir, "")
+			if err := w.saveState(); err != nil {
 				return nil, false, err
 			}
+			w.log.Info("case finished", "case", c.key, "verdict", prev.Verdict, "seconds", round3(prev.Seconds), "output", dir,
+				"note", "computed earlier (before the watcher stopped, or before a record that failed); recorded now")
+			return &WatchedCase{Key: c.key, Verdict: prev.Verdict, Output: dir, Seconds: prev.Seconds}, false, nil
 		}
-		w.record(full, quick, c, all, prev.Verdict, "", final, "")
-		return nil, false, w.saveState()
 	}
+	prev, _ := ReadStatus(final)
 	for _, n := range notes {
-		w.log.Info("case note", "case", c.key, "note", n)
+		w.log.Info("case note", "case", c.key, "note", scrub(n))
 	}
-	w.log.Info("case started", "case", c.key, "reference", ref.rel, "evaluated", eval.rel, "structures", cs.Structures)
+	need, err := EstimateCase(cs)
+	if err != nil {
+		return w.moveAside(c, all, quick, full, scrub(caseMessage(c.key, err)))
+	}
+	if need > w.budget {
+		return w.moveAside(c, all, quick, full, fmt.Sprintf("needs about %s of memory (estimated from its dose grids), more than the memory budget of %s: raise --max-memory (or run it on a larger machine) and put the files back",
+			FormatBytes(need), FormatBytes(w.budget)))
+	}
+	w.log.Info("case started", "case", c.key, "reference", scrub(ref.rel), "evaluated", scrub(eval.rel), "structures", scrub(cs.Structures),
+		"memory_estimate", FormatBytes(need))
 	work := caseWork{c: cs, protocolName: w.protocolName, settings: w.settings, settingsHash: w.settingsHash,
-		outs: w.opt.Outputs, allowFM: w.opt.AllowFrameMismatch, watchKey: full}
+		outs: w.opt.Outputs, allowFM: w.opt.AllowFrameMismatch, watchKey: full, deid: w.deid, scope: w.scope(c.unit, nil)}
 	st, caseErr, err := compute(ctx, w.out, work, inputs, prev)
 	if err != nil {
-		return nil, false, err
+		return nil, false, errors.New(scrub(err.Error()))
 	}
 	if caseErr != nil && (errors.Is(caseErr, analysis.ErrBadInput) || errors.Is(caseErr, dicomio.ErrInvalid) ||
 		errors.Is(caseErr, dicomio.ErrUnsupported) || errors.Is(caseErr, dicomio.ErrNotDICOM)) {
-		wc, wait, err := w.moveAside(c, all, quick, full, caseMessage(c.key, caseErr))
+		wc, wait, err := w.moveAside(c, all, quick, full, scrub(caseMessage(c.key, caseErr)))
 		if wc != nil {
 			wc.Output, wc.Seconds = final, st.Seconds
 		}
@@ -919,8 +1143,9 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	if caseErr != nil {
 		// Not the inputs' fault (an output that could not be written, an
 		// internal error): the results folder says so; try again later.
-		return nil, false, fmt.Errorf("case %s: %w", c.key, caseErr)
+		return nil, false, fmt.Errorf("case %s: %s", c.key, scrub(caseErr.Error()))
 	}
+	w.finished[full] = final
 	if w.opt.Record != nil {
 		if _, err := recordCase(ctx, w.opt.Record, cs, final); err != nil {
 			return nil, false, fmt.Errorf("%w (the results are in %s; it is recorded at a later poll)", err, final)
@@ -941,12 +1166,21 @@ func orNone(s string) string {
 	return s
 }
 
-// record adds a finished case to the state.
+// record adds a finished case to the state. De-identified, the entry
+// names no file and no folder and holds no date: the case key and the
+// content hashes identify it.
 func (w *Watcher) record(full, quick string, c *watchCase, files []*watchFile, verdict, errMsg, output, movedTo string) {
-	e := &stateEntry{Key: c.key, Folder: c.unit, Quick: quick, Verdict: verdict, Error: errMsg, Output: output, MovedTo: movedTo,
+	e := &stateEntry{Key: c.key, Folder: w.unitName(c.unit), Quick: quick, Verdict: verdict, Error: errMsg, Output: output, MovedTo: movedTo,
 		Processed: time.Now().UTC().Format(time.RFC3339), Files: []stateFile{}}
+	if w.deid != nil {
+		e.Processed = ""
+	}
 	for _, f := range files {
-		e.Files = append(e.Files, stateFile{Path: f.rel, Size: f.size, MtimeNS: f.mtime.UnixNano(), SHA256: f.sha})
+		sf := stateFile{Path: f.rel, Size: f.size, MtimeNS: f.mtime.UnixNano(), SHA256: f.sha}
+		if w.deid != nil {
+			sf.Path, sf.MtimeNS = "", 0
+		}
+		e.Files = append(e.Files, sf)
 	}
 	if full == "" {
 		full = "quick:" + quick
@@ -972,7 +1206,7 @@ func (w *Watcher) moveAside(c *watchCase, files []*watchFile, quick, full, why s
 	}
 	if c.whole != "" {
 		if err := os.Rename(c.whole, dest); err != nil {
-			return nil, false, fmt.Errorf("case %s: moving %s to %s: %w", c.key, c.whole, dest, err)
+			return nil, false, fmt.Errorf("case %s: moving %s to %s: %s", c.key, w.unitName(c.unit), dest, w.scrub(c.unit, err.Error()))
 		}
 	} else {
 		if err := os.Mkdir(dest, 0o755); err != nil {
@@ -980,14 +1214,18 @@ func (w *Watcher) moveAside(c *watchCase, files []*watchFile, quick, full, why s
 		}
 		for _, f := range files {
 			if err := os.Rename(f.path, filepath.Join(dest, f.name)); err != nil {
-				return nil, false, fmt.Errorf("case %s: moving %s to %s: %w", c.key, f.path, dest, err)
+				return nil, false, fmt.Errorf("case %s: moving a file to %s: %s", c.key, dest, w.scrub(c.unit, err.Error()))
 			}
 		}
 	}
 	var b strings.Builder
-	fmt.Fprintf(&b, "voxgamma watch could not evaluate case %s (moved here %s).\n\nerror: %s\n\nfiles:\n", c.key, time.Now().UTC().Format(time.RFC3339), why)
+	when := " " + time.Now().UTC().Format(time.RFC3339)
+	if w.deid != nil {
+		when = ""
+	}
+	fmt.Fprintf(&b, "voxgamma watch could not evaluate case %s (moved here%s).\n\nerror: %s\n\nfiles:\n", c.key, when, why)
 	for _, f := range files {
-		fmt.Fprintf(&b, "  %s (%d bytes)\n", f.rel, f.size)
+		fmt.Fprintf(&b, "  %s (%d bytes)\n", w.scrub(c.unit, f.rel), f.size)
 	}
 	b.WriteString("\nFix the files and put them back into the watched folder (as a new subfolder) to have the case processed.\n")
 	if err := atomicfile.WriteBytes(filepath.Join(dest, "error.txt"), []byte(b.String())); err != nil {

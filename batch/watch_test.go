@@ -211,8 +211,8 @@ func TestWatchUnreadableFiles(t *testing.T) {
 	}
 	data, _ := os.ReadFile(f.Evaluated)
 	writeFile(t, f.Evaluated, string(data[:len(data)/2]))
-	// In the flat layout, an unreadable RT Dose is moved aside alone; a
-	// text file is ignored.
+	// In the flat layout, an unreadable RT Dose is moved aside alone (case
+	// key "file-" and its name); a text file is ignored.
 	g, err := batchtest.Write(t.TempDir(), batchtest.Spec{})
 	if err != nil {
 		t.Fatal(err)
@@ -224,7 +224,7 @@ func TestWatchUnreadableFiles(t *testing.T) {
 	w := newTestWatcher(t, dir, out, nil)
 	rep := once(t, w)
 	v := verdicts(rep)
-	if len(v) != 2 || v["trunc"] != VerdictError || v["RD_plan_cut"] != VerdictError {
+	if len(v) != 2 || v["trunc"] != VerdictError || v["file-RD_plan_cut"] != VerdictError {
 		t.Fatalf("cases %v", v)
 	}
 	for _, c := range rep.Cases {
@@ -232,7 +232,7 @@ func TestWatchUnreadableFiles(t *testing.T) {
 			t.Errorf("%s: %q", c.Key, c.Error)
 		}
 	}
-	for _, p := range []string{"trunc/error.txt", "trunc/reference.dcm", "RD_plan_cut/RD_plan_cut.dcm", "RD_plan_cut/error.txt"} {
+	for _, p := range []string{"trunc/error.txt", "trunc/reference.dcm", "file-RD_plan_cut/RD_plan_cut.dcm", "file-RD_plan_cut/error.txt"} {
 		if _, err := os.Stat(filepath.Join(dir, FailedDir, p)); err != nil {
 			t.Error(err)
 		}

@@ -38,7 +38,7 @@ func runDemo(t *testing.T) (dir string, r *result.Result) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if err := job.Write(outs, out, false); err != nil {
+	if err := job.Write(outs, out, nil); err != nil {
 		t.Fatal(err)
 	}
 	data, err := os.ReadFile(outs.JSON)

@@ -9,19 +9,17 @@ package job
 
 import (
 	"context"
-	"crypto/sha256"
-	"encoding/hex"
 	"errors"
 	"fmt"
 	"math"
 	"os"
 	"path/filepath"
 	"slices"
-	"sort"
 	"strconv"
 	"strings"
 
 	"voxgamma/analysis"
+	"voxgamma/deid"
 	"voxgamma/dicomio"
 	"voxgamma/gamma"
 	"voxgamma/internal/atomicfile"
@@ -399,11 +397,13 @@ func CompareFor(ctx context.Context, in analysis.Inputs, s analysis.Settings, ou
 // none: each is first written (atomically) under a staging name beside its
 // target, and only when every one has been written are they renamed into
 // place; on any failure the staged files are removed and the error, naming
-// the file, returned. With deidentify, patient names and IDs become hashes,
-// dates are left out, and DICOM maps get new study and frame-of-reference
-// UIDs. A reference without a study or frame-of-reference UID gets new ones
-// in the maps (the result says so).
-func Write(o Outputs, out *analysis.Outcome, deidentify bool) (err error) {
+// the file, returned. With a de-identification scope d (nil: none), the
+// result is de-identified first (see [DeidentifyResult]), ROI names on the
+// review page are scrubbed, and the DICOM maps carry the patient's
+// pseudonyms, remapped study, frame of reference and plan UIDs and no
+// dates. A reference without a study or frame-of-reference UID gets new
+// ones in the maps (the result says so).
+func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 	r := out.Result
 	var ids dicomio.Identifiers
 	if out.ReferenceInfo != nil {
@@ -411,10 +411,12 @@ func Write(o Outputs, out *analysis.Outcome, deidentify bool) (err error) {
 	}
 	gammaOpt := dicomio.GammaOptions("gamma index " + r.Criteria.Label + ", unitless")
 	diffOpt := dicomio.DifferenceOptions("dose difference evaluated-reference, Gy")
-	if deidentify {
-		DeidentifyResult(r)
-		ids = deidentifyIDs(ids)
+	scrub := func(s string) string { return s }
+	if d != nil {
+		DeidentifyResult(r, d)
+		ids = deidentifyIDs(ids, d.Key())
 		gammaOpt.OmitDates, diffOpt.OmitDates = true, true
+		scrub = d.Scrub
 	}
 	// The maps take the reference's summation and plan references when
 	// they can be written validly, else dicomio.MapSummationType without a
@@ -475,9 +477,9 @@ func Write(o Outputs, out *analysis.Outcome, deidentify bool) (err error) {
 			if len(reg.Centres) == 0 || reg.Number == 0 {
 				continue
 			}
-			page.ROIs = append(page.ROIs, report.PageROI{Name: reg.Name, Color: out.Colors[i], Mask: reg.Mask()})
+			page.ROIs = append(page.ROIs, report.PageROI{Name: scrub(reg.Name), Color: out.Colors[i], Mask: reg.Mask()})
 		}
-		if !deidentify {
+		if d == nil {
 			page.Generated = r.Run.Started
 		}
 		return report.WriteHTML(p, page)
@@ -522,59 +524,71 @@ func WriteMap(path string, grid *volume.Grid, ids dicomio.Identifiers, opt dicom
 	return writeMapAs(path, path, grid, ids, opt)
 }
 
-// Pseudonym is the stable hash that stands in for a patient name or ID in
-// de-identified outputs ("" stays "").
-func Pseudonym(s string) string {
-	if s == "" {
-		return ""
-	}
-	h := sha256.Sum256([]byte("voxgamma-deidentify:" + s))
-	return "ANON-" + strings.ToUpper(hex.EncodeToString(h[:6]))
-}
-
-// DeidentifyResult replaces patient names and IDs in r with pseudonyms,
-// wherever they appear (inputs, warnings, notes), and removes the run's
-// date.
-func DeidentifyResult(r *result.Result) {
-	var pairs []string
-	for i := range r.Inputs {
-		for _, v := range []*string{&r.Inputs[i].PatientName, &r.Inputs[i].PatientID} {
-			if *v != "" {
-				pairs = append(pairs, *v, Pseudonym(*v))
-				*v = Pseudonym(*v)
-			}
+// DeidentifyResult de-identifies a result after the intent of DICOM
+// PS3.15 Annex E's basic profile, with the values d knows from the inputs:
+// each input's path becomes its role, its patient name and ID their keyed
+// pseudonyms, its UIDs their remapped ones, and its description loses the
+// series description, dose comment or structure set label; warnings,
+// notes, rules, ROI names and statuses and cluster ROI lists are scrubbed
+// of every identifying value; the run's date is left out; and notes say so.
+func DeidentifyResult(r *result.Result, d *deid.Scope) {
+	DeidentifyInputs(r.Inputs, d)
+	for _, list := range [][]string{r.Warnings, r.Notes} {
+		for i := range list {
+			list[i] = d.Scrub(list[i])
 		}
 	}
-	// Longer values first, so a name containing an ID is replaced whole.
-	rep := strings.NewReplacer(longestFirst(pairs)...)
-	for i := range r.Warnings {
-		r.Warnings[i] = rep.Replace(r.Warnings[i])
+	for i := range r.ROIs {
+		r.ROIs[i].Name = d.Scrub(r.ROIs[i].Name)
+		r.ROIs[i].StatusDetail = d.Scrub(r.ROIs[i].StatusDetail)
 	}
-	for i := range r.Notes {
-		r.Notes[i] = rep.Replace(r.Notes[i])
+	for i := range r.Rules {
+		o := &r.Rules[i]
+		o.Rule, o.Subject, o.Reason = d.Scrub(o.Rule), d.Scrub(o.Subject), d.Scrub(o.Reason)
+		for j := range o.Conditions {
+			o.Conditions[j] = d.Scrub(o.Conditions[j])
+		}
+	}
+	for _, list := range [][]string{r.Choices.SubGridROIs, r.Choices.KindRules, r.Choices.Overrides} {
+		for i := range list {
+			list[i] = d.Scrub(list[i])
+		}
+	}
+	for i := range r.Clusters {
+		for j := range r.Clusters[i].ROIs {
+			r.Clusters[i].ROIs[j] = d.Scrub(r.Clusters[i].ROIs[j])
+		}
 	}
 	r.Run.Started = ""
-	r.Notes = append(r.Notes, "de-identified: patient names and IDs replaced with hashes, dates left out")
+	r.Notes = append(r.Notes, DeidentifiedNote, d.Key().Note())
 }
 
-// longestFirst orders old/new pairs by decreasing length of the old value.
-func longestFirst(pairs []string) []string {
-	type pair struct{ old, new string }
-	var ps []pair
-	for i := 0; i+1 < len(pairs); i += 2 {
-		ps = append(ps, pair{pairs[i], pairs[i+1]})
+// DeidentifiedNote says in the results what de-identification did.
+const DeidentifiedNote = "de-identified after the intent of the DICOM basic application level confidentiality profile (PS3.15 Annex E): patient names and IDs replaced with keyed pseudonyms, UIDs remapped, dates and free-text descriptions removed, file paths replaced with role names"
+
+// DeidentifyInputs de-identifies input descriptions (see
+// [DeidentifyResult]).
+func DeidentifyInputs(inputs []result.Input, d *deid.Scope) {
+	k := d.Key()
+	for i := range inputs {
+		in := &inputs[i]
+		in.Path = in.Role
+		in.PatientName = k.Pseudonym(deid.KindName, in.PatientName)
+		in.PatientID = k.Pseudonym(deid.KindID, in.PatientID)
+		in.SOPInstanceUID = k.UID(in.SOPInstanceUID)
+		in.FrameOfReferenceUID = k.UID(in.FrameOfReferenceUID)
+		in.Description = d.Scrub(in.Description)
 	}
-	sort.SliceStable(ps, func(i, j int) bool { return len(ps[i].old) > len(ps[j].old) })
-	out := make([]string, 0, len(pairs))
-	for _, p := range ps {
-		out = append(out, p.old, p.new)
-	}
-	return out
 }
 
-func deidentifyIDs(ids dicomio.Identifiers) dicomio.Identifiers {
+// deidentifyIDs returns the identifiers the de-identified DICOM maps carry:
+// the patient's pseudonyms and the remapped study, frame of reference and
+// plan UIDs (the same for both maps, and for every run with the key); no
+// dates, study ID, accession number or physician.
+func deidentifyIDs(ids dicomio.Identifiers, k *deid.Key) dicomio.Identifiers {
 	return dicomio.Identifiers{
-		PatientName: Pseudonym(ids.PatientName), PatientID: Pseudonym(ids.PatientID),
-		StudyInstanceUID: dicomio.NewUID(), FrameOfReferenceUID: dicomio.NewUID(),
+		PatientName: k.Pseudonym(deid.KindName, ids.PatientName), PatientID: k.Pseudonym(deid.KindID, ids.PatientID),
+		StudyInstanceUID: k.UID(ids.StudyInstanceUID), FrameOfReferenceUID: k.UID(ids.FrameOfReferenceUID),
+		ReferencedRTPlanUID: k.UID(ids.ReferencedRTPlanUID),
 	}
 }

@@ -1,11 +1,14 @@
 package job
 
 import (
+	"encoding/json"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
 
+	"voxgamma/deid"
+	"voxgamma/dicomio"
 	"voxgamma/protocol"
 	"voxgamma/result"
 )
@@ -53,19 +56,29 @@ func TestOutputsCheck(t *testing.T) {
 
 func TestDeidentifyResult(t *testing.T) {
 	r := &result.Result{
-		Inputs:   []result.Input{{PatientName: "DOE^JANE", PatientID: "123"}, {PatientName: "DOE^JANE", PatientID: "124"}},
-		Warnings: []string{`patient IDs differ: reference "123", evaluated "124" (DOE^JANE)`},
+		Inputs: []result.Input{{Role: "reference", Path: "/data/DOE_JANE/rd.dcm", PatientName: "DOE^JANE", PatientID: "123", SOPInstanceUID: "1.2.3"},
+			{Role: "evaluated", Path: "/data/DOE_JANE/mc.dcm", PatientName: "DOE^JANE", PatientID: "124", Description: "QA DOE JANE"}},
+		Warnings: []string{`patient IDs differ: reference (rd.dcm) "123", evaluated (mc.dcm) "124" (DOE^JANE)`},
+		ROIs:     []result.ROI{{Name: "PTV_DOE", Status: "evaluated"}},
+		Rules:    []result.RuleOutcome{{Rule: "every target", Subject: "PTV_DOE", Reason: "PTV_DOE below"}},
 		Run:      result.Run{Started: "2026-12-01T10:00:00Z"},
 	}
-	DeidentifyResult(r)
-	all := strings.Join(r.Warnings, " ") + r.Inputs[0].PatientName + r.Inputs[0].PatientID + r.Inputs[1].PatientID + r.Run.Started
-	for _, leak := range []string{"DOE", "JANE", "123", "124", "2026"} {
-		if strings.Contains(all, leak) {
-			t.Fatalf("de-identified result still holds %q: %s", leak, all)
+	d := deid.NewRun(deid.NewKey([]byte("0123456789abcdef-test"), "test")).Base()
+	d.Path("/data/DOE_JANE/rd.dcm", "reference")
+	d.Path("/data/DOE_JANE/mc.dcm", "evaluated")
+	d.Identifiers(dicomio.Identifiers{PatientName: "DOE^JANE", PatientID: "123"})
+	d.UID("1.2.3")
+	d.PatientID("124")
+	d.Text("QA DOE JANE", deid.Removed)
+	DeidentifyResult(r, d)
+	data, _ := json.Marshal(r)
+	for _, leak := range []string{"DOE", "JANE", "123", "124", "2026", "rd.dcm", "1.2.3\""} {
+		if strings.Contains(string(data), leak) {
+			t.Errorf("de-identified result still holds %q: %s", leak, data)
 		}
 	}
-	if r.Inputs[0].PatientID == r.Inputs[1].PatientID || r.Inputs[0].PatientName != r.Inputs[1].PatientName {
-		t.Fatal("pseudonyms must be stable per value and distinct for distinct values")
+	if r.Inputs[0].PatientID == r.Inputs[1].PatientID || r.Inputs[0].PatientName != r.Inputs[1].PatientName || r.Inputs[0].Path != "reference" {
+		t.Fatal("pseudonyms must be stable per value and distinct for distinct values; paths become roles")
 	}
 }
 

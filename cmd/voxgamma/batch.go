@@ -29,6 +29,7 @@ type caseFlags struct {
 	allowFrameMismatch              bool
 	gammaMap, diffMap, report, deid bool
 	rec                             recordFlags
+	siteKey                         string
 }
 
 func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
@@ -51,7 +52,8 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 	fl.BoolVar(&f.gammaMap, "gamma-map", false, "also write each case's Γ map as gamma.dcm (RT Dose)")
 	fl.BoolVar(&f.diffMap, "difference-map", false, "also write each case's dose difference map as difference.dcm (RT Dose)")
 	fl.BoolVar(&f.report, "report", false, "also write each case's review page as report.html")
-	fl.BoolVar(&f.deid, "deidentify", false, "replace patient names and IDs with a hash and leave dates out of every output")
+	fl.BoolVar(&f.deid, "deidentify", false, "de-identify every output, status, state and log line (DICOM PS3.15 Annex E intent): keyed pseudonyms for names and IDs, remapped UIDs, no dates, descriptions or input paths (docs/patient-data.md)")
+	deidFlags(cmd, &f.siteKey)
 	fl.IntVar(&f.workers, "workers", 0, "gamma worker goroutines per case (default: the cores divided among the cases run at once)")
 	f.rec.register(cmd, false)
 }
@@ -215,12 +217,16 @@ last line on stderr gives the counts.`,
 			if out == "" {
 				return errors.New("--out is required: the folder the case folders and the summary are written into")
 			}
+			d, err := startDeid(g, f.deid, f.siteKey)
+			if err != nil {
+				return err
+			}
 			cases, err := batch.ReadManifest(args[0])
 			if err != nil {
 				return err
 			}
 			opt := batch.Options{Out: out, Manifest: args[0], DefaultProtocol: f.protocol, Overrides: f.overrides(cmd), Outputs: f.outputs(),
-				AllowFrameMismatch: f.allowFrameMismatch, Jobs: jobs, Rerun: rerun}
+				AllowFrameMismatch: f.allowFrameMismatch, Jobs: jobs, Rerun: rerun, Deid: d}
 			if jobs < 0 {
 				return fmt.Errorf("--jobs %d: want 1 or more (0: as the budget allows, at most the core count)", jobs)
 			}
@@ -255,7 +261,7 @@ last line on stderr gives the counts.`,
 			for _, c := range cases {
 				protos = append(protos, c.Protocol)
 			}
-			rec, err := newBatchRecorder(ctx, &f.rec, "batch", f.protocol, protos, f.deid)
+			rec, err := newBatchRecorder(ctx, &f.rec, "batch", f.protocol, protos, d)
 			if err != nil {
 				return err
 			}

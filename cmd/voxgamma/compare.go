@@ -13,6 +13,7 @@ import (
 
 	"voxgamma/analysis"
 	"voxgamma/batch"
+	"voxgamma/deid"
 	"voxgamma/job"
 	"voxgamma/protocol"
 	"voxgamma/result"
@@ -25,7 +26,7 @@ type compareFlags struct {
 	protocol                                          string
 	jsonOut, csvOut, gammaMap, diffMap, reportOut     string
 	allowFrameMismatch, force, deidentify             bool
-	maxMemory                                         string
+	maxMemory, siteKey                                string
 	rec                                               recordFlags
 }
 
@@ -111,7 +112,8 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 	fl.BoolVar(&f.exhaustive, "exhaustive", false, "use the exhaustive search (slow; for audits)")
 	fl.BoolVar(&f.allowFrameMismatch, "allow-frame-mismatch", false, "compare doses and structures of different frames of reference (you vouch that their coordinates agree)")
 	fl.BoolVar(&f.force, "force", false, "overwrite existing output files")
-	fl.BoolVar(&f.deidentify, "deidentify", false, "replace patient names and IDs with a hash and leave dates out of every output")
+	fl.BoolVar(&f.deidentify, "deidentify", false, "de-identify every output and message (DICOM PS3.15 Annex E intent): patient names and IDs become keyed pseudonyms, UIDs are remapped, dates, descriptions and file paths are left out (docs/patient-data.md)")
+	deidFlags(cmd, &f.siteKey)
 	fl.Float64Var(&f.minClusterCC, "min-cluster", 0.01, "smallest failing cluster listed, cm³")
 	fl.StringVar(&f.maxMemory, "max-memory", "", "memory budget, e.g. 8GiB (default: 70 % of the available memory); a comparison estimated to need more is refused before loading")
 }
@@ -242,8 +244,28 @@ func (f *compareFlags) outputs() job.Outputs {
 	return job.Outputs{JSON: f.jsonOut, CSV: f.csvOut, GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.reportOut}
 }
 
+// deidScope starts the de-identification when asked (see startDeid) and
+// returns the scope of this comparison's inputs, their paths registered;
+// nil without --deidentify.
+func (f *compareFlags) deidScope(g *globals) (*deid.Scope, error) {
+	run, err := startDeid(g, f.deidentify, f.siteKey)
+	if run == nil {
+		return nil, err
+	}
+	d := run.Base()
+	d.Path(f.reference, "reference")
+	d.Path(f.referencePoints, "reference points")
+	d.Path(f.evaluated, "evaluated")
+	d.Path(f.structures, "structures")
+	return d, nil
+}
+
 // runCompare is compare from flags to written outputs.
 func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFlags) (*analysis.Outcome, error) {
+	d, err := f.deidScope(g)
+	if err != nil {
+		return nil, err
+	}
 	s, err := settingsFrom(cmd, f)
 	if err != nil {
 		return nil, err
@@ -266,11 +288,14 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 	}
 	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated,
 		Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
+	if d != nil {
+		in.Seen = d.Seen
+	}
 	out, err := compareInputs(ctx, g, in, s, outs, f.force)
 	if err != nil {
 		return nil, err
 	}
-	if err := job.Write(outs, out, f.deidentify); err != nil {
+	if err := job.Write(outs, out, d); err != nil {
 		return nil, err
 	}
 	for _, p := range outs.List() {

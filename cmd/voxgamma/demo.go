@@ -59,7 +59,7 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 			if err != nil {
 				return err
 			}
-			if err := job.Write(out, o, false); err != nil {
+			if err := job.Write(out, o, nil); err != nil {
 				return err
 			}
 			if !g.quiet {

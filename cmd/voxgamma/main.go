@@ -21,6 +21,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"voxgamma/batch"
+	"voxgamma/deid"
 	"voxgamma/internal/fault"
 	"voxgamma/internal/safetext"
 )
@@ -129,6 +130,36 @@ type globals struct {
 	outcome string
 	// restoreLimit undoes the memory limit a command set (run calls it).
 	restoreLimit func()
+	// deid is the run's de-identification, nil unless asked for
+	// (startDeid): the console writers then scrub what it knows.
+	deid *deid.Run
+}
+
+// startDeid starts the de-identification of this run when on: it loads the
+// site key (--site-key FILE, else VOXGAMMA_SITE_KEY, else a random key for
+// the run), makes stdout and stderr scrub every identifying value the run
+// learns, and returns the run; nil when off (a key file without
+// --deidentify is an error).
+func startDeid(g *globals, on bool, keyFile string) (*deid.Run, error) {
+	if !on {
+		if keyFile != "" {
+			return nil, errors.New("--site-key is used with --deidentify only")
+		}
+		return nil, nil
+	}
+	k, err := deid.LoadKey(keyFile, os.Getenv)
+	if err != nil {
+		return nil, err
+	}
+	r := deid.NewRun(k)
+	g.deid = r
+	g.stdout.Filter, g.stderr.Filter = r.Scrub, r.Scrub
+	return r, nil
+}
+
+// deidFlags registers --site-key beside a command's --deidentify.
+func deidFlags(cmd *cobra.Command, keyFile *string) {
+	cmd.Flags().StringVar(keyFile, "site-key", "", "with --deidentify: file holding the site secret that keys the pseudonyms (HMAC-SHA-256; at least 16 bytes); default $"+deid.EnvSiteKey+", else a random key for this run")
 }
 
 func newGlobals(stdout, stderr io.Writer) *globals {

@@ -12,6 +12,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"voxgamma/batch"
+	"voxgamma/deid"
 	"voxgamma/job"
 	"voxgamma/record"
 	"voxgamma/result"
@@ -124,6 +125,7 @@ type batchRecorder struct {
 	source     string
 	defProto   string
 	deidentify bool
+	pseudonym  func(string) string
 	stores     stores
 	targets    sync.Map // protocol name → store name
 	recorded   atomic.Int64
@@ -156,7 +158,7 @@ func (b *batchRecorder) record(ctx context.Context, c batch.Case, r *result.Resu
 	}
 	l := record.Labels{Machine: c.Machine, Technique: c.Technique, Site: c.Site, PlanningSystem: c.PlanningSystem,
 		RecalculationEngine: c.RecalculationEngine}.Or(b.flags.labels)
-	if _, err := st.Record(ctx, r, record.Meta{Source: b.source, CaseID: c.ID, Labels: l, Deidentify: b.deidentify, Pseudonym: job.Pseudonym}); err != nil {
+	if _, err := st.Record(ctx, r, record.Meta{Source: b.source, CaseID: c.ID, Labels: l, Deidentify: b.deidentify, Pseudonym: b.pseudonym}); err != nil {
 		return err
 	}
 	b.recorded.Add(1)
@@ -175,9 +177,11 @@ func (b *batchRecorder) storeNames() string {
 // use the protocols named (and defProto), or nil when none records: no
 // --record, no record field in those protocols, no $VOXGAMMA_RECORD. The
 // store of the default protocol is opened at once, so that a store that
-// cannot be opened stops the command before any comparison.
-func newBatchRecorder(ctx context.Context, f *recordFlags, source, defProto string, protocols []string, deidentify bool) (*batchRecorder, error) {
-	b := &batchRecorder{flags: f, source: source, defProto: defProto, deidentify: deidentify}
+// cannot be opened stops the command before any comparison. With a
+// de-identification d (nil: none), records hold pseudonyms keyed with its
+// key and no paths.
+func newBatchRecorder(ctx context.Context, f *recordFlags, source, defProto string, protocols []string, d *deid.Run) (*batchRecorder, error) {
+	b := &batchRecorder{flags: f, source: source, defProto: defProto, deidentify: d != nil, pseudonym: pseudonymFunc(d)}
 	any := false
 	for _, p := range append([]string{defProto}, protocols...) {
 		t, err := b.targetFor(p)
@@ -216,6 +220,7 @@ func newRecordImport(g *globals) *cobra.Command {
 	f := &recordFlags{}
 	var manifest string
 	var deidentify bool
+	var siteKey string
 	cmd := &cobra.Command{
 		Use:   "import DIR... --record DB [--manifest MANIFEST] [labels]",
 		Short: "Record the results already in folders (batch and watch outputs, compare --json files)",
@@ -239,7 +244,11 @@ Exit status: 0 all results recorded, 1 a result could not be (each is named).`,
 			if dsn == "" {
 				return fmt.Errorf("--record is required (or set %s): the results store to import into", record.EnvVar)
 			}
-			opt := record.ImportOptions{Labels: f.labels, Deidentify: deidentify, Pseudonym: job.Pseudonym}
+			d, err := startDeid(g, deidentify, siteKey)
+			if err != nil {
+				return err
+			}
+			opt := record.ImportOptions{Labels: f.labels, Deidentify: deidentify, Pseudonym: pseudonymFunc(d)}
 			if manifest != "" {
 				cases, err := batch.ReadManifest(manifest)
 				if err != nil {
@@ -277,7 +286,18 @@ Exit status: 0 all results recorded, 1 a result could not be (each is named).`,
 	f.register(cmd, false)
 	cmd.Flags().StringVar(&manifest, "manifest", "", "a batch manifest whose label columns give each case's labels (by case id)")
 	cmd.Flags().BoolVar(&deidentify, "deidentify", false, "record pseudonyms for patient IDs, UIDs and case ids, and no paths")
+	deidFlags(cmd, &siteKey)
 	return cmd
+}
+
+// pseudonymFunc is the pseudonym of a de-identified run's records: keyed
+// with the run's key (docs/patient-data.md), as the other outputs' are;
+// nil without de-identification.
+func pseudonymFunc(d *deid.Run) func(string) string {
+	if d == nil {
+		return nil
+	}
+	return func(s string) string { return d.Key.Pseudonym(deid.KindID, s) }
 }
 
 func newRecordStats(g *globals) *cobra.Command {
@@ -361,7 +381,7 @@ func recordCompare(cmd *cobra.Command, g *globals, f *compareFlags, st *record.S
 		return nil
 	}
 	n, err := st.Record(cmdContext(cmd), r, record.Meta{Source: "compare", CaseID: compareCaseID(f), Labels: f.rec.labels,
-		Deidentify: f.deidentify, Pseudonym: job.Pseudonym})
+		Deidentify: f.deidentify, Pseudonym: pseudonymFunc(g.deid)})
 	if err != nil {
 		return fmt.Errorf("the comparison finished and its outputs are written, but it was not recorded: %w", err)
 	}

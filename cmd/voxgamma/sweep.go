@@ -42,6 +42,8 @@ type sweepDoc struct {
 	Caution       string         `json:"caution"`
 	Inputs        []result.Input `json:"inputs"`
 	Rows          []sweepRow     `json:"rows"`
+	// Notes say how the document was de-identified (--deidentify).
+	Notes []string `json:"notes,omitempty"`
 }
 
 func newSweep(g *globals) *cobra.Command {
@@ -75,6 +77,10 @@ compare (threshold, normalisation dose, search distance, ROI kind rules).`,
 }
 
 func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFlags, doses, dtas []float64, norms []string) error {
+	d, err := f.deidScope(g)
+	if err != nil {
+		return err
+	}
 	if f.gammaMap != "" || f.diffMap != "" || f.reportOut != "" {
 		return fmt.Errorf("sweep writes tables only: use compare for maps and the review page")
 	}
@@ -112,7 +118,11 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 	if f.reference == "" && f.referencePoints == "" {
 		return fmt.Errorf("--reference (or --reference-points) is required")
 	}
-	l, err := analysis.Load(analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated, Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures})
+	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated, Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
+	if d != nil {
+		in.Seen = d.Seen
+	}
+	l, err := analysis.Load(in)
 	if err != nil {
 		return err
 	}
@@ -124,6 +134,12 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 		ctx = context.Background()
 	}
 	doc := sweepDoc{SchemaVersion: result.SchemaVersion, Version: version, Caution: result.Caution, Inputs: l.Inputs}
+	name := func(s string) string { return s }
+	if d != nil {
+		job.DeidentifyInputs(doc.Inputs, d)
+		doc.Notes = []string{job.DeidentifiedNote, d.Key().Note()}
+		name = d.Scrub
+	}
 	for _, n := range normList {
 		for _, d := range doses {
 			for _, dta := range dtas {
@@ -142,7 +158,7 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 				}
 				row := sweepRow{Criteria: out.Result.Criteria, Overall: out.Result.Overall}
 				for _, x := range out.Result.ROIs {
-					row.ROIs = append(row.ROIs, sweepROI{Name: x.Name, Kind: x.Kind, Evaluated: x.Evaluated, PassRate: x.PassRate, PassRateText: x.PassRateText, GammaMean: x.GammaMean})
+					row.ROIs = append(row.ROIs, sweepROI{Name: name(x.Name), Kind: x.Kind, Evaluated: x.Evaluated, PassRate: x.PassRate, PassRateText: x.PassRateText, GammaMean: x.GammaMean})
 				}
 				doc.Rows = append(doc.Rows, row)
 			}

@@ -16,7 +16,7 @@ import (
 
 func newWatch(g *globals) *cobra.Command {
 	f := &caseFlags{}
-	var out string
+	var out, maxMemory string
 	var settle, poll time.Duration
 	var once, requireStructures bool
 	var refMatch, evalMatch []string
@@ -71,10 +71,21 @@ failed its rules, 1 when one could not be evaluated.`,
 			if f.workers < 0 {
 				return fmt.Errorf("--workers %d: want 1 or more (0: all cores)", f.workers)
 			}
+			d, err := startDeid(g, f.deid, f.siteKey)
+			if err != nil {
+				return err
+			}
+			budget, _ := batch.DefaultBudget()
+			if maxMemory != "" {
+				if budget, err = batch.ParseBytes(maxMemory); err != nil {
+					return fmt.Errorf("--max-memory: %w", err)
+				}
+			}
+			defer memoryLimit(budget)()
 			log := runLogger(g, g.stderr)
 			opt := batch.WatchOptions{Dir: args[0], Out: out, Settle: settle, Protocol: f.protocol,
 				Overrides: f.overrides(cmd), Outputs: f.outputs(), AllowFrameMismatch: f.allowFrameMismatch,
-				RequireStructures: requireStructures, Log: log}
+				RequireStructures: requireStructures, Log: log, MaxMemory: budget, Deid: d}
 			if cmd.Flags().Changed("reference-match") {
 				opt.ReferenceMatch = refMatch
 			}
@@ -85,7 +96,7 @@ failed its rules, 1 when one could not be evaluated.`,
 			if ctx == nil {
 				ctx = context.Background()
 			}
-			rec, err := newBatchRecorder(ctx, &f.rec, "watch", f.protocol, nil, f.deid)
+			rec, err := newBatchRecorder(ctx, &f.rec, "watch", f.protocol, nil, d)
 			if err != nil {
 				return err
 			}
@@ -136,6 +147,7 @@ failed its rules, 1 when one could not be evaluated.`,
 	fl.StringVar(&out, "out", "", "results folder: OUTDIR/<case-key>/ per case and the state file (default: DIR/.voxgamma)")
 	fl.DurationVar(&settle, "settle", batch.DefaultSettle, "how long every file of a case must be unchanged before it is read")
 	fl.DurationVar(&poll, "poll", batch.DefaultPoll, "time between two scans of DIR")
+	fl.StringVar(&maxMemory, "max-memory", "", "memory budget, e.g. 8GiB (default: 70 % of the memory available, as for batch); a case estimated to need more is moved aside unread")
 	fl.BoolVar(&once, "once", false, "process what is complete now and exit (for cron and tests)")
 	fl.BoolVar(&requireStructures, "require-structures", false, "wait for a structure set in the reference dose's frame of reference")
 	fl.StringArrayVar(&refMatch, "reference-match", nil, "rule telling a reference RT Dose: GLOB on the file name, or series:GLOB, manufacturer:GLOB, comment:GLOB (repeatable; replaces the defaults)")
