@@ -82,14 +82,14 @@ func TestScrub(t *testing.T) {
 		StudyInstanceUID: "1.2.3.4", FrameOfReferenceUID: "1.2.3.4.5"})
 	s.Text("QA for Jane Doe", Removed)
 	cases := map[string]string{
-		"reading " + ref + ": PixelSpacing":         "reading reference: PixelSpacing",
+		"reading " + ref + ": PixelSpacing":              "reading reference: PixelSpacing",
 		"chose dose RD.plan.dcm in " + filepath.Dir(ref): "chose dose reference in " + FolderRemoved,
-		"patient doe^jane (12345678) born 1961-02-03": "patient " + k.Pseudonym(KindName, "DOE^JANE") + " (" + k.Pseudonym(KindID, "12345678") + ") born " + DateRemoved,
-		"JANE's ROI PTV_DOE":                          NameRemoved + "'s ROI PTV_" + NameRemoved,
-		"frames 1.2.3.4.5 and 1.2.3.4 and 1.2.3.4.6":  "frames " + k.UID("1.2.3.4.5") + " and " + k.UID("1.2.3.4") + " and 1.2.3.4.6",
-		"series \"QA for Jane Doe\"":                  "series \"" + Removed + "\"",
-		"123456789 and 912345678 stay, x12345678 too": "123456789 and 912345678 stay, x12345678 too",
-		"JANET and DOEs stay":                         "JANET and DOEs stay",
+		"patient doe^jane (12345678) born 1961-02-03":    "patient " + k.Pseudonym(KindName, "DOE^JANE") + " (" + k.Pseudonym(KindID, "12345678") + ") born " + DateRemoved,
+		"JANE's ROI PTV_DOE":                             NameRemoved + "'s ROI PTV_" + NameRemoved,
+		"frames 1.2.3.4.5 and 1.2.3.4 and 1.2.3.4.6":     "frames " + k.UID("1.2.3.4.5") + " and " + k.UID("1.2.3.4") + " and 1.2.3.4.6",
+		"series \"QA for Jane Doe\"":                     "series \"" + Removed + "\"",
+		"123456789 and 912345678 stay, x12345678 too":    "123456789 and 912345678 stay, x12345678 too",
+		"JANET and DOEs stay":                            "JANET and DOEs stay",
 	}
 	for in, want := range cases {
 		if got := s.Scrub(in); got != want {

@@ -18,7 +18,9 @@ func LogHandler(inner slog.Handler, scrub func(string) string) slog.Handler {
 	return &scrubHandler{inner: inner, scrub: scrub}
 }
 
-func (h *scrubHandler) Enabled(ctx context.Context, l slog.Level) bool { return h.inner.Enabled(ctx, l) }
+func (h *scrubHandler) Enabled(ctx context.Context, l slog.Level) bool {
+	return h.inner.Enabled(ctx, l)
+}
 
 func (h *scrubHandler) Handle(ctx context.Context, r slog.Record) error {
 	out := slog.NewRecord(r.Time, r.Level, h.scrub(r.Message), r.PC)
