@@ -8,13 +8,16 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"voxgamma/batch"
 	"voxgamma/dicomio"
 	"voxgamma/roi"
-	"voxgamma/volume"
+	"voxgamma/structure"
 )
 
 func newInspect(g *globals) *cobra.Command {
 	var kindRules []string
+	var deidentify, values bool
+	var siteKey, maxMemory string
 	cmd := &cobra.Command{
 		Use:   "inspect PATH...",
 		Short: "Describe RT Dose and RT Structure Set files or folders",
@@ -22,7 +25,10 @@ func newInspect(g *globals) *cobra.Command {
 extent, units, summation type and frame of reference; for a structure set, the
 ROIs with their kinds and contour counts; for a folder, which files voxgamma
 would choose and why. Problems found are listed; the exit status is 1 when a
-path could not be read.`,
+path could not be read.
+
+A dose's header is read, not its values, whatever the grid's size: --values
+also reads the values (for the maximum dose), within the memory budget.`,
 		Example: `  voxgamma inspect plan/RD.dcm plan/RS.dcm
   voxgamma inspect export-folder/`,
 		Args: cobra.MinimumNArgs(1),
@@ -35,9 +41,18 @@ path could not be read.`,
 				}
 				rules = append(rules, r)
 			}
+			run, err := startDeid(g, deidentify, siteKey)
+			if err != nil {
+				return err
+			}
+			if run != nil {
+				for i, p := range args {
+					run.Base().Path(p, fmt.Sprintf("input %d", i+1))
+				}
+			}
 			var failed []string
 			for _, p := range args {
-				if err := inspectPath(g, p, rules); err != nil {
+				if err := inspectPath(g, p, rules, values, maxMemory); err != nil {
 					fmt.Fprintf(g.stdout, "%s: problem: %s\n\n", p, oneLine(err.Error()))
 					failed = append(failed, p)
 				}
@@ -50,10 +65,22 @@ path could not be read.`,
 		},
 	}
 	cmd.Flags().StringArrayVar(&kindRules, "kind", nil, `ROI kind rule PATTERN=KIND, as for compare (repeatable)`)
+	cmd.Flags().BoolVar(&deidentify, "deidentify", false, "show no path, name, ID, date, description or original UID (keyed pseudonyms and remapped UIDs instead), as compare --deidentify")
+	deidFlags(cmd, &siteKey)
+	cmd.Flags().BoolVar(&values, "values", false, "also read each dose's values (its maximum), checked against the memory budget first")
+	cmd.Flags().StringVar(&maxMemory, "max-memory", "", "memory budget for --values, e.g. 8GiB (default: 70 % of the memory available)")
 	return cmd
 }
 
-func inspectPath(g *globals, path string, rules []roi.Rule) error {
+// seen registers a file's identifying values with the de-identification
+// of the run, if any, before anything about it is printed.
+func (g *globals) seen(role, path string, dose *dicomio.DoseInfo, set *structure.Set) {
+	if g.deid != nil {
+		g.deid.Base().Seen(role, path, dose, set)
+	}
+}
+
+func inspectPath(g *globals, path string, rules []roi.Rule, values bool, maxMemory string) error {
 	w := g.stdout
 	st, err := os.Stat(path)
 	if err != nil {
@@ -63,6 +90,15 @@ func inspectPath(g *globals, path string, rules []roi.Rule) error {
 		folder, err := dicomio.ScanFolder(path)
 		if err != nil {
 			return err
+		}
+		for _, d := range folder.Doses {
+			g.seen("", d.Path, d.Info, nil)
+		}
+		for _, s := range folder.StructureSets {
+			g.seen("", s.Path, nil, s.Set)
+		}
+		for _, ig := range folder.Ignored {
+			g.seen("", ig.Path, nil, nil)
 		}
 		fmt.Fprintf(w, "%s: folder with %d RT Dose and %d RT Structure Set files\n", path, len(folder.Doses), len(folder.StructureSets))
 		for _, d := range folder.Doses {
@@ -112,13 +148,36 @@ func inspectPath(g *globals, path string, rules []roi.Rule) error {
 		fmt.Fprintln(w)
 		return nil
 	}
-	grid, info, derr := dicomio.ReadDose(path)
+	info, geo, derr := dicomio.ReadDoseHeader(path)
 	if derr == nil {
-		describeDose(g, path, grid, info)
+		g.seen("", path, info, nil)
+		var max *float32
+		if values {
+			budget, source := batch.DefaultBudget()
+			if maxMemory != "" {
+				if budget, err = batch.ParseBytes(maxMemory); err != nil {
+					return fmt.Errorf("--max-memory: %w", err)
+				}
+				source = "--max-memory"
+			}
+			n := int64(info.Rows) * int64(info.Columns) * int64(max1(info.NumberOfFrames))
+			if need := int64(4)*n + batch.FixedBytesPerCase; need > budget {
+				return fmt.Errorf("reading the values of %d×%d×%d voxels needs about %s; the memory budget is %s (%s): inspect it without --values, or raise --max-memory",
+					info.Columns, info.Rows, info.NumberOfFrames, batch.FormatBytes(need), batch.FormatBytes(budget), source)
+			}
+			grid, _, err := dicomio.ReadDose(path)
+			if err != nil {
+				return err
+			}
+			m, _ := grid.Max()
+			max = &m
+		}
+		describeDose(g, path, geo, info, max)
 		return nil
 	}
 	set, serr := dicomio.ReadStructureSet(path)
 	if serr == nil {
+		g.seen("", path, nil, set)
 		fmt.Fprintf(w, "%s: RT Structure Set %q, %d ROIs, frame of reference %s\n", path, set.Label, len(set.ROIs), set.FrameOfReferenceUID)
 		if g.verbose {
 			fmt.Fprintf(w, "  patient %s (%s)\n", set.PatientName, set.PatientID)
@@ -157,11 +216,14 @@ func inspectPath(g *globals, path string, rules []roi.Rule) error {
 	return derr
 }
 
-func describeDose(g *globals, path string, grid *volume.Grid, info *dicomio.DoseInfo) {
+func max1(n int) int { return max(n, 1) }
+
+// describeDose prints what a dose header says, and the maximum dose when
+// its values were read (max not nil).
+func describeDose(g *globals, path string, grid *dicomio.DoseGeometry, info *dicomio.DoseInfo, max *float32) {
 	w := g.stdout
-	d := grid.Dims()
+	d := grid.Dims
 	lo, hi := grid.Bounds()
-	max, _ := grid.Max()
 	fmt.Fprintf(w, "%s: RT Dose %s, units %s, type %s, summation %s\n", path, info.SeriesDescription, info.DoseUnits, info.DoseType, info.DoseSummationType)
 	if g.verbose {
 		fmt.Fprintf(w, "  patient %s (%s)\n", info.PatientName, info.PatientID)
@@ -178,7 +240,11 @@ func describeDose(g *globals, path string, grid *volume.Grid, info *dicomio.Dose
 	}
 	fmt.Fprintf(w, "  spacing %s mm; orientation %v\n", strings.Join(sp, " × "), info.ImageOrientationPatient)
 	fmt.Fprintf(w, "  extent x %.2f…%.2f, y %.2f…%.2f, z %.2f…%.2f mm\n", lo[0], hi[0], lo[1], hi[1], lo[2], hi[2])
-	fmt.Fprintf(w, "  maximum %.4g %s; frame of reference %s\n", max, strings.ToLower(info.DoseUnits), info.FrameOfReferenceUID)
+	if max != nil {
+		fmt.Fprintf(w, "  maximum %.4g %s; frame of reference %s\n", *max, strings.ToLower(info.DoseUnits), info.FrameOfReferenceUID)
+	} else {
+		fmt.Fprintf(w, "  frame of reference %s (dose values not read: --values for the maximum)\n", info.FrameOfReferenceUID)
+	}
 	for _, n := range info.Notes {
 		fmt.Fprintf(w, "  note: %s\n", n)
 	}
