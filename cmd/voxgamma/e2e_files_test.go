@@ -7,6 +7,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"runtime"
 	"strings"
 	"syscall"
 	"testing"
@@ -14,6 +15,7 @@ import (
 
 	"voxgamma/batch"
 	"voxgamma/batch/batchtest"
+	"voxgamma/phantom"
 )
 
 // TestForceRegularFilesOnly: --force overwrites regular files only. An
@@ -266,5 +268,43 @@ func TestBatchOneRunPerFolder(t *testing.T) {
 		if status != exitError || !strings.Contains(stderr, "shard 0/2") {
 			t.Errorf("batch %v beside shard 0/2: exit %d\n%s", args, status, stderr)
 		}
+	}
+}
+
+// TestInspectHeadersOnly: inspect reads a dose's header, not its values,
+// unless --values asks for them. On a 256 × 256 × 100 grid (6.6 M voxels:
+// 13 MB of 16-bit values in the file, 26 MB as the float32 grid voxgamma
+// decodes into) the heap allocated by inspect (runtime.MemStats.TotalAlloc)
+// stays under 4 MB, and the description still gives the grid, spacing and
+// extent from the header (extent = origin + (n − 1) × spacing, PS3.3
+// C.7.6.2.1.1); --values allocates the grid (more than 26 MB) and prints
+// the maximum; --values beyond --max-memory is refused before reading.
+func TestInspectHeadersOnly(t *testing.T) {
+	dose := filepath.Join(t.TempDir(), "big.dcm")
+	writeTestDose(t, dose, [3]int{256, 256, 100}, [3]float64{-255, -255, -99}, [3]float64{2, 2, 2}, phantom.Uniform(2), phantomIDs())
+	alloc := func(args ...string) (invocation, uint64) {
+		var a, b runtime.MemStats
+		runtime.GC()
+		runtime.ReadMemStats(&a)
+		r := vgRun(t, args...)
+		runtime.ReadMemStats(&b)
+		return r, b.TotalAlloc - a.TotalAlloc
+	}
+	r, n := alloc("inspect", dose)
+	if r.code != exitPass || n > 4<<20 {
+		t.Errorf("inspect allocated %d bytes (exit %d)\n%s", n, r.code, r)
+	}
+	for _, want := range []string{"grid 256×256×100", "spacing 2 × 2 × 2 mm", "extent x -255.00…255.00, y -255.00…255.00, z -99.00…99.00 mm", "dose values not read"} {
+		if !strings.Contains(r.stdout, want) {
+			t.Errorf("no %q in\n%s", want, r.stdout)
+		}
+	}
+	r, n = alloc("inspect", dose, "--values")
+	if r.code != exitPass || n < 26<<20 || !strings.Contains(r.stdout, "maximum 2 gy") {
+		t.Errorf("inspect --values allocated %d bytes (exit %d)\n%s", n, r.code, r)
+	}
+	r, n = alloc("inspect", dose, "--values", "--max-memory", "8MiB")
+	if r.code != exitError || n > 4<<20 || !strings.Contains(r.stdout, "the memory budget is 8 MiB") {
+		t.Errorf("inspect --values beyond the budget: %d bytes\n%s", n, r)
 	}
 }
