@@ -171,6 +171,19 @@ func TestDeidentifyPlantedValues(t *testing.T) {
 		})
 	}
 
+	// compare stopped by bad input: a structure set of another frame of
+	// reference (another planted case) makes an error line that names the
+	// files, the label and both frame UIDs.
+	other := plantCase(t, t.TempDir(), 1)
+	vals2 := append(planted(t, other.Structures), vals...)
+	for _, lv := range levels {
+		r := vgRun(t, append([]string{"compare", "--reference", f.Reference, "--evaluated", f.Evaluated, "--structures", other.Structures, "--deidentify"}, lv...)...)
+		if r.code != exitError || !strings.Contains(r.stderr, "different frames of reference") {
+			t.Fatalf("compare across frames: %s", r)
+		}
+		grepWritten(t, "compare error "+strings.Join(lv, ""), vals2, r)
+	}
+
 	// batch: two cases of the planted patient (one whose evaluated file is
 	// missing: its error names the path), every output, every log level; a
 	// second run with the same key resumes on content hashes.
