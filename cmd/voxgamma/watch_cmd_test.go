@@ -182,7 +182,7 @@ func TestWatchCmdRestartReportsFoundCase(t *testing.T) {
 // and each output folder holds its own case's status.
 func TestWatchCmdKeysCannotCollide(t *testing.T) {
 	dir, out := t.TempDir(), filepath.Join(t.TempDir(), "out")
-	flat, err := batchtest.Write(dir, batchtest.Spec{Reference: "ref_flat.dcm", Evaluated: "eval_flat.dcm", NoStructures: true})
+	flat, err := batchtest.Write(dir, batchtest.Spec{Reference: "ref_flat.dcm", Evaluated: "eval_flat.dcm", Structures: "rs_flat.dcm"})
 	if err != nil {
 		t.Fatal(err)
 	}
