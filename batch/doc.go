@@ -23,8 +23,9 @@
 // # Resume rule
 //
 // A case is skipped when its folder holds a status.json whose verdict is
-// pass or fail, whose inputs are the case's inputs with the same paths and
-// the same SHA-256 (a folder input hashes its regular files, by name), whose
+// pass or fail, whose inputs are the case's inputs by role and content, the
+// same SHA-256 whatever their paths (a folder input hashes its regular
+// files, by name), whose
 // settings hash is the run's, and whose listed outputs all exist. The
 // settings hash ([SettingsHash]) is the SHA-256 of a canonical JSON document
 // (fixed field order, shortest number forms) of everything besides the
@@ -79,5 +80,28 @@
 // changed since it was last handled a poll costs one stat per file. Each
 // case is processed once, also across restarts, as recorded in the state
 // file by the fingerprint of its files (paths, sizes, modification times,
-// SHA-256); broken cases are moved aside into DIR/.failed/.
+// SHA-256); broken cases are moved aside into DIR/.failed/. A case is
+// recognised by the content of its files alone (their SHA-256), also when
+// it is found finished in the output folder after a restart: it is then
+// reported with its verdict. Case keys (output folder names) of the flat
+// layout, of unreadable flat files and of altered folder names carry
+// prefixes (for-, file-, x-) that a subfolder's own name keeps only when it
+// starts with none of them, so no two cases share an output folder. A case
+// estimated to need more than the memory budget is moved aside unread.
+//
+// # One run per output folder
+//
+// [Run] takes an advisory lock file in its output folder (one per shard)
+// holding its PID and host, refreshed every LockHeartbeat: a second run
+// whose cases overlap stops with an error naming the owner; a lock whose
+// owner is gone (a dead PID on this host, or no refresh for LockStaleAfter
+// from another host) is taken over with a log line. No output folder may
+// hold, replace or lie inside an input ([CheckOut]).
+//
+// # De-identification
+//
+// With Outputs.Deidentify, every case's identifying values are scrubbed
+// from its outputs, status (paths become roles, no dates), the log, the
+// watch state (no names, keyed fingerprints) and watch case keys (keyed
+// tokens); see package deid.
 package batch

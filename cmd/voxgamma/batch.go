@@ -185,12 +185,15 @@ manifest's folder), or a JSON list of objects with those keys. A case's
 protocol defaults to --protocol. The other options of this command apply to
 every case.
 
-Resume: a case whose folder holds a status with the same input files (paths and
-SHA-256) and the same settings (protocol content, criteria, options) and whose
-outputs are all there is skipped; anything else is computed again. Cases that
+Resume: a case whose folder holds a status with the same input files (by
+content: SHA-256, not paths) and the same settings (protocol content, criteria,
+options) and whose outputs are all there is skipped; anything else is computed again. Cases that
 could not be evaluated are always tried again. A case is built in a temporary
 folder and renamed into place, so a batch killed at any instant leaves no half
-case: run the same command again to finish it.
+case: run the same command again to finish it. One batch runs per output
+folder (per shard): a lock file there names the owner; a second run is refused,
+a stale lock (its owner gone) taken over. --out may not hold or lie inside any
+input.
 
 Cases run in parallel within a memory budget (--max-memory; default 70 % of
 the memory available, within the cgroup limit of a scheduler's job): each

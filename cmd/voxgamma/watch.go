@@ -49,11 +49,17 @@ file of its folder (DIR itself for the flat layout) has changed size or
 modification time for --settle, as seen by two scans at least: files still
 being written are never read. The
 same content under two names counts once. A case is processed once, also across
-restarts: OUTDIR/.voxgamma-watch-state.json records each case by its files'
-paths, sizes, modification times and SHA-256; a case whose files change is
-processed again. A broken case (an unreadable file, frames of reference that
-differ, two reference doses) is moved into DIR/.failed/<case-key>/ with an
-error.txt, and the watcher goes on.
+restarts: OUTDIR/.voxgamma-watch-state.json records each case by the content of
+its files (SHA-256); a case whose files change is processed again, and a case
+found finished in OUTDIR after a stop is reported with its verdict. A broken
+case (an unreadable file, frames of reference that differ, two reference doses,
+more memory than --max-memory allows) is moved into DIR/.failed/<case-key>/
+with an error.txt, and the watcher goes on. Case keys: a subfolder's name (made
+"x-NAME-HASH" when it is not filesystem-safe or starts with a prefix the other
+keys use), "for-HASH" for a frame of reference of the flat layout, "file-NAME"
+for an unreadable flat file; keyed tokens with --deidentify.
+
+OUTDIR may not be DIR, contain it, or lie inside a case folder of it.
 
 Idle polls only list folders and stat files. SIGINT or SIGTERM stop it cleanly
 (a case under way is abandoned and processed again on the next start). --once
