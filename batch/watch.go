@@ -389,7 +389,11 @@ func (w *Watcher) scope(unit string, paths []string) *deid.Scope {
 	}
 	s := w.scopes[unit]
 	if s == nil {
+		// Kept for as long as the folder exists, but part of the run's
+		// own scrubbing only while the folder is handled (handleUnit):
+		// a folder of many cases costs each log line one scope.
 		s = w.deid.Scope()
+		s.Close()
 		w.scopes[unit] = s
 		if unit != "." {
 			key := w.subfolderKey(unit)
@@ -869,6 +873,10 @@ type watchCase struct {
 // processes each. waiting is true when a case is not complete yet.
 func (w *Watcher) handleUnit(ctx context.Context, unit string, paths []string) (done []WatchedCase, waiting bool, err error) {
 	sc := w.scope(unit, paths)
+	if sc != nil {
+		sc.Activate()
+		defer sc.Close()
+	}
 	var files []*watchFile
 	for _, p := range paths {
 		f := w.classify(p)

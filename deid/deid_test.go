@@ -5,6 +5,7 @@ import (
 	"encoding/hex"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -102,5 +103,26 @@ func TestScrub(t *testing.T) {
 	s.Close()
 	if got := run.Scrub("id 12345678"); got != "id 12345678" {
 		t.Errorf("run scrub after close: %q", got)
+	}
+}
+
+// BenchmarkScrub: one log line through a case's scope (about 30 values)
+// and through a flat watched folder's (5,000 file names).
+func BenchmarkScrub(b *testing.B) {
+	k := NewKey([]byte("0123456789abcdef-site-secret"), "bench")
+	line := `time=2026-01-01T00:00:00Z level=INFO msg="case started" case=for-0123456789ab reference=/exports/qa/DOE_JANE_12345678/RD.plan.dcm evaluated=/exports/qa/DOE_JANE_12345678/RD.mc.dcm structures=""`
+	for _, n := range []int{30, 5000} {
+		s := NewRun(k).Scope()
+		s.Identifiers(dicomio.Identifiers{PatientName: "DOE^JANE", PatientID: "12345678", StudyInstanceUID: "1.2.3.4", FrameOfReferenceUID: "1.2.3.5"})
+		s.Path("/exports/qa/DOE_JANE_12345678/RD.plan.dcm", "reference")
+		for i := 0; len(s.vals) < n; i++ {
+			s.File(filepath.Join("/exports/qa", "export_"+strconv.Itoa(i)+".dcm"), FileRemoved)
+		}
+		b.Run(strconv.Itoa(n)+"values", func(b *testing.B) {
+			b.SetBytes(int64(len(line)))
+			for range b.N {
+				s.Scrub(line)
+			}
+		})
 	}
 }

@@ -95,10 +95,12 @@ func (r *Run) Scrub(text string) string {
 // Scope is the set of identifying values of one case (or of the whole run)
 // with their replacements. It is safe for concurrent use.
 type Scope struct {
-	run    *Run
-	mu     sync.Mutex
-	vals   map[string]entry
-	sorted []entry // by decreasing length; nil when stale
+	run  *Run
+	mu   sync.Mutex
+	vals map[string]entry
+	// byFirst holds the entries by the first byte of their lower-case
+	// value, each list by decreasing length; nil when stale.
+	byFirst map[byte][]entry
 }
 
 // Close ends the scope's part in [Run.Scrub] (its values stay scrubbed by
@@ -106,6 +108,18 @@ type Scope struct {
 func (s *Scope) Close() {
 	s.run.mu.Lock()
 	delete(s.run.active, s)
+	s.run.mu.Unlock()
+}
+
+// Activate makes a closed scope part of [Run.Scrub] again (until the next
+// Close): a long-lived scope (a watched folder's) takes part only while its
+// case is handled.
+func (s *Scope) Activate() {
+	if s == s.run.base {
+		return
+	}
+	s.run.mu.Lock()
+	s.run.active[s] = true
 	s.run.mu.Unlock()
 }
 
@@ -131,7 +145,7 @@ func (s *Scope) add(v, repl string, uid bool) {
 		}
 	}
 	s.vals[l] = entry{lower: l, repl: repl, uid: uid}
-	s.sorted = nil
+	s.byFirst = nil
 }
 
 // Text registers a free-text value (a description, a label) to be replaced
@@ -278,22 +292,24 @@ func (s *Scope) Scrub(text string) string {
 	return s.run.base.scrubOwn(text)
 }
 
-func (s *Scope) entries() []entry {
+func (s *Scope) entries() map[byte][]entry {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	if s.sorted == nil {
-		s.sorted = make([]entry, 0, len(s.vals))
+	if s.byFirst == nil {
+		s.byFirst = map[byte][]entry{}
 		for _, e := range s.vals {
-			s.sorted = append(s.sorted, e)
+			s.byFirst[e.lower[0]] = append(s.byFirst[e.lower[0]], e)
 		}
-		sort.Slice(s.sorted, func(i, j int) bool {
-			if len(s.sorted[i].lower) != len(s.sorted[j].lower) {
-				return len(s.sorted[i].lower) > len(s.sorted[j].lower)
-			}
-			return s.sorted[i].lower < s.sorted[j].lower
-		})
+		for _, list := range s.byFirst {
+			sort.Slice(list, func(i, j int) bool {
+				if len(list[i].lower) != len(list[j].lower) {
+					return len(list[i].lower) > len(list[j].lower)
+				}
+				return list[i].lower < list[j].lower
+			})
+		}
 	}
-	return s.sorted
+	return s.byFirst
 }
 
 // scrubOwn replaces this scope's values in text: matches ignore ASCII
@@ -313,7 +329,7 @@ func (s *Scope) scrubOwn(text string) string {
 			continue
 		}
 		matched := false
-		for _, e := range es {
+		for _, e := range es[lower[i]] {
 			n := len(e.lower)
 			if i+n > len(text) || lower[i:i+n] != e.lower {
 				continue
