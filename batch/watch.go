@@ -427,8 +427,8 @@ func (w *Watcher) unitName(unit string) string {
 
 // subfolderKey is the case key (and output folder name) of a subfolder:
 // its name when that is a valid id (letters, digits, '.', '_', '-') that
-// does not start with a prefix the other keys use ("for-", "file-", "x-",
-// "case-"), else "x-", the name made filesystem-safe and 16 hex digits of
+// does not start with a prefix the other keys use ("for-", "file-", "x-"),
+// else "x-", the name made filesystem-safe and 16 hex digits of
 // its SHA-256; when de-identified, "case-" and a keyed token of the name.
 // The prefixes keep the kinds of keys apart, so no folder name can take
 // another case's output folder.
@@ -819,10 +819,11 @@ func (w *Watcher) classify(p string) *watchFile {
 }
 
 // reservedKeyPrefixes start the keys of cases that are not named after a
-// subfolder (flat layout, broken files, altered names, de-identified keys):
-// a subfolder named with one of them gets an altered key, so that it can
-// never take the output folder of another case.
-var reservedKeyPrefixes = []string{"for-", "file-", "x-", "case-"}
+// subfolder (flat layout, broken files, altered names): a subfolder named
+// with one of them gets an altered key, so that it can never take the
+// output folder of another case. (De-identified runs name every case by a
+// keyed token, with the prefixes case-, for- and file-.)
+var reservedKeyPrefixes = []string{"for-", "file-", "x-"}
 
 // safeKey turns a folder name into a case key usable as a folder name: the
 // name itself when it is a valid id (see [ValidID]) that starts with no

@@ -406,7 +406,15 @@ func TestSafeKey(t *testing.T) {
 			t.Errorf("%q → %q: %v", name, k, err)
 		}
 	}
-	if safeKey("ok-1") != "ok-1" || safeKey("a b") == safeKey("a_b") {
+	if safeKey("ok-1") != "ok-1" || safeKey("a b") == safeKey("a_b") || safeKey("case-1") != "case-1" {
 		t.Error("keys not kept or not distinct")
+	}
+	// Names that look like the keys of other kinds of cases are altered:
+	// a subfolder can take neither a flat case's output folder nor an
+	// altered name's.
+	for _, name := range []string{frameKey("1.2.3"), "FOR-x", "file-RD_plan", "x-a_b-0123456789abcdef", safeKey("a b")} {
+		if k := safeKey(name); k == name || ValidID(k) != nil {
+			t.Errorf("%q → %q", name, k)
+		}
 	}
 }
