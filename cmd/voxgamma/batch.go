@@ -224,6 +224,9 @@ last line on stderr gives the counts.`,
 			if err != nil {
 				return err
 			}
+			if d != nil {
+				d.Base().File(args[0], "the manifest")
+			}
 			cases, err := batch.ReadManifest(args[0])
 			if err != nil {
 				return err
