@@ -172,6 +172,16 @@ type caseWork struct {
 	scope *deid.Scope
 }
 
+// caseScope opens the de-identification scope of the case, its input
+// paths registered for their roles.
+func (w caseWork) caseScope() *deid.Scope {
+	s := w.deid.Scope()
+	s.Path(w.c.Reference, "reference")
+	s.Path(w.c.Evaluated, "evaluated")
+	s.Path(w.c.Structures, "structures")
+	return s
+}
+
 // scrub de-identifies a message of the case (unchanged without
 // de-identification).
 func (w caseWork) scrub(s string) string {
@@ -474,11 +484,15 @@ const (
 // recovers: the panic becomes this case's error instead, written to its
 // folder like any other case that could not be evaluated.
 func runOneProtected(ctx context.Context, casesDir string, w caseWork, protoErr error, rerun bool, mem *semaphore.Weighted, budget int64, log *slog.Logger) (out outcome, unwritten string) {
+	if w.deid != nil {
+		w.scope = w.caseScope()
+		defer w.scope.Close()
+	}
 	defer func() {
 		if p := recover(); p != nil {
 			err := fmt.Errorf("internal error: %v (please report it)", p)
 			st := newStatus(w, nil, nil)
-			st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, caseMessage(w.c.ID, err)
+			st.Verdict, st.ExitClass, st.Error = VerdictError, ExitError, w.scrub(caseMessage(w.c.ID, err))
 			if ierr := writeErrorCase(casesDir, st); ierr != nil {
 				log.Error("case folder not written", "id", w.c.ID, "error", ierr.Error())
 				unwritten = st.Error + "; " + oneLine(ierr.Error())
@@ -500,12 +514,9 @@ func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, re
 	if ctx.Err() != nil {
 		return outcomeInterrupted, ""
 	}
-	if w.deid != nil {
-		w.scope = w.deid.Scope()
+	if w.deid != nil && w.scope == nil {
+		w.scope = w.caseScope()
 		defer w.scope.Close()
-		w.scope.Path(c.Reference, "reference")
-		w.scope.Path(c.Evaluated, "evaluated")
-		w.scope.Path(c.Structures, "structures")
 	}
 	final := filepath.Join(casesDir, c.ID)
 	prev, _ := ReadStatus(final)
