@@ -10,8 +10,10 @@ import (
 	"voxgamma/result"
 )
 
-// StatusSchemaVersion is the version of the status.json layout.
-const StatusSchemaVersion = "1.0"
+// StatusSchemaVersion is the version of the status.json layout. 1.1: a
+// de-identified status gives each input's role as its path and no finish
+// time; resume compares inputs by role and content only.
+const StatusSchemaVersion = "1.1"
 
 // StatusFile is the name of the case-status file in each case folder.
 const StatusFile = "status.json"

@@ -17,8 +17,10 @@ import (
 	"voxgamma/result"
 )
 
-// SummarySchemaVersion is the version of the summary layout.
-const SummarySchemaVersion = "1.0"
+// SummarySchemaVersion is the version of the summary layout. 2.0:
+// target_pass_rates is a JSON list of [name, rate] pairs (it was
+// "NAME:RATE;NAME:RATE", which an ROI name could forge).
+const SummarySchemaVersion = "2.0"
 
 // SummaryColumns are the columns of summary.csv, in order. seconds, the only
 // column that varies between runs of the same inputs, is last.

@@ -43,7 +43,9 @@ const (
 	// none is given.
 	DefaultWatchOut = ".voxgamma"
 	// WatchStateSchemaVersion is the version of the state file's layout.
-	WatchStateSchemaVersion = "1.0"
+	// 2.0: cases are keyed by the content of their files alone; a
+	// de-identified state names no file or folder.
+	WatchStateSchemaVersion = "2.0"
 )
 
 // DefaultReferenceMatch and DefaultEvaluatedMatch are the rules that tell a
