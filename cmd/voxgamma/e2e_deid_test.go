@@ -137,7 +137,7 @@ func TestDeidentifyPlantedValues(t *testing.T) {
 				out := t.TempDir()
 				args := append([]string{"compare", "--reference", f.Reference, "--evaluated", f.Evaluated, "--structures", f.Structures, "--deidentify",
 					"--json", filepath.Join(out, "r.json"), "--csv", filepath.Join(out, "r.csv"), "--report", filepath.Join(out, "r.html"),
-					"--gamma-map", filepath.Join(out, "g.dcm"), "--difference-map", filepath.Join(out, "d.mha")}, k.args...)
+					"--gamma-map", filepath.Join(out, "g.dcm"), "--difference-map", filepath.Join(out, "d.mha"), "--record", filepath.Join(out, "qa.db")}, k.args...)
 				r := vgRun(t, append(args, lv...)...)
 				if r.code == exitError {
 					t.Fatalf("compare: %s", r)
@@ -193,12 +193,14 @@ func TestDeidentifyPlantedValues(t *testing.T) {
 		"c2,"+f.Reference+","+filepath.Join(filepath.Dir(f.Evaluated), "missing_"+plantFile+".dcm")+",\n"), 0o644)
 	for _, lv := range levels {
 		out := filepath.Join(t.TempDir(), "b")
-		args := append([]string{"batch", manifest, "--out", out, "--deidentify", "--site-key", keyFile, "--gamma-map", "--difference-map", "--report"}, lv...)
+		store := t.TempDir()
+		args := append([]string{"batch", manifest, "--out", out, "--deidentify", "--site-key", keyFile, "--gamma-map", "--difference-map", "--report",
+			"--record", filepath.Join(store, "qa.db")}, lv...)
 		r := vgRun(t, args...)
 		if r.code != exitError || !strings.Contains(r.stderr, "1 passed, 0 failed rules, 1 could not be evaluated") && !strings.Contains(r.stderr, "0 passed, 1 failed rules, 1 could not be evaluated") {
 			t.Fatalf("batch: %s", r)
 		}
-		grepWritten(t, "batch "+strings.Join(lv, ""), vals, r, out)
+		grepWritten(t, "batch "+strings.Join(lv, ""), vals, r, out, store)
 		st, err := batch.ReadStatus(filepath.Join(out, batch.CasesDir, "c1"))
 		if err != nil || st.Inputs[0].Path != "reference" || st.Finished != "" {
 			t.Errorf("status: %+v %v", st, err)
@@ -225,8 +227,9 @@ func TestDeidentifyPlantedValues(t *testing.T) {
 		os.WriteFile(filepath.Join(broken, "eval_"+plantFile+".dcm"), data, 0o644)
 		btSettleAll(t, wdir)
 		out := filepath.Join(t.TempDir(), "w")
+		store := t.TempDir()
 		args := append([]string{"watch", wdir, "--out", out, "--once", "--settle", "1s", "--poll", "50ms", "--deidentify", "--site-key", keyFile,
-			"--gamma-map", "--difference-map", "--report"}, lv...)
+			"--gamma-map", "--difference-map", "--report", "--record", filepath.Join(store, "qa.db")}, lv...)
 		r := vgRun(t, args...)
 		if r.code != exitError {
 			t.Fatalf("watch: %s", r)
@@ -235,7 +238,7 @@ func TestDeidentifyPlantedValues(t *testing.T) {
 		if len(failed) != 1 {
 			t.Fatalf("moved aside: %v", failed)
 		}
-		grepWritten(t, "watch "+strings.Join(lv, ""), vals, r, out)
+		grepWritten(t, "watch "+strings.Join(lv, ""), vals, r, out, store)
 		// What watch wrote among the inputs: the moved-aside folder's name
 		// and its error.txt.
 		errTxt, err := os.ReadFile(filepath.Join(wdir, batch.FailedDir, failed[0].Name(), "error.txt"))
