@@ -40,6 +40,11 @@ type Identifiers struct {
 	// first item of ReferencedRTPlanSequence (300C,0002): the plan the dose
 	// was computed for. Empty when the file names none.
 	ReferencedRTPlanUID string
+	// DeidentificationMethod, when not empty, is written as
+	// DeidentificationMethod (0012,0063) with PatientIdentityRemoved
+	// (0012,0062) YES (Patient module, PS3.3 C.7.1.1): the file says it was
+	// de-identified, and how. Files read leave it empty.
+	DeidentificationMethod string
 }
 
 // DoseInfo is what an RT Dose file says about its dose grid besides the

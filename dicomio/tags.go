@@ -39,6 +39,8 @@ var (
 	tagPatientID                = tag.Tag{Group: 0x0010, Element: 0x0020}
 	tagPatientBirthDate         = tag.Tag{Group: 0x0010, Element: 0x0030}
 	tagPatientSex               = tag.Tag{Group: 0x0010, Element: 0x0040}
+	tagPatientIdentityRemoved   = tag.Tag{Group: 0x0012, Element: 0x0062}
+	tagDeidentificationMethod   = tag.Tag{Group: 0x0012, Element: 0x0063}
 	tagSliceThickness           = tag.Tag{Group: 0x0018, Element: 0x0050}
 	tagSoftwareVersions         = tag.Tag{Group: 0x0018, Element: 0x1020}
 	tagStudyInstanceUID         = tag.Tag{Group: 0x0020, Element: 0x000D}

@@ -197,6 +197,10 @@ func (b *builder) addCommon(sopClass, sopInstance, modality, seriesUID, seriesDe
 	b.add(tagPatientID, id.PatientID)
 	b.add(tagPatientBirthDate, id.PatientBirthDate)
 	b.add(tagPatientSex, id.PatientSex)
+	if id.DeidentificationMethod != "" {
+		b.add(tagPatientIdentityRemoved, "YES")
+		b.add(tagDeidentificationMethod, id.DeidentificationMethod)
+	}
 	b.add(tagSoftwareVersions, "voxgamma")
 	b.add(tagStudyInstanceUID, id.StudyInstanceUID)
 	b.add(tagSeriesInstanceUID, seriesUID)

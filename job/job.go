@@ -590,5 +590,7 @@ func deidentifyIDs(ids dicomio.Identifiers, k *deid.Key) dicomio.Identifiers {
 		PatientName: k.Pseudonym(deid.KindName, ids.PatientName), PatientID: k.Pseudonym(deid.KindID, ids.PatientID),
 		StudyInstanceUID: k.UID(ids.StudyInstanceUID), FrameOfReferenceUID: k.UID(ids.FrameOfReferenceUID),
 		ReferencedRTPlanUID: k.UID(ids.ReferencedRTPlanUID),
+		// LO: at most 64 characters (PS3.5 6.2).
+		DeidentificationMethod: "voxgamma: keyed pseudonyms, UIDs remapped, no dates or text",
 	}
 }

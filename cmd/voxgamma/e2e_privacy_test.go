@@ -2,6 +2,7 @@ package main
 
 import (
 	"bytes"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -60,5 +61,14 @@ func TestDeidentify(t *testing.T) {
 	}
 	if info.PatientName == ids.PatientName || info.PatientID == ids.PatientID || info.FrameOfReferenceUID == ids.FrameOfReferenceUID || info.StudyInstanceUID == ids.StudyInstanceUID {
 		t.Errorf("gamma map keeps the original identifiers: %+v", info.Identifiers)
+	}
+	// The map says it was de-identified: PatientIdentityRemoved (0012,0062)
+	// YES and a DeidentificationMethod (0012,0063) of at most 64 characters
+	// (LO), as the Patient module defines them (PS3.3 C.7.1.1), read back
+	// by pydicom.
+	py := requirePydicom(t)
+	o, err := exec.Command(py, "-c", "import sys, pydicom\nds = pydicom.dcmread(sys.argv[1])\nprint(ds.PatientIdentityRemoved, len(ds.DeidentificationMethod) <= 64)", filepath.Join(out, "g.dcm")).CombinedOutput()
+	if err != nil || strings.TrimSpace(string(o)) != "YES True" {
+		t.Errorf("pydicom on the de-identified gamma map: %v %s", err, o)
 	}
 }
