@@ -228,9 +228,11 @@ func TestCrashCodesMemoryLimit(t *testing.T) {
 		t.Errorf("memory limit during compare --max-memory 3GiB: %d, want %d", during.Load(), int64(budget))
 	}
 	vgExit(t, exitPass, "inspect", f.ref)
+	// The default budget follows MemAvailable, which moves between two
+	// readings on a busy machine: within 5 % is the same budget.
 	want, _ := batch.DefaultBudget()
-	if during.Load() != want {
-		t.Errorf("memory limit during inspect: %d, want the default budget %d", during.Load(), want)
+	if d := during.Load() - want; d > want/20 || d < -want/20 {
+		t.Errorf("memory limit during inspect: %d, want the default budget %d (within 5 %%)", during.Load(), want)
 	}
 	if after := debug.SetMemoryLimit(-1); after != before {
 		t.Errorf("memory limit after the command: %d, want %d as before", after, before)
