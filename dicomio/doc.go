@@ -1,5 +1,6 @@
 // Package dicomio reads and writes the DICOM RT files voxgamma works with:
-// RT Dose grids and RT Structure Sets (DICOM PS3.3 annex A.18 and A.19). It
+// RT Dose grids, RT Structure Sets and RT Plans (DICOM PS3.3 annex A.18,
+// A.19 and A.20). It
 // decodes data sets with github.com/suyashkumar/dicom and adds what a dose
 // comparison needs on top: a check of every element length against the
 // file before anything is allocated, the dose grid geometry, and errors
@@ -62,6 +63,23 @@
 // holds a non-finite value or disagrees with NumberOfContourPoints, and a
 // ROIContourSequence item that refers to an undefined ROI, are errors.
 //
+// # Reading RT Plans
+//
+// [ReadPlan] reads an RT Plan or RT Ion Plan into a [Plan]: the RT General
+// Plan module (C.8.8.9: RTPlanLabel, RTPlanName, RTPlanDescription, date,
+// PlanIntent, RTPlanGeometry, the referenced structure set), the Approval
+// module's ApprovalStatus, the RT Prescription module (C.8.8.10: every
+// DoseReferenceSequence item with its type and TargetPrescriptionDose), the
+// RT Fraction Scheme module (C.8.8.13: every fraction group with
+// NumberOfFractionsPlanned and, per referenced beam, BeamMeterset and
+// BeamDose) and the beams of the RT Beams or RT Ion Beams module (C.8.8.14,
+// C.8.8.25: number, name, type, radiation, machine, delivery type, and the
+// first control point's energy, gantry angle and isocentre). [Plan.Beam],
+// [Plan.Prescriptions], [Plan.PrescriptionGy] and [FractionGroup.Meterset]
+// answer the usual questions. Numbers that do not parse, are not finite or
+// are negative, repeated beam, group or reference numbers and fraction
+// groups that reference undefined beams are errors naming the tag.
+//
 // # Files without a file meta header
 //
 // Some systems write a bare data set, without the 128-byte preamble, "DICM"
@@ -75,8 +93,9 @@
 //
 // [ScanFolder] sorts the files of a directory by Modality; [Folder.ChooseFor]
 // picks the plan dose (DoseSummationType PLAN before other whole-plan doses
-// before beam or fraction doses) and the structure set in its frame of
-// reference, with an account of what was chosen and ignored, and why. Maps
+// before beam or fraction doses), the structure set in its frame of
+// reference and the RT Plan the dose names, with an account of what was
+// chosen and ignored, and why. Maps
 // of disagreement are never chosen: a dose with DoseType ERROR (PS3.3
 // C.8.8.3: a difference between doses), which every gamma and difference
 // map voxgamma writes is ([DoseInfo.DisagreementMap]), nor is the file
@@ -106,7 +125,8 @@
 // other terms; a fraction group; a beam), else refused; maps take their
 // reference's summation when it can be written so ([MapSummation]) and
 // [MapSummationType] otherwise. [WriteStructureSet] writes an
-// RT Structure Set (A.19). New UIDs are UUID-derived ("2.25." + the decimal
+// RT Structure Set (A.19), [WritePlan] an invented RT Plan (A.20) for
+// demonstrations and tests. New UIDs are UUID-derived ("2.25." + the decimal
 // of a random 128-bit UUID, ISO/IEC 9834-8, PS3.5 annex B.2); see [NewUID]
 // and [PhantomIdentifiers] for a consistent set of identifiers for a
 // made-up phantom. Every file is written atomically (internal/atomicfile).

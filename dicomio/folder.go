@@ -24,6 +24,12 @@ type StructureFile struct {
 	Set  *structure.Set
 }
 
+// PlanFile is an RT Plan file found by [ScanFolder].
+type PlanFile struct {
+	Path string
+	Plan *Plan
+}
+
 // Ignored is a file [ScanFolder] or [Folder.Choose] set aside, and why.
 type Ignored struct {
 	Path   string
@@ -35,14 +41,16 @@ type Folder struct {
 	Dir           string
 	Doses         []DoseFile
 	StructureSets []StructureFile
-	// Ignored lists the files that are not usable RT Dose or RT Structure
-	// Set files: not DICOM, another modality, unreadable.
+	// Plans are the readable RT Plan files.
+	Plans []PlanFile
+	// Ignored lists the files that are not usable RT Dose, RT Structure
+	// Set or RT Plan files: not DICOM, another modality, unreadable.
 	Ignored []Ignored
 }
 
 // ScanFolder reads every file in dir (not its subdirectories) and sorts
-// them by Modality (0008,0060): RTDOSE headers and RTSTRUCT files are
-// read; everything else is listed in Ignored with the reason. It fails only
+// them by Modality (0008,0060): RTDOSE headers, RTSTRUCT and RTPLAN files
+// are read; everything else is listed in Ignored with the reason. It fails only
 // when dir cannot be listed.
 func ScanFolder(dir string) (*Folder, error) {
 	entries, err := os.ReadDir(dir)
@@ -98,10 +106,23 @@ func (fo *Folder) scanFile(path string) {
 		}
 		set.Path = path
 		fo.StructureSets = append(fo.StructureSets, StructureFile{path, set})
+	case "RTPLAN":
+		var p *Plan
+		err := guard(func() error {
+			var err error
+			p, err = f.ds.plan()
+			return err
+		})
+		if err != nil {
+			fo.Ignored = append(fo.Ignored, Ignored{path, "unreadable RT Plan: " + err.Error()})
+			return
+		}
+		p.Path = path
+		fo.Plans = append(fo.Plans, PlanFile{path, p})
 	case "":
 		fo.Ignored = append(fo.Ignored, Ignored{path, "DICOM file without Modality (0008,0060)"})
 	default:
-		fo.Ignored = append(fo.Ignored, Ignored{path, "Modality " + m + " (neither RTDOSE nor RTSTRUCT)"})
+		fo.Ignored = append(fo.Ignored, Ignored{path, "Modality " + m + " (not RTDOSE, RTSTRUCT or RTPLAN)"})
 	}
 }
 
@@ -111,6 +132,9 @@ type Choice struct {
 	// StructureSet is the structure set in the dose's frame of reference;
 	// nil when the folder holds none.
 	StructureSet *StructureFile
+	// Plan is the RT Plan the dose was computed for (see [Folder.Choose]);
+	// nil when the folder holds none that fits.
+	Plan *PlanFile
 	// Account says in one line each what was chosen, what was ignored and
 	// why ("ignored rtdose_beam2.dcm: DoseSummationType BEAM"), and warns
 	// about a choice that deserves a look.
@@ -188,7 +212,11 @@ func (fo *Folder) Choose() (*Choice, error) { return fo.ChooseFor(ChooseOptions{
 // a warning); when several doses share the best rank, the one whose words
 // fit opt.Role (and only it) is taken, else it returns an error asking for a
 // file. The structure set is the one whose frame of reference is the
-// dose's; when several are, it returns an error asking for a file.
+// dose's; when several are, it returns an error asking for a file. The plan
+// is the RT Plan whose SOPInstanceUID the dose's ReferencedRTPlanSequence
+// names; when the dose names none, the folder's only RT Plan if its frame
+// of reference (when it states one) is the dose's. A plan is context, never
+// a reason to refuse the folder: when none fits, the account says why.
 func (fo *Folder) ChooseFor(opt ChooseOptions) (*Choice, error) {
 	name := func(p string) string {
 		if r, err := filepath.Rel(fo.Dir, p); err == nil {
@@ -321,6 +349,7 @@ func (fo *Folder) ChooseFor(opt ChooseOptions) (*Choice, error) {
 		c.Account = append(c.Account, "no RT Structure Set in the folder")
 	}
 	c.Account = append(c.Account, mismatch...)
+	c.choosePlan(fo, name)
 	c.Account = append(c.Account, ignored...)
 	return c, nil
 }
@@ -336,6 +365,39 @@ func sameFile(path string) string {
 		return r
 	}
 	return a
+}
+
+// choosePlan picks the RT Plan of the chosen dose (see [Folder.ChooseFor]).
+func (c *Choice) choosePlan(fo *Folder, name func(string) string) {
+	in := c.Dose.Info
+	want := in.ReferencedRTPlanUID
+	var pick *PlanFile
+	var other []string
+	for i := range fo.Plans {
+		p := &fo.Plans[i]
+		switch {
+		case want != "" && p.Plan.SOPInstanceUID == want:
+			pick = p
+		case want != "":
+			other = append(other, fmt.Sprintf("ignored %s: the dose was computed for plan %s, not this plan's %s", name(p.Path), want, orNone(p.Plan.SOPInstanceUID)))
+		case len(fo.Plans) > 1:
+			other = append(other, fmt.Sprintf("ignored %s: the dose names no plan and the folder holds %d RT Plans", name(p.Path), len(fo.Plans)))
+		case p.Plan.FrameOfReferenceUID != "" && p.Plan.FrameOfReferenceUID != in.FrameOfReferenceUID:
+			other = append(other, fmt.Sprintf("ignored %s: frame of reference %s is not the dose's %s", name(p.Path), p.Plan.FrameOfReferenceUID, orNone(in.FrameOfReferenceUID)))
+		default:
+			pick = p
+		}
+	}
+	switch {
+	case pick != nil && want != "":
+		c.Account = append(c.Account, fmt.Sprintf("chose plan %s: label %q, the plan the dose names", name(pick.Path), pick.Plan.Label))
+	case pick != nil:
+		c.Account = append(c.Account, fmt.Sprintf("chose plan %s: label %q, the folder's only RT Plan (the dose names no plan)", name(pick.Path), pick.Plan.Label))
+	case want != "" && len(fo.Plans) > 0:
+		c.Account = append(c.Account, fmt.Sprintf("no RT Plan in the folder is the dose's plan %s", want))
+	}
+	c.Plan = pick
+	c.Account = append(c.Account, other...)
 }
 
 // setInFrame reports whether the set, or any of its ROIs, is in frame uid.

@@ -74,7 +74,7 @@ func TestScanFolderChoose(t *testing.T) {
 		"chose structure set rs.dcm: label \"DEMO\", 5 ROIs, same frame of reference as the dose",
 		"ignored rs_other.dcm: frame of reference " + other.FrameOfReferenceUID + " is not the dose's " + ids.FrameOfReferenceUID,
 		"ignored notes.txt: not a DICOM file",
-		"ignored ct.dcm: Modality CT (neither RTDOSE nor RTSTRUCT)",
+		"ignored ct.dcm: Modality CT (not RTDOSE, RTSTRUCT or RTPLAN)",
 		"ignored bad_dose.dcm: unreadable RT Dose: PixelSpacing (0028,0030): missing",
 		"ignored subdir: directory",
 	} {
@@ -146,5 +146,67 @@ func TestChooseStructureSets(t *testing.T) {
 	}
 	if _, err := dicomio.ScanFolder(filepath.Join(empty, "missing")); err == nil {
 		t.Error("scanning a missing folder succeeded")
+	}
+}
+
+// The plan a dose names is chosen with it; other plans are set aside with
+// the reason; a dose that names no plan takes the folder's only plan.
+func TestChoosePlan(t *testing.T) {
+	dir := t.TempDir()
+	ids := dicomio.PhantomIdentifiers("", "")
+	writeDoseKind(t, filepath.Join(dir, "dose.dcm"), ids, "PLAN")
+	if _, err := dicomio.WritePlan(filepath.Join(dir, "rp.dcm"), testPlan(), ids); err != nil {
+		t.Fatal(err)
+	}
+	other := testPlan()
+	other.Label = "OLD"
+	old, err := dicomio.WritePlan(filepath.Join(dir, "rp_old.dcm"), other, dicomio.PhantomIdentifiers("", ""))
+	if err != nil {
+		t.Fatal(err)
+	}
+	fo, err := dicomio.ScanFolder(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(fo.Plans) != 2 {
+		t.Fatalf("%d plans found: %+v", len(fo.Plans), fo.Ignored)
+	}
+	c, err := fo.Choose()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Plan == nil || filepath.Base(c.Plan.Path) != "rp.dcm" || c.Plan.Plan.SOPInstanceUID != ids.ReferencedRTPlanUID {
+		t.Fatalf("chose plan %+v", c.Plan)
+	}
+	for _, want := range []string{
+		`chose plan rp.dcm: label "SRS_3MET", the plan the dose names`,
+		"ignored rp_old.dcm: the dose was computed for plan " + ids.ReferencedRTPlanUID + ", not this plan's " + old.SOPInstanceUID,
+	} {
+		if !hasLine(c.Account, want) {
+			t.Errorf("account lacks %q:\n%s", want, c.Report())
+		}
+	}
+	// A dose naming no plan (hand-built: voxgamma's writer refuses a PLAN
+	// dose without its plan), alone with one plan in its frame: that plan.
+	dir2 := t.TempDir()
+	if err := os.WriteFile(filepath.Join(dir2, "dose.dcm"), encodeFile(with(baseDose(), str(tFoR, "UI", ids.FrameOfReferenceUID)), explicitLE, true), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := dicomio.WritePlan(filepath.Join(dir2, "rp.dcm"), testPlan(), ids); err != nil {
+		t.Fatal(err)
+	}
+	fo, _ = dicomio.ScanFolder(dir2)
+	c, err = fo.Choose()
+	if err != nil || c.Plan == nil || !hasLine(c.Account, `chose plan rp.dcm: label "SRS_3MET", the folder's only RT Plan (the dose names no plan)`) {
+		t.Errorf("only plan: %v %+v\n%s", err, c.Plan, c.Report())
+	}
+	// The same, but the plan is in another frame of reference: none.
+	os.Remove(filepath.Join(dir2, "rp.dcm"))
+	if _, err := dicomio.WritePlan(filepath.Join(dir2, "rp.dcm"), testPlan(), dicomio.PhantomIdentifiers("", "")); err != nil {
+		t.Fatal(err)
+	}
+	fo, _ = dicomio.ScanFolder(dir2)
+	if c, err = fo.Choose(); err != nil || c.Plan != nil || !hasLine(c.Account, "ignored rp.dcm: frame of reference ") {
+		t.Errorf("plan of another frame: %v %+v\n%s", err, c.Plan, c.Report())
 	}
 }

@@ -470,3 +470,53 @@ func TestFuzzCorpus(t *testing.T) {
 		})
 	}
 }
+
+// FuzzReadPlan feeds mutated RT Plans to ReadPlan: it must return a plan or
+// an error naming the file, never panic, and what it accepts must hold
+// together (PS3.3 C.8.8.13, C.8.8.14: beam numbers unique, every
+// fraction group's referenced beams defined, counts and doses not
+// negative and finite).
+func FuzzReadPlan(f *testing.F) {
+	f.Add(encodeFile(baseRTPlan(), explicitLE, true))
+	f.Add(encodeFile(baseRTPlan(), implicitLE, false))
+	f.Add(encodeFile(baseRTPlan(), "", true))
+	path := filepath.Join(fuzzDir(f), "fuzz_RP.dcm")
+	f.Fuzz(func(t *testing.T, data []byte) {
+		if err := os.WriteFile(path, data, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		defer os.Remove(path)
+		var p *dicomio.Plan
+		var err error
+		within(t, "ReadPlan", func() { p, err = dicomio.ReadPlan(path) })
+		if err != nil {
+			checkReadError(t, path, err)
+			return
+		}
+		seen := map[int]bool{}
+		for _, b := range p.Beams {
+			if seen[b.Number] {
+				t.Fatalf("beam number %d accepted twice", b.Number)
+			}
+			seen[b.Number] = true
+		}
+		for _, g := range p.FractionGroups {
+			if g.FractionsPlanned < 0 {
+				t.Fatalf("fraction group %d: %d fractions accepted", g.Number, g.FractionsPlanned)
+			}
+			for _, rb := range g.Beams {
+				if !seen[rb.BeamNumber] {
+					t.Fatalf("fraction group %d references undefined beam %d", g.Number, rb.BeamNumber)
+				}
+				if rb.Meterset != nil && !(*rb.Meterset >= 0 && !math.IsInf(*rb.Meterset, 0)) {
+					t.Fatalf("meterset %v accepted", *rb.Meterset)
+				}
+			}
+		}
+		for _, d := range p.DoseReferences {
+			if d.TargetPrescriptionGy != nil && !(*d.TargetPrescriptionGy >= 0 && !math.IsInf(*d.TargetPrescriptionGy, 0)) {
+				t.Fatalf("prescription %v accepted", *d.TargetPrescriptionGy)
+			}
+		}
+	})
+}
