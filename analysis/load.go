@@ -33,6 +33,10 @@ type Inputs struct {
 	// and Reference is a folder, the folder's structure set (in the
 	// reference's frame of reference) is used.
 	Structures string
+	// Plan is an RT Plan file; empty for none. When empty and Reference is
+	// a folder, the folder's RT Plan that the reference dose names is used.
+	// The plan is context for the reviewer: it changes no number.
+	Plan string
 	// AllowFrameMismatch lets doses and structures of different frames of
 	// reference be compared (the user vouches that their coordinates agree).
 	AllowFrameMismatch bool
@@ -67,6 +71,10 @@ type Loaded struct {
 	EvaluatedInfo *dicomio.DoseInfo
 	// Structures is the structure set; nil when none was given.
 	Structures *structure.Set
+	// Plan is the RT Plan and PlanInfo its summary for the result; nil
+	// when none was given or found.
+	Plan     *dicomio.Plan
+	PlanInfo *result.Plan
 	// Inputs describes each file read, for the result.
 	Inputs []result.Input
 	// Warnings and Notes found while loading.
@@ -107,10 +115,11 @@ func Load(in Inputs) (*Loaded, error) {
 	in.seen("reference points", in.ReferencePoints, nil, nil)
 	in.seen("evaluated", in.Evaluated, nil, nil)
 	in.seen("structures", in.Structures, nil, nil)
+	in.seen("plan", in.Plan, nil, nil)
 	// Evaluated first: the reference points are in its coordinates. A
 	// folder never yields the file given as the other dose, and when both
 	// are folders the words of the files decide which is which.
-	evalPath, _, evalAccount, err := in.resolveDose("evaluated", in.Evaluated, dicomio.ChooseOptions{Role: dicomio.EvaluatedRole,
+	evalPath, _, _, evalAccount, err := in.resolveDose("evaluated", in.Evaluated, dicomio.ChooseOptions{Role: dicomio.EvaluatedRole,
 		Exclude: []string{fileOnly(in.Reference)}, ExcludeRole: dicomio.ReferenceRole})
 	if err != nil {
 		return nil, err
@@ -124,13 +133,17 @@ func Load(in Inputs) (*Loaded, error) {
 	}
 
 	structuresPath := in.Structures
+	planPath, planSource := in.Plan, "--plan"
 	if in.Reference != "" {
-		refPath, folderRS, account, err := in.resolveDose("reference", in.Reference, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
+		refPath, folderRS, folderPlan, account, err := in.resolveDose("reference", in.Reference, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
 			Exclude: []string{evalPath}, ExcludeRole: dicomio.EvaluatedRole})
 		if err != nil {
 			return nil, err
 		}
 		l.Notes = append(l.Notes, account...)
+		if planPath == "" && folderPlan != "" {
+			planPath, planSource = folderPlan, "reference folder"
+		}
 		if refPath == evalPath {
 			return nil, badInput("%s is both the reference and the evaluated dose", refPath)
 		}
@@ -176,6 +189,12 @@ func Load(in Inputs) (*Loaded, error) {
 		l.Paths = append(l.Paths, structuresPath)
 	}
 
+	if planPath != "" {
+		if err := l.loadPlan(in, planPath, planSource); err != nil {
+			return nil, err
+		}
+	}
+
 	if l.Reference != nil {
 		l.DoseTypeMismatch = dicomio.DoseTypeMismatch(l.ReferenceInfo, l.EvaluatedInfo)
 		l.SwapEvidence = dicomio.SwapEvidence(l.ReferenceInfo, l.EvaluatedInfo)
@@ -206,20 +225,20 @@ func fileOnly(path string) string {
 
 // resolveDose returns the RT Dose file named by path: path itself, or the
 // plan dose chosen in a folder (see dicomio.Folder.ChooseFor), with the
-// structure set chosen with it ("" when none) and the account of the
-// choice. Every file of a folder is reported to Seen (role "" but for the
-// chosen ones, which get seenRole).
-func (in Inputs) resolveDose(seenRole, path string, opt dicomio.ChooseOptions) (dose, structures string, account []string, err error) {
+// structure set and the RT Plan chosen with it ("" when none) and the
+// account of the choice. Every file of a folder is reported to Seen (role
+// "" but for the chosen ones, which get seenRole).
+func (in Inputs) resolveDose(seenRole, path string, opt dicomio.ChooseOptions) (dose, structures, plan string, account []string, err error) {
 	st, err := os.Stat(path)
 	if err != nil {
-		return "", "", nil, badInput("%v", err)
+		return "", "", "", nil, badInput("%v", err)
 	}
 	if !st.IsDir() {
-		return path, "", nil, nil
+		return path, "", "", nil, nil
 	}
 	folder, err := dicomio.ScanFolder(path)
 	if err != nil {
-		return "", "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+		return "", "", "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 	}
 	for _, d := range folder.Doses {
 		in.seen("", d.Path, d.Info, nil)
@@ -227,19 +246,145 @@ func (in Inputs) resolveDose(seenRole, path string, opt dicomio.ChooseOptions) (
 	for _, s := range folder.StructureSets {
 		in.seen("", s.Path, nil, s.Set)
 	}
+	for _, p := range folder.Plans {
+		in.seen("", p.Path, planSeen(p.Plan), nil)
+	}
 	for _, ig := range folder.Ignored {
 		in.seen("", ig.Path, nil, nil)
 	}
 	choice, err := folder.ChooseFor(opt)
 	if err != nil {
-		return "", "", nil, fmt.Errorf("%w: folder %s (for the %s): %w", ErrBadInput, path, opt.Role, err)
+		return "", "", "", nil, fmt.Errorf("%w: folder %s (for the %s): %w", ErrBadInput, path, opt.Role, err)
 	}
 	if choice.StructureSet != nil {
 		structures = choice.StructureSet.Path
 		in.seen("structures", structures, nil, choice.StructureSet.Set)
 	}
+	if choice.Plan != nil {
+		plan = choice.Plan.Path
+		in.seen("plan", plan, planSeen(choice.Plan.Plan), nil)
+	}
 	in.seen(seenRole, choice.Dose.Path, choice.Dose.Info, nil)
-	return choice.Dose.Path, structures, choice.Account, nil
+	return choice.Dose.Path, structures, plan, choice.Account, nil
+}
+
+// loadPlan reads the RT Plan, lists it among the inputs and checks it
+// against the reference dose: a plan of another patient, frame of
+// reference or a plan the reference dose does not name is a warning.
+func (l *Loaded) loadPlan(in Inputs, path, source string) error {
+	p, err := dicomio.ReadPlan(path)
+	if err != nil {
+		return fmt.Errorf("%w: %w", ErrBadInput, err)
+	}
+	in.seen("plan", path, planSeen(p), nil)
+	sum, err := fileSHA256(path)
+	if err != nil {
+		return badInput("reading %s: %v", path, err)
+	}
+	l.Plan = p
+	l.PlanInfo = PlanInfo(p, source, l.ReferenceInfo)
+	desc := fmt.Sprintf("RT Plan %q", p.Label)
+	if p.Name != "" && p.Name != p.Label {
+		desc += fmt.Sprintf(" (%s)", p.Name)
+	}
+	l.Inputs = append(l.Inputs, result.Input{Role: "plan", Path: path, SHA256: sum, Modality: "RTPLAN",
+		SOPInstanceUID: p.SOPInstanceUID, FrameOfReferenceUID: p.FrameOfReferenceUID, PatientID: p.PatientID,
+		PatientName: p.PatientName, Description: desc})
+	l.Paths = append(l.Paths, path)
+	for _, n := range p.Notes {
+		l.Notes = append(l.Notes, fmt.Sprintf("%s: %s", path, n))
+	}
+	if ref := l.ReferenceInfo; ref != nil {
+		switch {
+		case ref.ReferencedRTPlanUID != "" && ref.ReferencedRTPlanUID != p.SOPInstanceUID:
+			l.Warnings = append(l.Warnings, fmt.Sprintf("the reference dose was computed for plan %s, not for the plan %s (%s): the plan shown may not be the plan checked",
+				ref.ReferencedRTPlanUID, path, orNone(p.SOPInstanceUID)))
+		}
+		if p.FrameOfReferenceUID != "" && ref.FrameOfReferenceUID != "" && p.FrameOfReferenceUID != ref.FrameOfReferenceUID {
+			l.Warnings = append(l.Warnings, fmt.Sprintf("the plan %s is in frame of reference %s, the reference dose in %s", path, p.FrameOfReferenceUID, ref.FrameOfReferenceUID))
+		}
+		if p.PatientID != "" && ref.PatientID != "" && p.PatientID != ref.PatientID {
+			l.Warnings = append(l.Warnings, fmt.Sprintf("the plan %s is for patient ID %s, the reference dose for %s", path, p.PatientID, ref.PatientID))
+		}
+	}
+	return nil
+}
+
+// planSeen is what an RT Plan identifies, in the form Inputs.Seen takes
+// (a dose header): the patient, study and frame of reference identifiers,
+// the plan's instance and series UIDs, and its label and name as the free
+// text a de-identification removes (as it removes a dose's series
+// description and comment).
+func planSeen(p *dicomio.Plan) *dicomio.DoseInfo {
+	return &dicomio.DoseInfo{Identifiers: p.Identifiers, SOPInstanceUID: p.SOPInstanceUID, SeriesInstanceUID: p.SeriesInstanceUID,
+		SeriesDescription: p.Label, DoseComment: p.Name}
+}
+
+func orNone(s string) string {
+	if s == "" {
+		return "no SOPInstanceUID"
+	}
+	return s
+}
+
+// PlanInfo summarises an RT Plan for the result. ref, when not nil, is the
+// reference dose, whose ReferencedRTPlanSequence says whether it belongs to
+// this plan.
+func PlanInfo(p *dicomio.Plan, source string, ref *dicomio.DoseInfo) *result.Plan {
+	out := &result.Plan{
+		Source: source, SOPInstanceUID: p.SOPInstanceUID,
+		Label: p.Label, Name: p.Name, Description: p.Description, Intent: p.Intent, ApprovalStatus: p.ApprovalStatus,
+		Prescriptions: []result.PlanPrescription{}, FractionGroups: []result.PlanFractionGroup{}, Beams: []result.PlanBeam{},
+	}
+	if rx, ok := p.PrescriptionGy(); ok {
+		out.PrescriptionGy = &rx
+	}
+	for _, d := range p.Prescriptions() {
+		out.Prescriptions = append(out.Prescriptions, result.PlanPrescription{Description: d.Description, DoseGy: *d.TargetPrescriptionGy, ROINumber: d.ReferencedROINumber})
+	}
+	total, stated := 0, false
+	groupOf := map[int]*dicomio.FractionGroup{}
+	for i := range p.FractionGroups {
+		g := &p.FractionGroups[i]
+		fg := result.PlanFractionGroup{Number: g.Number, Beams: []int{}}
+		if g.FractionsPlanned > 0 {
+			n := g.FractionsPlanned
+			fg.FractionsPlanned = &n
+			total += n
+			stated = true
+		}
+		for _, b := range g.Beams {
+			fg.Beams = append(fg.Beams, b.BeamNumber)
+			if groupOf[b.BeamNumber] == nil {
+				groupOf[b.BeamNumber] = g
+			}
+		}
+		out.FractionGroups = append(out.FractionGroups, fg)
+	}
+	if stated {
+		out.FractionsPlanned = &total
+	}
+	for _, b := range p.Beams {
+		pb := result.PlanBeam{Number: b.Number, Name: b.Name, Type: b.Type, RadiationType: b.RadiationType,
+			DeliveryType: b.DeliveryType, Machine: b.MachineName, EnergyNominal: b.NominalEnergy, GantryDeg: b.GantryAngleDeg,
+			MetersetUnit: b.DosimeterUnit}
+		if g := groupOf[b.Number]; g != nil {
+			pb.FractionGroup = g.Number
+			if ms, ok := g.Meterset(b.Number); ok {
+				pb.Meterset = &ms
+			}
+		}
+		out.Beams = append(out.Beams, pb)
+	}
+	switch {
+	case ref == nil || ref.ReferencedRTPlanUID == "":
+		out.ReferenceDose = "names no plan"
+	case ref.ReferencedRTPlanUID == p.SOPInstanceUID:
+		out.ReferenceDose = "names this plan"
+	default:
+		out.ReferenceDose = "names another plan"
+	}
+	return out
 }
 
 // readDose reads the dose given for role ("reference", "evaluated dose"),

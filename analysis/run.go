@@ -233,7 +233,7 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	started := time.Now()
 	res := &result.Result{
 		SchemaVersion: result.SchemaVersion, Version: s.Version, Caution: result.Caution,
-		Protocol: s.Protocol, Inputs: p.Inputs,
+		Protocol: s.Protocol, Inputs: p.Inputs, Plan: p.PlanInfo,
 		Warnings: append(append([]string{}, p.Loaded.Warnings...), p.warnings...),
 		Notes:    append(append([]string{}, p.Loaded.Notes...), p.notes...),
 		ROIs:     []result.ROI{}, Clusters: []result.Cluster{}, Rules: []result.RuleOutcome{},

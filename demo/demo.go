@@ -32,7 +32,7 @@ const Prescription = 20.0
 
 // Files are the paths of a written demo case.
 type Files struct {
-	Dir, Reference, Evaluated, Structures string
+	Dir, Reference, Evaluated, Structures, Plan string
 }
 
 type target struct {
@@ -54,8 +54,8 @@ const smallTarget = 2
 const errorFactor = 0.91
 
 // Write writes the demo case into dir (created if needed): reference.dcm,
-// evaluated.dcm and structures.dcm. Existing files of those names are
-// replaced.
+// evaluated.dcm, structures.dcm and plan.dcm (the RT Plan both doses name).
+// Existing files of those names are replaced.
 func Write(dir string) (*Files, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, fmt.Errorf("demo: %w", err)
@@ -64,6 +64,7 @@ func Write(dir string) (*Files, error) {
 		Reference:  filepath.Join(dir, "reference.dcm"),
 		Evaluated:  filepath.Join(dir, "evaluated.dcm"),
 		Structures: filepath.Join(dir, "structures.dcm"),
+		Plan:       filepath.Join(dir, "plan.dcm"),
 	}
 	ids := dicomio.PhantomIdentifiers(dicomio.DemoPatientName, dicomio.DemoPatientID)
 	ids.StudyDate, ids.StudyTime = "20260101", "090000"
@@ -72,7 +73,11 @@ func Write(dir string) (*Files, error) {
 	if err != nil {
 		return nil, err
 	}
-	if _, err := dicomio.WriteStructureSet(f.Structures, set, ids); err != nil {
+	written, err := dicomio.WriteStructureSet(f.Structures, set, ids)
+	if err != nil {
+		return nil, fmt.Errorf("demo: %w", err)
+	}
+	if _, err := dicomio.WritePlan(f.Plan, Plan(set, written.SOPInstanceUID), ids); err != nil {
 		return nil, fmt.Errorf("demo: %w", err)
 	}
 	ref, eval, err := Doses()
@@ -120,6 +125,44 @@ func Structures(frame string) (*structure.Set, error) {
 		set.ROIs = append(set.ROIs, r)
 	}
 	return set, nil
+}
+
+// arcs are the demo plan's beams: gantry start angle and meterset (MU).
+var arcs = []struct {
+	name            string
+	gantry, monitor float64
+}{{"Arc 1 CW", 181, 1462.4}, {"Arc 2 CCW", 179, 1398.7}, {"Arc 3 couch 45", 181, 1120.5}, {"Arc 4 couch 315", 179, 1087.9}}
+
+// Plan returns the demo's RT Plan: each target prescribed Prescription in
+// one fraction, four 6 MV arcs, on the structure set whose SOP instance
+// is structuresUID.
+func Plan(set *structure.Set, structuresUID string) *dicomio.Plan {
+	p := &dicomio.Plan{
+		Label: "DEMO_SRS", Name: "Three metastases, 20 Gy x 1", Intent: "CURATIVE",
+		Description:               "invented stereotactic plan of the voxgamma demo",
+		ReferencedStructureSetUID: structuresUID,
+	}
+	rx := Prescription
+	for i, t := range targets {
+		num := 0
+		for _, r := range set.ROIs {
+			if r.Name == t.name {
+				num = r.Number
+			}
+		}
+		p.DoseReferences = append(p.DoseReferences, dicomio.DoseReference{Number: i + 1, Type: "TARGET", Description: t.name,
+			ReferencedROINumber: num, TargetPrescriptionGy: &rx})
+	}
+	g := dicomio.FractionGroup{Number: 1, FractionsPlanned: 1}
+	energy := 6.0
+	for i, a := range arcs {
+		gantry, ms := a.gantry, a.monitor
+		p.Beams = append(p.Beams, dicomio.Beam{Number: i + 1, Name: a.name, MachineName: "DEMO_LINAC",
+			NominalEnergy: &energy, GantryAngleDeg: &gantry, Isocenter: &[3]float64{0, 10, 10}})
+		g.Beams = append(g.Beams, dicomio.ReferencedBeam{BeamNumber: i + 1, Meterset: &ms})
+	}
+	p.FractionGroups = []dicomio.FractionGroup{g}
+	return p
 }
 
 // planDose is the reference dose at p: each target at the prescription

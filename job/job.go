@@ -359,7 +359,7 @@ func CompareFor(ctx context.Context, in analysis.Inputs, s analysis.Settings, ou
 	if err != nil {
 		return nil, err
 	}
-	given := []string{in.Reference, in.ReferencePoints, in.Evaluated, in.Structures}
+	given := []string{in.Reference, in.ReferencePoints, in.Evaluated, in.Structures, in.Plan}
 	if err := outs.Check(append(given, l.Paths...), force); err != nil {
 		return nil, err
 	}
@@ -557,6 +557,24 @@ func DeidentifyResult(r *result.Result, d *deid.Scope) {
 	for i := range r.Clusters {
 		for j := range r.Clusters[i].ROIs {
 			r.Clusters[i].ROIs[j] = d.Scrub(r.Clusters[i].ROIs[j])
+		}
+	}
+	if p := r.Plan; p != nil {
+		// The plan's label and name are free text a planner may have put
+		// a name in: Seen registered them as text to remove, as a dose's
+		// series description. Its description goes; its instance UID is
+		// remapped; prescription and beam names are scrubbed like ROI
+		// names.
+		p.Label, p.Name = d.Scrub(p.Label), d.Scrub(p.Name)
+		if p.Description != "" {
+			p.Description = deid.Removed
+		}
+		p.SOPInstanceUID = d.Key().UID(p.SOPInstanceUID)
+		for i := range p.Prescriptions {
+			p.Prescriptions[i].Description = d.Scrub(p.Prescriptions[i].Description)
+		}
+		for i := range p.Beams {
+			p.Beams[i].Name = d.Scrub(p.Beams[i].Name)
 		}
 	}
 	r.Run.Started = ""

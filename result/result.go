@@ -50,6 +50,9 @@ type Result struct {
 	Choices Choices `json:"choices"`
 	// Inputs describes each input file.
 	Inputs []Input `json:"inputs"`
+	// Plan is the treatment plan the doses belong to, as its RT Plan file
+	// says; nil (omitted) when no plan was given or found.
+	Plan *Plan `json:"plan,omitempty"`
 	// Run holds what varies between runs on the same inputs.
 	Run Run `json:"run"`
 }
@@ -304,7 +307,8 @@ type RuleOutcome struct {
 
 // Input describes one input file.
 type Input struct {
-	// Role is "reference", "evaluated", "structures" or "reference points".
+	// Role is "reference", "evaluated", "structures", "plan" or "reference
+	// points".
 	Role string `json:"role"`
 	Path string `json:"path"`
 	// SHA256 of the file's bytes, hex.
@@ -333,6 +337,82 @@ type GridInfo struct {
 	// is then their mean).
 	UniformFrames bool    `json:"uniform_frames"`
 	MaxDoseGy     float64 `json:"max_dose_gy"`
+}
+
+// Plan is what the RT Plan says about the treatment, for the reviewer's
+// context. Nothing in it changes a number of the comparison.
+type Plan struct {
+	// Source is "--plan" (given) or "reference folder" (found beside the
+	// reference dose). The file itself, with its path and SHA-256, is the
+	// entry of Inputs with the role "plan".
+	Source         string `json:"source"`
+	SOPInstanceUID string `json:"sop_instance_uid,omitempty"`
+	// Label, Name and Description are RTPlanLabel, RTPlanName and
+	// RTPlanDescription.
+	Label       string `json:"label"`
+	Name        string `json:"name,omitempty"`
+	Description string `json:"description,omitempty"`
+	// Intent is PlanIntent; ApprovalStatus the plan's approval.
+	Intent         string `json:"intent,omitempty"`
+	ApprovalStatus string `json:"approval_status,omitempty"`
+	// PrescriptionGy is the highest TargetPrescriptionDose of the plan's
+	// TARGET dose references, null when the plan states none.
+	PrescriptionGy *float64 `json:"prescription_gy"`
+	// Prescriptions lists every TARGET dose reference with a prescription.
+	Prescriptions []PlanPrescription `json:"prescriptions"`
+	// FractionsPlanned is the sum of NumberOfFractionsPlanned over the
+	// fraction groups, null when no group states it.
+	FractionsPlanned *int `json:"fractions_planned"`
+	// FractionGroups lists each fraction group.
+	FractionGroups []PlanFractionGroup `json:"fraction_groups"`
+	// Beams lists every beam of the plan, setup beams included.
+	Beams []PlanBeam `json:"beams"`
+	// ReferenceDose says how the reference dose relates to this plan:
+	// "names this plan", "names another plan" or "names no plan".
+	ReferenceDose string `json:"reference_dose"`
+}
+
+// PlanPrescription is one TARGET dose reference of the plan.
+type PlanPrescription struct {
+	// Description is DoseReferenceDescription.
+	Description string `json:"description"`
+	// DoseGy is TargetPrescriptionDose.
+	DoseGy float64 `json:"dose_gy"`
+	// ROINumber is the ReferencedROINumber, 0 when none.
+	ROINumber int `json:"roi_number"`
+}
+
+// PlanFractionGroup is one fraction group of the plan.
+type PlanFractionGroup struct {
+	Number int `json:"number"`
+	// FractionsPlanned is null when the plan leaves it empty.
+	FractionsPlanned *int `json:"fractions_planned"`
+	// Beams are the numbers of the beams delivered in each fraction.
+	Beams []int `json:"beams"`
+}
+
+// PlanBeam is one beam of the plan.
+type PlanBeam struct {
+	Number int    `json:"number"`
+	Name   string `json:"name"`
+	// Type is STATIC or DYNAMIC; RadiationType PHOTON, ELECTRON, PROTON,
+	// ...; DeliveryType TREATMENT, SETUP, ...
+	Type          string `json:"type,omitempty"`
+	RadiationType string `json:"radiation_type,omitempty"`
+	DeliveryType  string `json:"delivery_type,omitempty"`
+	Machine       string `json:"machine,omitempty"`
+	// EnergyNominal is NominalBeamEnergy of the first control point (MV,
+	// MeV, MeV/u); GantryDeg its gantry angle.
+	EnergyNominal *float64 `json:"energy_nominal"`
+	GantryDeg     *float64 `json:"gantry_deg"`
+	// Meterset is the BeamMeterset per fraction from the fraction group
+	// that delivers the beam, in MetersetUnit (MU, NP, ...); null when no
+	// group gives one.
+	Meterset     *float64 `json:"meterset"`
+	MetersetUnit string   `json:"meterset_unit,omitempty"`
+	// FractionGroup is the number of the group delivering the beam, 0 when
+	// none does.
+	FractionGroup int `json:"fraction_group"`
 }
 
 // Run holds what may differ between runs on the same inputs.

@@ -23,6 +23,7 @@ import (
 type compareFlags struct {
 	comparisonFlags
 	reference, referencePoints, evaluated, structures string
+	plan                                              string
 	protocol                                          string
 	jsonOut, csvOut, gammaMap, diffMap, reportOut     string
 	allowFrameMismatch, force, deidentify             bool
@@ -92,6 +93,7 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 	fl.StringVar(&f.referencePoints, "reference-points", "", "reference measured points: CSV with header x_mm,y_mm,z_mm,dose_gy (instead of --reference)")
 	fl.StringVar(&f.evaluated, "evaluated", "", "evaluated RT Dose file or folder (the independent dose)")
 	fl.StringVar(&f.structures, "structures", "", "RT Structure Set file (default: the one in the reference folder, if any)")
+	fl.StringVar(&f.plan, "plan", "", "RT Plan file, shown as context in the report: label, prescription, fractions, beams (default: the plan the reference dose names, when it is in the reference folder)")
 	fl.StringVar(&f.criteria, "criteria", "3%/2mm", "dose-difference and distance criteria, e.g. 3%/2mm, 2%/1mm")
 	fl.BoolVar(&f.local, "local", false, "local normalisation: ΔD is a percentage of the reference dose at each point")
 	fl.Float64Var(&f.threshold, "threshold", 10, "low-dose threshold, percent of the normalisation dose")
@@ -280,14 +282,14 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 		return nil, errors.New("--evaluated is required")
 	}
 	outs := f.outputs()
-	if err := outs.Check([]string{f.reference, f.referencePoints, f.evaluated, f.structures}, f.force); err != nil {
+	if err := outs.Check([]string{f.reference, f.referencePoints, f.evaluated, f.structures, f.plan}, f.force); err != nil {
 		return nil, err
 	}
 	if err := checkMemory(f); err != nil {
 		return nil, err
 	}
 	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated,
-		Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
+		Structures: f.structures, Plan: f.plan, AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
 	if d != nil {
 		in.Seen = d.Seen
 	}

@@ -37,7 +37,7 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 				return err
 			}
 			if !g.quiet {
-				fmt.Fprintf(g.stdout, "demo case written to %s (reference.dcm, evaluated.dcm, structures.dcm)\n", dir)
+				fmt.Fprintf(g.stdout, "demo case written to %s (reference.dcm, evaluated.dcm, structures.dcm, plan.dcm)\n", dir)
 			}
 			f := &compareFlags{protocol: "tg218", comparisonFlags: comparisonFlags{subgridStep: 0.5, minClusterCC: 0.01, workers: workers}}
 			s, err := settingsFrom(cmd, f)
@@ -51,8 +51,8 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 				GammaMap: filepath.Join(dir, "gamma.dcm"), DifferenceMap: filepath.Join(dir, "difference.dcm"),
 				Report: filepath.Join(dir, "report.html"),
 			}
-			in := analysis.Inputs{Reference: files.Reference, Evaluated: files.Evaluated, Structures: files.Structures}
-			if err := out.Check([]string{files.Reference, files.Evaluated, files.Structures}, true); err != nil {
+			in := analysis.Inputs{Reference: files.Reference, Evaluated: files.Evaluated, Structures: files.Structures, Plan: files.Plan}
+			if err := out.Check([]string{files.Reference, files.Evaluated, files.Structures, files.Plan}, true); err != nil {
 				return err
 			}
 			o, err := compareInputs(cmd.Context(), g, in, s, out, true)
