@@ -472,12 +472,12 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 		return err
 	}
 	if err := stage(o.Report, func(p string) error {
-		page := report.Page{Result: r, Reference: out.Reference, Gamma: out.Gamma}
-		for i, reg := range out.Regions {
+		page := report.Page{Result: r, Reference: out.Reference, Gamma: out.Gamma, Difference: out.Difference}
+		for _, reg := range out.Regions {
 			if len(reg.Centres) == 0 || reg.Number == 0 {
 				continue
 			}
-			page.ROIs = append(page.ROIs, report.PageROI{Name: scrub(reg.Name), Color: out.Colors[i], Mask: reg.Mask()})
+			page.ROIs = append(page.ROIs, report.PageROI{Name: scrub(reg.Name), Mask: reg.Mask()})
 		}
 		if d == nil {
 			page.Generated = r.Run.Started

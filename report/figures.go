@@ -34,9 +34,6 @@ var (
 var (
 	passBinColor = color.RGBA{R: 96, G: 125, B: 139, A: 255} // bins with Γ ≤ 1
 	failBinColor = color.RGBA{R: 196, G: 78, B: 36, A: 255}  // bins with Γ > 1
-	gammaOverlay = [2]color.RGBA{{R: 255, G: 150, B: 0, A: 255}, {R: 225, G: 0, B: 40, A: 255}}
-	// gammaAlpha is the opacity of the Γ overlay for 1 < Γ ≤ 1.5 and Γ > 1.5.
-	gammaAlpha = [2]float64{0.5, 0.7}
 )
 
 // isodose is one isodose level drawn on the slices.
@@ -52,30 +49,6 @@ var isodoseLevels = []isodose{
 	{50, color.RGBA{R: 0, G: 200, B: 210, A: 255}},
 	{80, color.RGBA{R: 60, G: 205, B: 60, A: 255}},
 	{95, color.RGBA{R: 250, G: 225, B: 0, A: 255}},
-}
-
-// roiPalette colours ROIs for which the caller gave no colour: colours that
-// stay distinguishable with the common colour-vision deficiencies.
-var roiPalette = []color.RGBA{
-	{R: 0, G: 114, B: 178, A: 255},
-	{R: 230, G: 159, B: 0, A: 255},
-	{R: 0, G: 158, B: 115, A: 255},
-	{R: 204, G: 121, B: 167, A: 255},
-	{R: 86, G: 180, B: 233, A: 255},
-	{R: 213, G: 94, B: 0, A: 255},
-	{R: 120, G: 94, B: 240, A: 255},
-	{R: 90, G: 90, B: 90, A: 255},
-}
-
-// lineColor returns c, darkened when it is too light to read as a line on
-// white.
-func lineColor(c color.RGBA) color.RGBA {
-	lum := 0.2126*float64(c.R) + 0.7152*float64(c.G) + 0.0722*float64(c.B)
-	if lum <= 200 {
-		return c
-	}
-	f := 200 / lum
-	return color.RGBA{R: uint8(float64(c.R) * f), G: uint8(float64(c.G) * f), B: uint8(float64(c.B) * f), A: 255}
 }
 
 // hexColor formats c as #rrggbb.
@@ -223,39 +196,82 @@ func curveXYs(dose, vol []float64) plotter.XYs {
 	return xy
 }
 
+// Dash patterns: reference solid, evaluated dashed with dashes long enough
+// to read in greyscale print at the page's line width.
 var (
 	referenceDash = []vg.Length(nil)
-	evaluatedDash = []vg.Length{vg.Points(4), vg.Points(2.5)}
+	evaluatedDash = []vg.Length{vg.Points(5), vg.Points(3)}
 )
 
 // dvhSVG draws cumulative DVHs: reference solid, evaluated dashed, each
 // ROI in its colour. Series must have drawable curves (see checkCurves).
 // The legend is the page's (HTML, below the figure), where it cannot hide
-// a curve.
-func dvhSVG(series []dvhSeries, title string, w, h vg.Length) (string, error) {
+// a curve; with labels, each ROI's name is also written beside its
+// reference curve where it crosses 50 % of the volume, so that an overlay
+// of many ROIs reads in greyscale too.
+func dvhSVG(series []dvhSeries, title string, w, h vg.Length, labels bool) (string, error) {
+	p, err := dvhPlot(series, title, labels)
+	if err != nil {
+		return "", err
+	}
+	return svgOf(p, w, h, title)
+}
+
+// dvhPlot makes the plot of dvhSVG.
+func dvhPlot(series []dvhSeries, title string, labels bool) (*plot.Plot, error) {
 	p := newPlot(title, "dose (Gy)", "volume (%)")
 	maxDose := 0.0
+	var at plotter.XYs
+	var names []string
+	var styles []text.Style
 	for _, s := range series {
-		col := lineColor(s.Color)
+		col := s.Color
 		for _, c := range []struct {
 			vol  []float64
 			dash []vg.Length
 		}{{s.Curves.ReferencePercent, referenceDash}, {s.Curves.EvaluatedPercent, evaluatedDash}} {
 			l, err := plotter.NewLine(curveXYs(s.Curves.DoseGy, c.vol))
 			if err != nil {
-				return "", fmt.Errorf("DVH of %q: %w", s.Name, err)
+				return nil, fmt.Errorf("DVH of %q: %w", s.Name, err)
 			}
-			l.LineStyle = draw.LineStyle{Color: col, Width: vg.Points(1.3), Dashes: c.dash}
+			l.LineStyle = draw.LineStyle{Color: col, Width: vg.Points(1.4), Dashes: c.dash}
 			p.Add(l)
 		}
 		maxDose = math.Max(maxDose, s.Curves.DoseGy[len(s.Curves.DoseGy)-1])
+		if labels {
+			if x, ok := crossing(s.Curves.DoseGy, s.Curves.ReferencePercent, 50); ok {
+				at = append(at, plotter.XY{X: x, Y: 50})
+				names = append(names, s.Name)
+				styles = append(styles, text.Style{Color: col, Font: font.From(sansFont, 7), XAlign: draw.XLeft, YAlign: draw.YBottom, Handler: p.TextHandler})
+			}
+		}
+	}
+	if len(names) > 0 {
+		lb, err := plotter.NewLabels(plotter.XYLabels{XYs: at, Labels: names})
+		if err != nil {
+			return nil, fmt.Errorf("DVH labels: %w", err)
+		}
+		lb.TextStyle = styles
+		p.Add(lb)
 	}
 	p.X.Min = 0
 	if maxDose > 0 {
 		p.X.Max = maxDose
 	}
 	p.Y.Min, p.Y.Max = 0, 105
-	return svgOf(p, w, h, title)
+	return p, nil
+}
+
+// crossing returns the first dose at which a cumulative DVH falls to pct
+// of the volume, interpolated linearly between bins.
+func crossing(dose, vol []float64, pct float64) (float64, bool) {
+	for i := 1; i < len(dose); i++ {
+		if vol[i-1] >= pct && vol[i] < pct {
+			t := (vol[i-1] - pct) / (vol[i-1] - vol[i])
+			return dose[i-1] + t*(dose[i]-dose[i-1]), true
+		}
+	}
+	return 0, false
 }
 
 // sliceFigure holds what one slice figure shows.
@@ -265,6 +281,9 @@ type sliceFigure struct {
 	Dose, Gamma []float32
 	// GreyMax is the dose shown white.
 	GreyMax float64
+	// GammaCap is the largest Γ (the search cap): the end of the Γ colour
+	// scale.
+	GammaCap float64
 	// NormDose is the dose the isodose percentages refer to.
 	NormDose float64
 	// Outlines are the ROI outlines to draw.
@@ -281,8 +300,9 @@ type roiOutline struct {
 }
 
 // raster renders the slice as an image: the reference dose in grey (black
-// at 0, white at GreyMax), with Γ > 1 blended over it in orange (up to 1.5)
-// or red (above). Pixels have the same size in mm along both axes.
+// at 0, white at GreyMax), with Γ > 1 in the Γ colour scale (gammaColor:
+// pale orange just above 1 to dark red at the search cap; Γ ≤ 1 shows the
+// dose). Pixels have the same size in mm along both axes.
 func (f *sliceFigure) raster() *image.RGBA {
 	s := f.Slice
 	cols, rows := rasterAxis(s.XEdges), rasterAxis(s.YEdges)
@@ -303,14 +323,8 @@ func (f *sliceFigure) raster() *image.RGBA {
 			}
 			red, green, blue := g, g, g
 			if gm := f.Gamma[n]; gm > 1 {
-				o := 0
-				if gm > 1.5 {
-					o = 1
-				}
-				a, oc := gammaAlpha[o], gammaOverlay[o]
-				red = red*(1-a) + float64(oc.R)*a
-				green = green*(1-a) + float64(oc.G)*a
-				blue = blue*(1-a) + float64(oc.B)*a
+				c := gammaColor(float64(gm), f.GammaCap)
+				red, green, blue = float64(c.R), float64(c.G), float64(c.B)
 			}
 			px := line[4*x : 4*x+4]
 			px[0], px[1], px[2], px[3] = uint8(red+0.5), uint8(green+0.5), uint8(blue+0.5), 255
@@ -396,6 +410,9 @@ func (l *sliceLayer) Plot(c draw.Canvas, p *plot.Plot) {
 			Dashes: []vg.Length{vg.Points(2.5), vg.Points(1.5)}}, toVG(lines)...)
 	}
 	for i, lines := range l.outline {
+		// A light halo under each outline keeps dark colours visible on
+		// the black of low doses.
+		c.StrokeLines(draw.LineStyle{Color: color.NRGBA{R: 255, G: 255, B: 255, A: 170}, Width: vg.Points(2.4)}, toVG(lines)...)
 		c.StrokeLines(draw.LineStyle{Color: l.fig.Outlines[i].Color, Width: vg.Points(1.2)}, toVG(lines)...)
 	}
 
@@ -434,6 +451,13 @@ var patientAxisName = [3]string{"x", "y", "z"}
 // sliceSVG draws one slice figure, with the plot sized so that 1 mm is as
 // long across as down.
 func sliceSVG(f *sliceFigure) (string, error) {
+	p, w, h := slicePlot(f, 280, 320)
+	return svgOf(p, w, h, f.Title)
+}
+
+// slicePlot makes one slice figure's plot and the canvas size, at most
+// maxW×maxH points, that gives 1 mm the same length across and down.
+func slicePlot(f *sliceFigure, maxW, maxH vg.Length) (*plot.Plot, vg.Length, vg.Length) {
 	s := f.Slice
 	across, down, downInc := s.View.inPlane()
 	left, right, top, bottom := s.View.edgeLetters()
@@ -447,8 +471,8 @@ func sliceSVG(f *sliceFigure) (string, error) {
 	if downInc {
 		p.Y.Scale = plot.InvertedScale{Normalizer: plot.LinearScale{}}
 	}
-	w, h := fitAspect(p, xmax-xmin, ymax-ymin, 280, 320)
-	return svgOf(p, w, h, f.Title)
+	w, h := fitAspect(p, xmax-xmin, ymax-ymin, maxW, maxH)
+	return p, w, h
 }
 
 // fitAspect returns a canvas size, at most maxW×maxH points, whose data

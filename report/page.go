@@ -1,12 +1,9 @@
 package report
 
 import (
-	"bytes"
-	"encoding/json"
 	"fmt"
 	"html/template"
-	"image/color"
-	"sort"
+	"math"
 	"strconv"
 	"strings"
 
@@ -14,8 +11,9 @@ import (
 	"voxgamma/volume"
 )
 
-// Page is everything the HTML review page is made from. Every number it
-// shows comes from Result or is computed from the grids and masks.
+// Page is everything the HTML review page (and the PDF) is made from.
+// Every number it shows comes from Result or is computed from the grids and
+// masks.
 type Page struct {
 	// Result is the comparison's outcome: every number shown comes from
 	// here.
@@ -26,6 +24,10 @@ type Page struct {
 	// not evaluated. Its number of non-NaN values must equal
 	// Result.Overall.Evaluated.
 	Gamma *volume.Grid
+	// Difference is evaluated − reference (Gy) on the reference grid's
+	// geometry, NaN outside the evaluated grid; nil leaves the dose
+	// difference out of the slice browser.
+	Difference *volume.Grid
 	// ROIs are the masks for the slice outlines and the per-ROI Γ
 	// histograms, matched to Result.ROIs by name.
 	ROIs []PageROI
@@ -34,13 +36,10 @@ type Page struct {
 	Generated string
 }
 
-// PageROI is one ROI's mask and display colour.
+// PageROI is one ROI's mask.
 type PageROI struct {
 	// Name matches result.ROI.Name.
 	Name string
-	// Color is the outline and curve colour (the structure set's display
-	// colour, typically).
-	Color [3]uint8
 	// Mask is the voxel-centre mask on the reference grid.
 	Mask *volume.Mask
 }
@@ -62,37 +61,46 @@ type swatch struct {
 }
 
 type inputRow struct {
-	Role, Path, SHA256, Modality, FrameOfReference string
-	Patient, Dose, Grid, Description               string
+	Role, SHA256, Modality, FrameOfReference string
+	Path                                     template.HTML
+	Patient, Dose, Grid, Description         string
 }
 
 type ruleRow struct {
-	Met                                bool
-	Class, Mark                        string
+	Class                              string
+	Mark                               string
 	Rule, Level, Subject, Value, Limit string
 	Reason                             string
-	Conditions                         []string
+	// Conditions are the choices that changed how the rule's subject was
+	// sampled (result.RuleOutcome.Conditions).
+	Conditions []string
 }
 
 type ruleMark struct {
-	Met         bool
-	Class, Mark string
-	Text        string
+	Class string
+	Mark  string
+	Text  string
 }
 
 type roiRow struct {
-	ID, Name, Swatch                      string
+	ID, Name                              string
 	SwatchStyle                           template.CSS
 	Kind, Source                          string
 	VolumeCC, Voxels, Evaluated, PassRate string
 	GammaMean, GammaP95, GammaMax         string
 	DMean, D95, D2, Status                string
-	NotEvaluated                          bool
+	NotEvaluated, Failing                 bool
 	Rules                                 []ruleMark
+	// AlsoAs names derived ROIs with the same numbers, not listed again.
+	AlsoAs string
+	// Goto is the point (mm, "x,y,z") the slice browser centres on, and
+	// Extent the size (mm) of the region to show; empty when unknown.
+	Goto, Extent string
 }
 
 type roiPanel struct {
 	ID, Name  string
+	Failing   bool
 	Histogram figure
 	DVH       figure
 }
@@ -101,6 +109,18 @@ type clusterRow struct {
 	Number                               int
 	VolumeCC, Voxels, Centroid, GammaMax string
 	ROIs                                 string
+	Goto, Extent                         string
+}
+
+// protoLine is one line of the protocol as shown: a key (or list marker)
+// and its value, indented by depth.
+type protoLine struct {
+	Depth      int
+	Key, Value string
+	// Item marks a list item's number (no colon after it).
+	Item bool
+	// Note says how a value left to its default was resolved.
+	Note string
 }
 
 // model is the page with every value formatted, as the template shows it.
@@ -114,11 +134,13 @@ type model struct {
 	VerdictPass        bool
 	VerdictKnown       bool
 	Verdict, VerdictOf string
+	Failures           []string
 	CriteriaLabel      string
 	CriteriaDetails    []string
 	ProtocolName       string
-	ProtocolJSON       string
+	ProtocolLines      []protoLine
 	Frames             []string
+	Plan               *planView
 	Inputs             []inputRow
 	Warnings, Notes    []string
 	NotEvaluated       []string
@@ -126,8 +148,14 @@ type model struct {
 	Overall            roiRow
 	ROIRows            []roiRow
 	OverallHistogram   figure
-	DVHAll             figure
 	Panels             []roiPanel
+	DefaultPanel       string
+	ViewerData         template.HTML
+	ViewerNote         string
+	ViewerDiff         bool
+	DiffRanges         []diffRange
+	IsodoseLegend      []swatch
+	ROILegend          []swatch
 	SliceCaption       string
 	Slices             []figure
 	SliceLegend        []swatch
@@ -138,34 +166,25 @@ type model struct {
 	CSP                string
 }
 
+// diffRange is one choice of the dose difference colour scale's range.
+type diffRange struct {
+	Value, Label string
+	Selected     bool
+}
+
 // maxClusterRows bounds the failing-cluster table; the JSON has them all.
 const maxClusterRows = 50
+
+// dvhAllPanel is the id of the panel that overlays every ROI's DVH.
+const dvhAllPanel = "dvh-all"
 
 // buildModel checks the page's inputs against each other and computes
 // everything the template shows.
 func buildModel(in Page) (*model, error) {
 	r := in.Result
-	if r == nil {
-		return nil, fmt.Errorf("no result")
+	if err := checkPage(in); err != nil {
+		return nil, err
 	}
-	if in.Reference == nil || in.Gamma == nil {
-		return nil, fmt.Errorf("the reference dose and the Γ grid are both needed for the figures")
-	}
-	if in.Reference.Len() == 0 {
-		return nil, fmt.Errorf("the reference grid is empty")
-	}
-	if !in.Gamma.SameGeometry(in.Reference) {
-		return nil, fmt.Errorf("the Γ grid %v does not have the reference grid's geometry %v", in.Gamma.Dims(), in.Reference.Dims())
-	}
-	for _, pr := range in.ROIs {
-		if pr.Mask == nil {
-			return nil, fmt.Errorf("ROI %q: no mask", pr.Name)
-		}
-		if pr.Mask.Dims() != in.Reference.Dims() || len(pr.Mask.Bits) != len(in.Reference.Data) {
-			return nil, fmt.Errorf("ROI %q: mask %v does not match the reference grid %v", pr.Name, pr.Mask.Dims(), in.Reference.Dims())
-		}
-	}
-
 	m := &model{
 		Version:   r.Version,
 		Schema:    r.SchemaVersion,
@@ -181,32 +200,27 @@ func buildModel(in Page) (*model, error) {
 		m.Caution = result.Caution
 	}
 	fillHeader(m, r)
-
-	// Match page ROIs (masks, colours) to result ROIs by name, in order.
-	pageROI := make([]*PageROI, len(r.ROIs))
-	taken := make([]bool, len(in.ROIs))
-	for i, roi := range r.ROIs {
-		for j := range in.ROIs {
-			if !taken[j] && in.ROIs[j].Name == roi.Name {
-				taken[j] = true
-				pageROI[i] = &in.ROIs[j]
-				break
-			}
+	lay := layoutROIs(r, in.Reference, in.ROIs)
+	norm, _, _ := normOf(in, r)
+	for _, iso := range isodoseLevels {
+		m.IsodoseLegend = append(m.IsodoseLegend, swatch{
+			Style: template.CSS("border-top-style:dashed;border-top-color:" + hexColor(iso.Color)),
+			Label: fmt.Sprintf("%s %% isodose (%s Gy)", exact(iso.Percent), fixed(iso.Percent/100*norm, 2)),
+		})
+	}
+	for _, i := range lay.order {
+		if lay.mask[i] != nil {
+			m.ROILegend = append(m.ROILegend, swatch{Style: template.CSS("border-top-color:" + hexColor(lay.color[i])), Label: r.ROIs[i].Name})
 		}
 	}
-	colors := make([]color.RGBA, len(r.ROIs))
-	for i := range r.ROIs {
-		if pr := pageROI[i]; pr != nil {
-			colors[i] = color.RGBA{R: pr.Color[0], G: pr.Color[1], B: pr.Color[2], A: 255}
-		} else {
-			colors[i] = roiPalette[i%len(roiPalette)]
-		}
+	for _, e := range lay.extra {
+		m.ROILegend = append(m.ROILegend, swatch{Style: template.CSS("border-top-color:" + hexColor(e.color)), Label: e.mask.Name + " (not in the result)"})
 	}
 
-	// Tables.
+	// Tables, failing ROIs first.
 	m.Overall = overallRow(r)
-	for i, roi := range r.ROIs {
-		m.ROIRows = append(m.ROIRows, roiTableRow(r, i, roi, colors[i]))
+	for _, i := range lay.order {
+		m.ROIRows = append(m.ROIRows, roiTableRow(r, i, lay))
 	}
 
 	// Histograms.
@@ -229,11 +243,12 @@ func buildModel(in Page) (*model, error) {
 		m.OverallHistogram = figure{SVG: template.HTML(svg), Caption: histogramCaption(overall, gcap, r.Overall.Capped)}
 	}
 
-	// DVHs and per-ROI panels.
+	// Per-ROI panels in table order, and the overlay of every DVH.
 	var all []dvhSeries
-	for i, roi := range r.ROIs {
-		panel := roiPanel{ID: m.ROIRows[i].ID, Name: roi.Name}
-		if pr := pageROI[i]; pr == nil {
+	for _, i := range lay.order {
+		roi := r.ROIs[i]
+		panel := roiPanel{ID: lay.id[i], Name: roi.Name, Failing: lay.failing[i]}
+		if pr := lay.mask[i]; pr == nil {
 			panel.Histogram.Missing = "No mask was given for this ROI, so its Γ histogram is not drawn."
 		} else {
 			h, err := histogramOf(in.Gamma, pr.Mask, gcap)
@@ -243,8 +258,7 @@ func buildModel(in Page) (*model, error) {
 			if h.Total == 0 {
 				panel.Histogram.Missing = "No voxel of this ROI has a Γ (status: " + statusText(roi) + ")."
 			} else {
-				title := "Γ histogram: " + roi.Name
-				svg, err := histogramSVG(h, title)
+				svg, err := histogramSVG(h, "Γ histogram: "+roi.Name)
 				if err != nil {
 					return nil, err
 				}
@@ -260,15 +274,14 @@ func buildModel(in Page) (*model, error) {
 		} else if err := checkCurves(roi.DVH.Curves); err != nil {
 			panel.DVH.Missing = "No DVH figure: " + err.Error() + "."
 		} else {
-			s := dvhSeries{Name: roi.Name, Color: colors[i], Curves: roi.DVH.Curves}
+			s := dvhSeries{Name: roi.Name, Color: lay.color[i], Curves: roi.DVH.Curves}
 			all = append(all, s)
-			title := "Cumulative DVH: " + roi.Name
-			svg, err := dvhSVG([]dvhSeries{s}, title, 300, 190)
+			svg, err := dvhSVG([]dvhSeries{s}, "Cumulative DVH: "+roi.Name, 300, 190, false)
 			if err != nil {
 				return nil, err
 			}
 			panel.DVH.SVG = template.HTML(svg)
-			col := hexColor(lineColor(colors[i]))
+			col := hexColor(lay.color[i])
 			panel.DVH.Legend = []swatch{
 				{Style: template.CSS("border-top-color:" + col), Label: "reference"},
 				{Style: template.CSS("border-top-style:dashed;border-top-color:" + col), Label: "evaluated"},
@@ -276,29 +289,29 @@ func buildModel(in Page) (*model, error) {
 		}
 		m.Panels = append(m.Panels, panel)
 	}
+	overlay := roiPanel{ID: dvhAllPanel, Name: "every ROI: DVHs overlaid"}
+	overlay.Histogram.Missing = "The Γ histogram of every evaluated point is shown above."
 	if len(all) == 0 {
-		m.DVHAll.Missing = "The result holds no DVH curves."
+		overlay.DVH.Missing = "The result holds no DVH curves."
 	} else {
-		svg, err := dvhSVG(all, "Cumulative DVHs: every ROI", 460, 280)
+		svg, err := dvhSVG(all, "Cumulative DVHs: every ROI", 560, 340, true)
 		if err != nil {
 			return nil, err
 		}
-		m.DVHAll.SVG = template.HTML(svg)
-		m.DVHAll.Caption = "Reference solid, evaluated dashed, one colour per ROI."
-		m.DVHAll.Legend = []swatch{
+		overlay.DVH = figure{SVG: template.HTML(svg),
+			Caption: "Reference solid, evaluated dashed; each ROI in its colour (Kelly's colours of maximum contrast) and named where its reference curve crosses 50 %."}
+		overlay.DVH.Legend = []swatch{
 			{Style: template.CSS("border-top-color:#000"), Label: "reference"},
 			{Style: template.CSS("border-top-style:dashed;border-top-color:#000"), Label: "evaluated"},
 		}
 		for _, s := range all {
-			m.DVHAll.Legend = append(m.DVHAll.Legend, swatch{
-				Style: template.CSS("border-top-color:" + hexColor(lineColor(s.Color))),
-				Label: s.Name,
-			})
+			overlay.DVH.Legend = append(overlay.DVH.Legend, swatch{Style: template.CSS("border-top-color:" + hexColor(s.Color)), Label: s.Name})
 		}
 	}
-
-	if err := fillSlices(m, in, r, pageROI, colors); err != nil {
-		return nil, err
+	m.Panels = append(m.Panels, overlay)
+	m.DefaultPanel = dvhAllPanel
+	if len(lay.order) > 0 {
+		m.DefaultPanel = lay.id[lay.worst]
 	}
 
 	for i, c := range r.Clusters {
@@ -313,220 +326,66 @@ func buildModel(in Page) (*model, error) {
 			Centroid: mm3(c.CentroidMM),
 			GammaMax: fixed(c.GammaMax, 2),
 			ROIs:     strings.Join(c.ROIs, ", "),
+			Goto:     gotoAttr(c.CentroidMM),
+			Extent:   fixed(clusterExtent(c.VolumeCC), 1),
 		})
+	}
+
+	if err := fillSlices(m, in, r, lay); err != nil {
+		return nil, err
+	}
+	if err := fillViewer(m, in, r, lay); err != nil {
+		return nil, err
 	}
 	return m, nil
 }
 
-// fillHeader fills the identification, criteria, protocol, inputs, rules and
-// verdict.
-func fillHeader(m *model, r *result.Result) {
-	var ids, names, frames []string
-	seen := map[string]bool{}
-	addOnce := func(list *[]string, kind, v string) {
-		if v != "" && !seen[kind+"\x00"+v] {
-			seen[kind+"\x00"+v] = true
-			*list = append(*list, v)
+// checkPage checks that the grids and masks fit together.
+func checkPage(in Page) error {
+	if in.Result == nil {
+		return fmt.Errorf("no result")
+	}
+	if in.Reference == nil || in.Gamma == nil {
+		return fmt.Errorf("the reference dose and the Γ grid are both needed for the figures")
+	}
+	if in.Reference.Len() == 0 {
+		return fmt.Errorf("the reference grid is empty")
+	}
+	if !in.Gamma.SameGeometry(in.Reference) {
+		return fmt.Errorf("the Γ grid %v does not have the reference grid's geometry %v", in.Gamma.Dims(), in.Reference.Dims())
+	}
+	if in.Difference != nil && !in.Difference.SameGeometry(in.Reference) {
+		return fmt.Errorf("the difference grid %v does not have the reference grid's geometry %v", in.Difference.Dims(), in.Reference.Dims())
+	}
+	for _, pr := range in.ROIs {
+		if pr.Mask == nil {
+			return fmt.Errorf("ROI %q: no mask", pr.Name)
+		}
+		if pr.Mask.Dims() != in.Reference.Dims() || len(pr.Mask.Bits) != len(in.Reference.Data) {
+			return fmt.Errorf("ROI %q: mask %v does not match the reference grid %v", pr.Name, pr.Mask.Dims(), in.Reference.Dims())
 		}
 	}
-	for _, in := range r.Inputs {
-		addOnce(&ids, "id", in.PatientID)
-		addOnce(&names, "name", in.PatientName)
-		addOnce(&frames, "for", in.FrameOfReferenceUID)
-		row := inputRow{
-			Role: in.Role, Path: in.Path, SHA256: in.SHA256, Modality: in.Modality,
-			FrameOfReference: in.FrameOfReferenceUID, Description: in.Description,
-		}
-		row.Patient = strings.TrimSpace(in.PatientID + " " + in.PatientName)
-		row.Dose = strings.Join(nonEmpty(in.DoseUnits, in.DoseType, in.DoseSummationType), ", ")
-		if g := in.Grid; g != nil {
-			row.Grid = fmt.Sprintf("%d×%d×%d voxels, %s × %s × %s mm, origin %s mm, maximum %s Gy",
-				g.Dims[0], g.Dims[1], g.Dims[2], exact(g.SpacingMM[0]), exact(g.SpacingMM[1]), exact(g.SpacingMM[2]),
-				mm3(g.OriginMM), fixed(g.MaxDoseGy, 2))
-			if !g.UniformFrames {
-				row.Grid += "; irregular frame offsets (mean spacing shown)"
-			}
-		}
-		m.Inputs = append(m.Inputs, row)
-	}
-	m.PatientIDs, m.PatientNames, m.Frames = ids, names, frames
-
-	c := r.Criteria
-	m.CriteriaLabel = c.Label
-	m.CriteriaDetails = []string{
-		"dose difference " + exact(c.DosePercent) + " %, " + nonBlank(c.Normalisation, "normalisation not stated"),
-		"distance to agreement " + exact(c.DTAmm) + " mm",
-		"normalisation dose " + fixed(c.NormDoseGy, 3) + " Gy (" + nonBlank(c.NormDoseSource, "source not stated") + ")",
-		"low-dose threshold " + exact(c.ThresholdPercent) + " % of the normalisation dose",
-		"search distance " + exact(c.SearchMM) + " mm",
-		"search method: " + nonBlank(c.Method, "not stated"),
-	}
-
-	m.Title = "voxgamma dose comparison"
-	m.Heading = "Dose comparison review"
-	if len(ids) > 0 {
-		m.Title += ": " + strings.Join(ids, ", ")
-	}
-	if c.Label != "" {
-		m.Title += " (" + c.Label + ")"
-	}
-	m.ProtocolName, m.ProtocolJSON = protocolText(r.Protocol)
-
-	o := r.Overall
-	m.NotEvaluated = []string{
-		fmt.Sprintf("%d reference points below the low-dose threshold", o.BelowThreshold),
-		fmt.Sprintf("%d reference points outside the evaluated grid", o.OutsideEvaluated),
-		fmt.Sprintf("%d evaluated points capped at the search distance (Γ reported as the search distance over the DTA; they count as failing)", o.Capped),
-	}
-	for _, roi := range r.ROIs {
-		if !roi.Status.Evaluated() {
-			m.NotEvaluated = append(m.NotEvaluated, fmt.Sprintf("ROI %q: %s", roi.Name, nonBlank(statusText(roi), "status not stated")))
-		}
-		if c := roi.CoveredPercent; c != nil && *c < 100 {
-			m.NotEvaluated = append(m.NotEvaluated, fmt.Sprintf("ROI %q: only %s %% of its volume lies inside both dose grids", roi.Name, result.FormatPercent(*c, 2)))
-		}
-	}
-
-	met, na := 0, 0
-	for _, rule := range r.Rules {
-		row := ruleRow{
-			Met: rule.Met, Class: outcomeClass(rule.Outcome), Mark: outcomeMark(rule.Outcome), Rule: rule.Rule, Level: rule.Level, Subject: rule.Subject,
-			Limit: exact(rule.Limit), Reason: rule.Reason, Conditions: rule.Conditions,
-		}
-		switch {
-		case rule.Value == nil:
-			row.Value = "not measured"
-		case rule.ValueText != "":
-			row.Value = rule.ValueText
-		default:
-			row.Value = ruleValue(*rule.Value, rule.Limit)
-		}
-		switch rule.Outcome {
-		case result.Met:
-			met++
-		case result.NotApplicable:
-			na++
-		}
-		m.Rules = append(m.Rules, row)
-	}
-	switch r.Verdict {
-	case "pass":
-		m.VerdictKnown, m.VerdictPass, m.Verdict = true, true, "✔ PASS"
-	case "fail":
-		m.VerdictKnown, m.Verdict = true, "✘ FAIL"
-	case "":
-		m.Verdict = "? no verdict in the result"
-	default:
-		m.Verdict = "? " + r.Verdict
-	}
-	m.VerdictOf = fmt.Sprintf("%d of %d protocol rule checks met", met, len(r.Rules))
-	if na > 0 {
-		m.VerdictOf += fmt.Sprintf(", %d not applicable", na)
-	}
-
-	run := r.Run
-	m.Run = fmt.Sprintf("Comparison took %s s (Γ search %s s) with %d workers.", fixed(run.Seconds, 1), fixed(run.GammaSeconds, 1), run.Workers)
+	return nil
 }
 
-// outcomeMark is the word-and-symbol mark of a rule outcome: not
-// applicable reads as such, never as met.
-func outcomeMark(o result.RuleState) string {
-	switch o {
-	case result.Met:
-		return "✔ met"
-	case result.NotApplicable:
-		return "– not applicable"
-	}
-	return "✘ not met"
+// gotoAttr formats a point for the slice browser's data-goto attribute.
+func gotoAttr(p [3]float64) string {
+	return strconv.FormatFloat(p[0], 'f', 2, 64) + "," + strconv.FormatFloat(p[1], 'f', 2, 64) + "," + strconv.FormatFloat(p[2], 'f', 2, 64)
 }
 
-// outcomeClass is the CSS class of a rule outcome.
-func outcomeClass(o result.RuleState) string {
-	switch o {
-	case result.Met:
-		return "met"
-	case result.NotApplicable:
-		return "na"
-	}
-	return "notmet"
+// clusterExtent is the size (mm) of the region shown around a failing
+// region of the given volume: three times the edge of a cube of that
+// volume, at least 20 mm.
+func clusterExtent(cc float64) float64 {
+	return math.Max(20, 3*math.Cbrt(cc*1000))
 }
 
-// statusText is an ROI's status with its detail.
-func statusText(roi result.ROI) string {
-	s := string(roi.Status)
-	if roi.StatusDetail != "" {
-		s += " (" + roi.StatusDetail + ")"
-	}
-	return s
-}
-
-func nonEmpty(v ...string) []string {
-	var out []string
-	for _, s := range v {
-		if s != "" {
-			out = append(out, s)
-		}
-	}
-	return out
-}
-
-func nonBlank(s, instead string) string {
-	if strings.TrimSpace(s) == "" {
-		return instead
-	}
-	return s
-}
-
-// protocolText returns the protocol's name (its "name" field, whatever its
-// case, or the protocol itself when it is a string) and the protocol in
-// full as indented JSON.
-func protocolText(p any) (name, full string) {
-	if p == nil {
-		return "none given", ""
-	}
-	if s, ok := p.(string); ok {
-		return s, ""
-	}
-	// No HTML escaping here: the page's template escapes the text, and
-	// "\u003e=" would hide a rule's ">=" from the reader.
-	var buf bytes.Buffer
-	enc := json.NewEncoder(&buf)
-	enc.SetEscapeHTML(false)
-	enc.SetIndent("", "  ")
-	if err := enc.Encode(p); err != nil {
-		return "(protocol cannot be shown: " + err.Error() + ")", ""
-	}
-	b := bytes.TrimRight(buf.Bytes(), "\n")
-	var fields map[string]any
-	if json.Unmarshal(b, &fields) == nil {
-		keys := make([]string, 0, len(fields))
-		for k := range fields {
-			keys = append(keys, k)
-		}
-		sort.Strings(keys)
-		for _, k := range keys {
-			if strings.EqualFold(k, "name") {
-				if s, ok := fields[k].(string); ok && s != "" {
-					name = s
-					break
-				}
-			}
-		}
-	}
-	if name == "" {
-		name = "unnamed"
-	}
-	return name, string(b)
-}
-
+// overallRow is the first row of the per-ROI table.
 func overallRow(r *result.Result) roiRow {
 	o := r.Overall
-	return roiRow{
+	row := roiRow{
 		ID:        "overall",
 		Name:      "overall (every evaluated point)",
-		Kind:      "",
-		VolumeCC:  "",
-		Voxels:    "",
 		Evaluated: strconv.Itoa(o.Evaluated),
 		PassRate:  o.PassRateText,
 		GammaMean: fixedPtr(o.GammaMean, 2),
@@ -534,13 +393,16 @@ func overallRow(r *result.Result) roiRow {
 		GammaMax:  fixedPtr(o.GammaMax, 2),
 		Rules:     rulesFor(r, "overall"),
 	}
+	row.Failing = anyNotMet(row.Rules)
+	return row
 }
 
-func roiTableRow(r *result.Result, i int, roi result.ROI, col color.RGBA) roiRow {
+func roiTableRow(r *result.Result, i int, lay *roiLayout) roiRow {
+	roi := r.ROIs[i]
 	row := roiRow{
-		ID:          "roi-" + strconv.Itoa(i),
+		ID:          lay.id[i],
 		Name:        roi.Name,
-		SwatchStyle: template.CSS("background-color:" + hexColor(col)),
+		SwatchStyle: template.CSS("background-color:" + hexColor(lay.color[i])),
 		Kind:        roi.Kind,
 		Source:      roi.Source,
 		VolumeCC:    cc(roi.VolumeCC),
@@ -555,6 +417,14 @@ func roiTableRow(r *result.Result, i int, roi result.ROI, col color.RGBA) roiRow
 		D2:          notAvailable,
 		Status:      nonBlank(statusText(roi), "not stated"),
 		Rules:       rulesFor(r, roi.Name),
+		Failing:     lay.failing[i],
+	}
+	for _, j := range lay.merged[i] {
+		row.Rules = append(row.Rules, rulesFor(r, r.ROIs[j].Name)...)
+		if row.AlsoAs != "" {
+			row.AlsoAs += ", "
+		}
+		row.AlsoAs += fmt.Sprintf("%q (%s)", r.ROIs[j].Name, r.ROIs[j].Source)
 	}
 	if roi.InterpretedType != "" {
 		row.Kind += " (" + roi.InterpretedType + ")"
@@ -567,6 +437,9 @@ func roiTableRow(r *result.Result, i int, roi result.ROI, col color.RGBA) roiRow
 		row.DMean = signedPtr(d.DifferencePercent.MeanGy, 1)
 		row.D95 = signedPtr(d.DifferencePercent.D95Gy, 1)
 		row.D2 = signedPtr(d.DifferencePercent.D2Gy, 1)
+	}
+	if g, ok := lay.goTo[i]; ok {
+		row.Goto, row.Extent = gotoAttr(g.at), fixed(g.extent, 1)
 	}
 	return row
 }
@@ -585,9 +458,19 @@ func rulesFor(r *result.Result, subject string) []ruleMark {
 		for _, c := range rule.Conditions {
 			text += "; " + c
 		}
-		out = append(out, ruleMark{Met: rule.Met, Class: outcomeClass(rule.Outcome), Mark: outcomeMark(rule.Outcome), Text: text})
+		o := outcomeOf(rule)
+		out = append(out, ruleMark{Class: o.class, Mark: o.mark, Text: text})
 	}
 	return out
+}
+
+func anyNotMet(marks []ruleMark) bool {
+	for _, m := range marks {
+		if m.Class == "notmet" {
+			return true
+		}
+	}
+	return false
 }
 
 // histogramCaption describes a histogram's counts. capped < 0 leaves the
@@ -611,101 +494,129 @@ func mismatchNote(count int, roi result.ROI) string {
 	return s + "."
 }
 
-// fillSlices renders the three orthogonal slices.
-func fillSlices(m *model, in Page, r *result.Result, pageROI []*PageROI, colors []color.RGBA) error {
+// sliceCentre is where the fixed slices go through, and why.
+func sliceCentre(in Page, r *result.Result) ([3]float64, string) {
 	ref := in.Reference
 	refMax, at := ref.Max()
-	var centre [3]float64
 	switch {
 	case len(r.Clusters) > 0:
 		c := r.Clusters[0]
-		centre = c.CentroidMM
-		m.SliceCaption = fmt.Sprintf("Slices through the centroid %s mm of the largest failing region (%s cc, maximum Γ %s).",
-			mm3(centre), cc(c.VolumeCC), fixed(c.GammaMax, 2))
+		return c.CentroidMM, fmt.Sprintf("Slices through the centroid %s mm of the largest failing region (%s cc, maximum Γ %s).",
+			mm3(c.CentroidMM), cc(c.VolumeCC), fixed(c.GammaMax, 2))
 	case at >= 0:
 		i, j, k := ref.IJK(at)
-		centre = ref.WorldOf(i, j, k)
-		m.SliceCaption = fmt.Sprintf("No failing region: slices through the reference dose maximum, %s Gy at %s mm.",
-			fixed(float64(refMax), 2), mm3(centre))
-	default:
-		lo, hi := ref.Bounds()
-		for a := range centre {
-			centre[a] = (lo[a] + hi[a]) / 2
-		}
-		m.SliceCaption = fmt.Sprintf("The reference dose has no value: slices through the grid's centre %s mm.", mm3(centre))
+		p := ref.WorldOf(i, j, k)
+		return p, fmt.Sprintf("No failing region: slices through the reference dose maximum, %s Gy at %s mm.", fixed(float64(refMax), 2), mm3(p))
 	}
-	greyMax := float64(refMax)
+	lo, hi := ref.Bounds()
+	var p [3]float64
+	for a := range p {
+		p[a] = (lo[a] + hi[a]) / 2
+	}
+	return p, fmt.Sprintf("The reference dose has no value: slices through the grid's centre %s mm.", mm3(p))
+}
+
+// normOf returns the dose isodoses refer to, and what it is.
+func normOf(in Page, r *result.Result) (norm, greyMax float64, note string) {
+	refMax, _ := in.Reference.Max()
+	greyMax = float64(refMax)
 	if !(greyMax > 0) {
 		greyMax = 1
 	}
-	norm := r.Criteria.NormDoseGy
-	normNote := "the normalisation dose"
+	norm, note = r.Criteria.NormDoseGy, "the normalisation dose"
 	if !(norm > 0) {
-		norm, normNote = greyMax, "the reference maximum"
+		norm, note = greyMax, "the reference maximum"
 	}
-	m.SliceCaption += fmt.Sprintf(" Grey: reference dose, black 0 Gy to white %s Gy (the reference maximum). Dashed lines: isodoses in %% of %s, %s Gy. The ring marks the point the three slices go through; letters name the patient directions (R/L right/left, A/P anterior/posterior, S/I superior/inferior).",
-		fixed(greyMax, 2), normNote, fixed(norm, 2))
+	return norm, greyMax, note
+}
 
+// sliceFigures returns the three orthogonal slice figures through centre.
+func sliceFigures(in Page, r *result.Result, lay *roiLayout, centre [3]float64) []*sliceFigure {
+	norm, greyMax, _ := normOf(in, r)
+	var out []*sliceFigure
 	for _, v := range views {
-		s := extractSlice(ref, v, centre)
+		s := extractSlice(in.Reference, v, centre)
 		f := &sliceFigure{
-			Slice: s, Dose: s.values(ref), Gamma: s.values(in.Gamma),
-			GreyMax: greyMax, NormDose: norm, Marker: centre,
+			Slice: s, Dose: s.values(in.Reference), Gamma: s.values(in.Gamma),
+			GreyMax: greyMax, NormDose: norm, Marker: centre, GammaCap: gammaCap(r.Criteria, in.Gamma),
 			Title: fmt.Sprintf("%s, %s = %s mm", capitalise(v.String()), patientAxisName[v.fixed()], fixed(s.Plane, 1)),
 		}
-		for i, pr := range pageROI {
-			if pr != nil {
-				f.Outlines = append(f.Outlines, roiOutline{Color: colors[i], In: s.maskValues(pr.Mask)})
+		for _, i := range lay.order {
+			if pr := lay.mask[i]; pr != nil {
+				f.Outlines = append(f.Outlines, roiOutline{Color: lay.color[i], In: s.maskValues(pr.Mask)})
 			}
 		}
-		// Masks given for ROIs the result does not list still outline.
-		for j := range in.ROIs {
-			if !used(pageROI, &in.ROIs[j]) {
-				pr := &in.ROIs[j]
-				f.Outlines = append(f.Outlines, roiOutline{Color: color.RGBA{R: pr.Color[0], G: pr.Color[1], B: pr.Color[2], A: 255}, In: s.maskValues(pr.Mask)})
-			}
+		for _, pr := range lay.extra {
+			f.Outlines = append(f.Outlines, roiOutline{Color: pr.color, In: s.maskValues(pr.mask.Mask)})
 		}
+		out = append(out, f)
+	}
+	return out
+}
+
+// fillSlices renders the three fixed slices (shown without the slice
+// browser: no script, printing a page whose browser did not run it).
+func fillSlices(m *model, in Page, r *result.Result, lay *roiLayout) error {
+	centre, caption := sliceCentre(in, r)
+	norm, greyMax, normNote := normOf(in, r)
+	m.SliceCaption = caption + fmt.Sprintf(" Grey: reference dose, black 0 Gy to white %s Gy (the reference maximum). Γ > 1 in colour from pale orange (just above 1) to dark red (the search cap, Γ = %s); Γ ≤ 1 shows the dose. Dashed lines: isodoses in %% of %s, %s Gy. The ring marks the point the three slices go through; letters name the patient directions (R/L right/left, A/P anterior/posterior, S/I superior/inferior).",
+		fixed(greyMax, 2), fixed(gammaCap(r.Criteria, in.Gamma), 2), normNote, fixed(norm, 2))
+	for _, f := range sliceFigures(in, r, lay, centre) {
 		svg, err := sliceSVG(f)
 		if err != nil {
 			return err
 		}
 		m.Slices = append(m.Slices, figure{SVG: template.HTML(svg)})
 	}
-
-	for _, iso := range isodoseLevels {
-		m.SliceLegend = append(m.SliceLegend, swatch{
-			Style: template.CSS("border-top-style:dashed;border-top-color:" + hexColor(iso.Color)),
-			Label: fmt.Sprintf("%s %% isodose (%s Gy)", exact(iso.Percent), fixed(iso.Percent/100*norm, 2)),
-		})
-	}
-	m.SliceLegend = append(m.SliceLegend,
-		swatch{Style: template.CSS("border-top-width:8px;border-top-color:" + hexColor(gammaOverlay[0])), Label: "1 < Γ ≤ 1.5"},
-		swatch{Style: template.CSS("border-top-width:8px;border-top-color:" + hexColor(gammaOverlay[1])), Label: "Γ > 1.5"},
-	)
-	for i, pr := range pageROI {
-		if pr != nil {
-			m.SliceLegend = append(m.SliceLegend, swatch{Style: template.CSS("border-top-color:" + hexColor(colors[i])), Label: r.ROIs[i].Name + " outline"})
-		}
-	}
-	for j := range in.ROIs {
-		if !used(pageROI, &in.ROIs[j]) {
-			pr := in.ROIs[j]
-			m.SliceLegend = append(m.SliceLegend, swatch{
-				Style: template.CSS("border-top-color:" + hexColor(color.RGBA{R: pr.Color[0], G: pr.Color[1], B: pr.Color[2], A: 255})),
-				Label: pr.Name + " outline (not in the result)",
-			})
-		}
-	}
+	m.SliceLegend = append(m.SliceLegend, swatch{Style: template.CSS("border-top-width:8px;border-image:linear-gradient(to right," + strings.Join(gammaClasses, ",") + ") 1"),
+		Label: "Γ from 1 to " + fixed(gammaCap(r.Criteria, in.Gamma), 2)})
+	m.SliceLegend = append(m.SliceLegend, m.IsodoseLegend...)
+	m.SliceLegend = append(m.SliceLegend, m.ROILegend...)
 	return nil
 }
 
-func used(list []*PageROI, p *PageROI) bool {
-	for _, q := range list {
-		if q == p {
-			return true
+// fillViewer prepares the slice browser.
+func fillViewer(m *model, in Page, r *result.Result, lay *roiLayout) error {
+	norm, _, normNote := normOf(in, r)
+	centre, startNote := sliceCentre(in, r)
+	vin := viewerInput{
+		Ref: in.Reference, Gamma: in.Gamma, Diff: in.Difference,
+		NormDose: norm, NormNote: normNote, ThresholdPercent: r.Criteria.ThresholdPercent,
+		DosePercent: r.Criteria.DosePercent, GammaCap: gammaCap(r.Criteria, in.Gamma),
+		Start: centre, StartNote: startNote,
+	}
+	if len(r.Clusters) > 0 {
+		// Open on the largest failing region, with room around it.
+		vin.StartExtent = math.Max(60, 3*clusterExtent(r.Clusters[0].VolumeCC))
+	}
+	for _, c := range r.Clusters {
+		vin.Clusters = append(vin.Clusters, viewerCluster{Centre: c.CentroidMM, ExtentMM: clusterExtent(c.VolumeCC)})
+	}
+	for _, i := range lay.order {
+		if pr := lay.mask[i]; pr != nil {
+			vin.ROIs = append(vin.ROIs, viewerMask{Name: r.ROIs[i].Name, Color: hexColor(lay.color[i]), Row: lay.id[i], Mask: pr.Mask})
 		}
 	}
-	return false
+	for _, pr := range lay.extra {
+		vin.ROIs = append(vin.ROIs, viewerMask{Name: pr.mask.Name, Color: hexColor(pr.color), Mask: pr.mask.Mask})
+	}
+	v, err := buildViewer(vin)
+	if err != nil {
+		return fmt.Errorf("slice browser: %w", err)
+	}
+	if m.ViewerData, err = v.html(); err != nil {
+		return fmt.Errorf("slice browser: %w", err)
+	}
+	m.ViewerNote = v.Note
+	m.ViewerDiff = in.Difference != nil
+	d := r.Criteria.DosePercent
+	if !(d > 0) {
+		d = 3
+	}
+	for _, pct := range []float64{d, 2 * d, 5, 10} {
+		m.DiffRanges = append(m.DiffRanges, diffRange{Value: exact(pct), Label: "±" + exact(pct) + " %", Selected: pct == 2*d})
+	}
+	return nil
 }
 
 func capitalise(s string) string {

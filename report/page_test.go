@@ -11,8 +11,8 @@ import (
 	"testing"
 	"time"
 
-	"image/color"
 	"voxgamma/report/browsercheck"
+	"voxgamma/result"
 )
 
 var smallCase = synthOptions{Dims: [3]int{48, 44, 40}, Spacing: [3]float64{3, 3, 3}, Fail: true}
@@ -98,12 +98,31 @@ func TestROITableFromResult(t *testing.T) {
 	if len(rows) != len(r.ROIs) {
 		t.Fatalf("%d ROI rows, the result has %d ROIs", len(rows), len(r.ROIs))
 	}
-	for i, roi := range r.ROIs {
-		tr := rows[i]
+	// Rows with a rule not met come first; each ROI exactly once.
+	seen := map[int]bool{}
+	failingDone := false
+	for k, tr := range rows {
+		i, err := strconv.Atoi(strings.TrimPrefix(tr.Attr["data-roi"], "roi-"))
+		if err != nil || i < 0 || i >= len(r.ROIs) || seen[i] {
+			t.Fatalf("row %d: data-roi %q", k, tr.Attr["data-roi"])
+		}
+		seen[i] = true
+		roi := r.ROIs[i]
+		failing := false
+		for _, rule := range r.Rules {
+			failing = failing || (rule.Subject == roi.Name && rule.Outcome == result.NotMet)
+		}
+		if failing && failingDone {
+			t.Errorf("row %d: %s has a rule not met but comes after an ROI without one", k, roi.Name)
+		}
+		failingDone = failingDone || !failing
+		if failing != tr.HasClass("failing") {
+			t.Errorf("%s: failing %v, row class %q", roi.Name, failing, tr.Attr["class"])
+		}
 		c := cells(tr)
 		name := strings.TrimSpace(tr.Elements("td")[0].TextContent())
 		if name != roi.Name {
-			t.Errorf("row %d: %q, want %q", i, name, roi.Name)
+			t.Errorf("row %d: %q, want %q", k, name, roi.Name)
 		}
 		if c["evaluated"] != strconv.Itoa(roi.Evaluated) {
 			t.Errorf("%s: evaluated %q, want %d", roi.Name, c["evaluated"], roi.Evaluated)
@@ -133,11 +152,7 @@ func TestROITableFromResult(t *testing.T) {
 		var want []string
 		for _, rule := range r.Rules {
 			if rule.Subject == roi.Name {
-				mark := "✘ not met: "
-				if rule.Met {
-					mark = "✔ met: "
-				}
-				want = append(want, mark+rule.Rule+" ("+rule.Level+")")
+				want = append(want, metMark(rule)+": "+rule.Rule+" ("+rule.Level+")")
 			}
 		}
 		if strings.Join(marks, "|") != strings.Join(want, "|") {
@@ -156,7 +171,7 @@ func TestHeaderAndRules(t *testing.T) {
 		t.Errorf("title %q lacks the patient ID or the criteria", title)
 	}
 	ident := doc.ByID("identification").TextContent()
-	for _, want := range []string{"PHANTOM-001", "PHANTOM^HEAD", "2.25.81985529216486895", r.Criteria.Label,
+	for _, want := range []string{"PHANTOM-001", "PHANTOM, HEAD", "2.25.81985529216486895", r.Criteria.Label,
 		"synthetic test protocol", r.Version, page.Generated} {
 		if !strings.Contains(ident, want) {
 			t.Errorf("header lacks %q", want)
@@ -185,17 +200,22 @@ func TestHeaderAndRules(t *testing.T) {
 	if !strings.Contains(verdict, "✘ FAIL") || r.Verdict != "fail" {
 		t.Errorf("verdict %q for a result that says %q", verdict, r.Verdict)
 	}
+	// Rules: not met first, each group in the result's order.
 	var outcomes []string
 	for _, tr := range doc.ByID("rule-table").Elements("tr")[1:] {
-		outcomes = append(outcomes, strings.TrimSpace(tr.Elements("td")[0].TextContent()))
+		td := tr.Elements("td")
+		outcomes = append(outcomes, strings.TrimSpace(td[0].TextContent())+" "+strings.TrimSpace(td[1].TextContent())+" "+strings.TrimSpace(td[3].TextContent()))
 	}
-	if len(outcomes) != len(r.Rules) {
-		t.Fatalf("%d rule rows, want %d", len(outcomes), len(r.Rules))
-	}
-	for i, rule := range r.Rules {
-		if want := outcomeMark(rule.Outcome); outcomes[i] != want {
-			t.Errorf("rule %d: %q, want %q", i, outcomes[i], want)
+	var want []string
+	for _, first := range []bool{true, false} {
+		for _, rule := range r.Rules {
+			if (rule.Outcome == result.NotMet) == first {
+				want = append(want, metMark(rule)+" "+rule.Rule+" "+rule.Subject)
+			}
 		}
+	}
+	if strings.Join(outcomes, "\n") != strings.Join(want, "\n") {
+		t.Errorf("rule rows:\n%s\nwant:\n%s", strings.Join(outcomes, "\n"), strings.Join(want, "\n"))
 	}
 	// Cluster table: one row per cluster, the result's numbers.
 	trs := doc.ByID("cluster-table").Elements("tr")[1:]
@@ -226,7 +246,7 @@ func TestDeidentifiedHeader(t *testing.T) {
 		page.Result.Inputs[i].PatientID, page.Result.Inputs[i].PatientName = "", ""
 	}
 	html, doc := render(t, page)
-	if strings.Contains(string(html), "PHANTOM-001") || strings.Contains(string(html), "PHANTOM^HEAD") {
+	if strings.Contains(string(html), "PHANTOM-001") || strings.Contains(string(html), "PHANTOM^HEAD") || strings.Contains(string(html), "PHANTOM, HEAD") {
 		t.Error("de-identified page shows the patient")
 	}
 	if strings.Contains(doc.ByID("identification").TextContent(), "Date") {
@@ -302,13 +322,9 @@ func TestSlicesFast(t *testing.T) {
 	}
 	page := synthCase(t, synthOptions{Dims: [3]int{256, 256, 160}, Spacing: [3]float64{1.5, 1.5, 2}, Fail: true})
 	m := &model{}
-	pageROI := make([]*PageROI, len(page.Result.ROIs))
-	for i := range page.ROIs {
-		pageROI[i] = &page.ROIs[i]
-	}
-	colors := make([]color.RGBA, len(page.Result.ROIs))
+	lay := layoutROIs(page.Result, page.Reference, page.ROIs)
 	start := time.Now()
-	if err := fillSlices(m, page, page.Result, pageROI, colors); err != nil {
+	if err := fillSlices(m, page, page.Result, lay); err != nil {
 		t.Fatal(err)
 	}
 	took := time.Since(start)

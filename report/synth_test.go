@@ -158,6 +158,10 @@ func synthCase(t testing.TB, o synthOptions) Page {
 
 	var page Page
 	page.Result, page.Reference, page.Gamma = r, ref, gam
+	page.Difference = ref.EmptyLike()
+	for n := range ref.Data {
+		page.Difference.Data[n] = eval.Data[n] - ref.Data[n]
+	}
 	page.Generated = "2001-01-01"
 	masks := map[string]*volume.Mask{}
 	shapes := synthShapes()
@@ -176,7 +180,7 @@ func synthCase(t testing.TB, o synthOptions) Page {
 			m.Bits[n] = s.inside(pos[n])
 		}
 		masks[s.name] = m
-		page.ROIs = append(page.ROIs, PageROI{Name: s.name, Color: s.color, Mask: m})
+		page.ROIs = append(page.ROIs, PageROI{Name: s.name, Mask: m})
 		roi := result.ROI{
 			Name: s.name, Number: len(r.ROIs) + 1, Kind: s.kind, InterpretedType: s.interpreted,
 			Source: "structure set", Voxels: m.Count(), Status: "evaluated",
@@ -184,12 +188,19 @@ func synthCase(t testing.TB, o synthOptions) Page {
 		roi.VolumeCC = float64(roi.Voxels) * voxelCC
 		roi.GammaStats = synthStats(gam, func(n int) bool { return m.Bits[n] })
 		failing := 0
+		var sum [3]float64
 		for n, in := range m.Bits {
 			if in && gam.Data[n] > 1 {
 				failing++
+				for a := range sum {
+					sum[a] += pos[n][a]
+				}
 			}
 		}
 		roi.FailingVolumeCC = float64(failing) * voxelCC
+		if failing > 0 {
+			roi.WorstCentroidMM = &[3]float64{sum[0] / float64(failing), sum[1] / float64(failing), sum[2] / float64(failing)}
+		}
 		roi.DVH = synthDVH(ref, eval, m)
 		r.ROIs = append(r.ROIs, roi)
 	}
