@@ -122,7 +122,7 @@ func TestComparePlanWrittenByPydicom(t *testing.T) {
 	rp := filepath.Join(c.dir, "rp.dcm")
 	ref := writePydicomPlan(t, rp, c.ids.ReferencedRTPlanUID, c.ids.FrameOfReferenceUID, c.ids.PatientID)
 	out := filepath.Join(c.dir, "r.json")
-	vgExit(t, 0, "compare", "--reference", c.ref, "--evaluated", c.eval, "--plan", rp, "--json", out, "-q")
+	vgExit(t, 0, "compare", "--reference", c.ref, "--evaluated", c.eval, "--plan", rp, "--json", out, "--no-structures", "-q")
 	r := readResultJSON(t, out)
 	p := r.Plan
 	if p == nil {
@@ -192,7 +192,7 @@ func TestComparePlanFolderAndMismatch(t *testing.T) {
 		t.Fatal(err)
 	}
 	out := filepath.Join(c.dir, "r.json")
-	vgExit(t, 0, "compare", "--reference", refDir, "--evaluated", c.eval, "--json", out, "-q")
+	vgExit(t, 0, "compare", "--reference", refDir, "--evaluated", c.eval, "--json", out, "--no-structures", "-q")
 	r := readResultJSON(t, out)
 	if r.Plan == nil || r.Plan.Label != "FOUND" || r.Plan.Source != "reference folder" || r.Plan.ReferenceDose != "names this plan" ||
 		r.Plan.FractionsPlanned == nil || *r.Plan.FractionsPlanned != 3 || r.Plan.PrescriptionGy != nil {
@@ -205,7 +205,7 @@ func TestComparePlanFolderAndMismatch(t *testing.T) {
 		t.Fatal(err)
 	}
 	out2 := filepath.Join(c.dir, "r2.json")
-	vgExit(t, 0, "compare", "--reference", refDir, "--evaluated", c.eval, "--plan", rp, "--json", out2, "-q")
+	vgExit(t, 0, "compare", "--reference", refDir, "--evaluated", c.eval, "--plan", rp, "--json", out2, "--no-structures", "-q")
 	r = readResultJSON(t, out2)
 	var warned []string
 	for _, w := range r.Warnings {
@@ -227,6 +227,6 @@ func TestComparePlanFolderAndMismatch(t *testing.T) {
 	if err := os.WriteFile(bad, []byte("not a plan"), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	res := vgExit(t, 1, "compare", "--reference", refDir, "--evaluated", c.eval, "--plan", bad, "-q")
+	res := vgExit(t, 1, "compare", "--reference", refDir, "--evaluated", c.eval, "--plan", bad, "--no-structures", "-q")
 	oneErrorLine(t, res, bad)
 }
