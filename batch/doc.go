@@ -8,7 +8,7 @@
 // # Case folders
 //
 // A case with id ID is written to OUT/cases/ID/: result.json, result.csv,
-// the optional gamma.dcm, difference.dcm and report.html, and status.json
+// the optional gamma.dcm, difference.dcm, report.html and report.pdf, and status.json
 // (see [Status]: the inputs with their SHA-256, the settings hash, the
 // verdict, the exit class, the error, the seconds). The folder is built in
 // OUT/cases/.ID.tmp-* and renamed into place when complete (a previous

@@ -142,6 +142,7 @@ type settingsKey struct {
 	GammaMap           bool               `json:"gamma_map"`
 	DifferenceMap      bool               `json:"difference_map"`
 	Report             bool               `json:"report"`
+	ReportPDF          bool               `json:"report_pdf,omitempty"`
 	Deidentify         bool               `json:"deidentify"`
 	AllowFrameMismatch bool               `json:"allow_frame_mismatch"`
 	NoStructures       bool               `json:"no_structures"`
@@ -163,7 +164,7 @@ func SettingsHash(p *protocol.Protocol, s analysis.Settings, o Outputs, allowFra
 		NormDose: s.Criteria.NormDose, NormDoseSource: s.NormDoseSource, ThresholdPercent: s.Criteria.ThresholdPercent,
 		Search: s.Criteria.Search, Method: s.Method.String(), Isodose: s.IsodosePercents, VDoses: s.VDoses,
 		SubGrid: s.SubGridROIs, SubGridStep: s.SubGridStep, MinClusterCC: s.MinClusterCC,
-		GammaMap: o.GammaMap, DifferenceMap: o.DifferenceMap, Report: o.Report, Deidentify: o.Deidentify,
+		GammaMap: o.GammaMap, DifferenceMap: o.DifferenceMap, Report: o.Report, ReportPDF: o.ReportPDF, Deidentify: o.Deidentify,
 		AllowFrameMismatch: allowFrameMismatch, NoStructures: s.Choices.NoStructures, AcceptNormDose: s.AcceptNormDose,
 	}
 	if o.Deidentify {

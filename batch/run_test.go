@@ -1,6 +1,7 @@
 package batch
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"os"
@@ -56,7 +57,7 @@ func TestBatchEndToEnd(t *testing.T) {
 	dir := t.TempDir()
 	manifest := writeStudy(t, dir, mixedStudy())
 	out1, out3 := filepath.Join(dir, "out1"), filepath.Join(dir, "out3")
-	rep1 := runBatch(t, context.Background(), manifest, Options{Out: out1, Jobs: 1, Outputs: Outputs{Report: true}})
+	rep1 := runBatch(t, context.Background(), manifest, Options{Out: out1, Jobs: 1, Outputs: Outputs{Report: true, ReportPDF: true}})
 	rep3 := runBatch(t, context.Background(), manifest, Options{Out: out3, Jobs: 3, Outputs: Outputs{Report: true}})
 
 	s := rep1.Summary
@@ -125,7 +126,15 @@ func TestBatchEndToEnd(t *testing.T) {
 			names = append(names, e.Name())
 		}
 		got := strings.Join(names, ",")
-		wantFiles := "report.html,result.csv,result.json,status.json"
+		wantFiles := "report.html,report.pdf,result.csv,result.json,status.json"
+		if v != "error" {
+			// The PDF is whole: its header and its end-of-file marker
+			// (ISO 32000-1, 7.5.2 and 7.5.5).
+			pdf, err := os.ReadFile(filepath.Join(dir, ReportPDFFile))
+			if err != nil || !bytes.HasPrefix(pdf, []byte("%PDF-")) || !bytes.HasSuffix(bytes.TrimSpace(pdf), []byte("%%EOF")) {
+				t.Errorf("%s: report.pdf is not a whole PDF (%v)", id, err)
+			}
+		}
 		if v == "error" {
 			wantFiles = "status.json"
 			if st.ExitClass != ExitError || st.Error == "" {

@@ -42,14 +42,16 @@ const (
 	DifferenceFile = "difference.dcm"
 	// ReportFile is the review page (with Outputs.Report).
 	ReportFile = "report.html"
+	// ReportPDFFile is the review as a PDF (with Outputs.ReportPDF).
+	ReportPDFFile = "report.pdf"
 )
 
 // Outputs are the optional outputs of every case; result.json and
 // result.csv are always written.
 type Outputs struct {
 	// GammaMap writes gamma.dcm, DifferenceMap difference.dcm (RT Dose),
-	// Report report.html.
-	GammaMap, DifferenceMap, Report bool
+	// Report report.html, ReportPDF report.pdf.
+	GammaMap, DifferenceMap, Report, ReportPDF bool
 	// Deidentify de-identifies every output, status and log line of the
 	// cases (see job.Write and package deid).
 	Deidentify bool
@@ -672,6 +674,9 @@ func compute(ctx context.Context, parent string, w caseWork, inputs []InputHash,
 	}
 	if w.outs.Report {
 		outs.Report = filepath.Join(tmp, ReportFile)
+	}
+	if w.outs.ReportPDF {
+		outs.ReportPDF = filepath.Join(tmp, ReportPDFFile)
 	}
 	res, cerr := protect(func() (*result.Result, error) {
 		if err := outs.Check([]string{c.Reference, c.Evaluated, c.Structures}, false); err != nil {

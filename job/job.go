@@ -250,14 +250,15 @@ func percents(v []float64) string {
 }
 
 // Outputs are the files one comparison writes; empty names are not written.
+// Report is the HTML review page, ReportPDF the same review as a PDF.
 type Outputs struct {
-	JSON, CSV, GammaMap, DifferenceMap, Report string
+	JSON, CSV, GammaMap, DifferenceMap, Report, ReportPDF string
 }
 
 // List returns the names of the outputs to write.
 func (o Outputs) List() []string {
 	var l []string
-	for _, p := range []string{o.JSON, o.CSV, o.GammaMap, o.DifferenceMap, o.Report} {
+	for _, p := range []string{o.JSON, o.CSV, o.GammaMap, o.DifferenceMap, o.Report, o.ReportPDF} {
 		if p != "" {
 			l = append(l, p)
 		}
@@ -471,19 +472,26 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 	if err := stage(o.DifferenceMap, func(p string) error { return writeMapAs(p, o.DifferenceMap, out.Difference, ids, diffOpt) }); err != nil {
 		return err
 	}
-	if err := stage(o.Report, func(p string) error {
-		page := report.Page{Result: r, Reference: out.Reference, Gamma: out.Gamma, Difference: out.Difference}
-		for _, reg := range out.Regions {
-			if len(reg.Centres) == 0 || reg.Number == 0 {
-				continue
+	var page *report.Page
+	reviewPage := func() report.Page {
+		if page == nil {
+			page = &report.Page{Result: r, Reference: out.Reference, Gamma: out.Gamma, Difference: out.Difference}
+			for _, reg := range out.Regions {
+				if len(reg.Centres) == 0 || reg.Number == 0 {
+					continue
+				}
+				page.ROIs = append(page.ROIs, report.PageROI{Name: scrub(reg.Name), Mask: reg.Mask()})
 			}
-			page.ROIs = append(page.ROIs, report.PageROI{Name: scrub(reg.Name), Mask: reg.Mask()})
+			if d == nil {
+				page.Generated = r.Run.Started
+			}
 		}
-		if d == nil {
-			page.Generated = r.Run.Started
-		}
-		return report.WriteHTML(p, page)
-	}); err != nil {
+		return *page
+	}
+	if err := stage(o.Report, func(p string) error { return report.WriteHTML(p, reviewPage()) }); err != nil {
+		return err
+	}
+	if err := stage(o.ReportPDF, func(p string) error { return report.WritePDF(p, reviewPage()) }); err != nil {
 		return err
 	}
 	for i, s := range done {

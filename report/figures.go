@@ -129,6 +129,15 @@ func attrEscape(s string) string {
 // histogramSVG draws a Γ histogram. The count axis is logarithmic, so
 // that a few failing voxels beside thousands of passing ones still show.
 func histogramSVG(h *gammaHistogram, title string) (string, error) {
+	p, err := histogramPlot(h, title)
+	if err != nil {
+		return "", err
+	}
+	return svgOf(p, 300, 190, title)
+}
+
+// histogramPlot makes the plot of histogramSVG.
+func histogramPlot(h *gammaHistogram, title string) (*plot.Plot, error) {
 	p := newPlot(title, "Γ", "voxels (log scale)")
 	var pass, fail []plotter.HistogramBin
 	maxCount := 0
@@ -152,7 +161,7 @@ func histogramSVG(h *gammaHistogram, title string) (string, error) {
 	bottom, top := 0.5, math.Max(10, float64(maxCount)*1.5)
 	limit, err := plotter.NewLine(plotter.XYs{{X: 1, Y: bottom}, {X: 1, Y: top}})
 	if err != nil {
-		return "", fmt.Errorf("histogram %q: %w", title, err)
+		return nil, fmt.Errorf("histogram %q: %w", title, err)
 	}
 	limit.LineStyle = draw.LineStyle{Color: color.Black, Width: vg.Points(0.8), Dashes: []vg.Length{vg.Points(3), vg.Points(2)}}
 	p.Add(limit)
@@ -160,7 +169,7 @@ func histogramSVG(h *gammaHistogram, title string) (string, error) {
 	p.Y.Min, p.Y.Max = bottom, top
 	p.Y.Scale = plot.LogScale{}
 	p.Y.Tick.Marker = plot.LogTicks{Prec: -1}
-	return svgOf(p, 300, 190, title)
+	return p, nil
 }
 
 // dvhSeries is one ROI's DVH curves with the colour they are drawn in.

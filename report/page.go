@@ -314,6 +314,19 @@ func buildModel(in Page) (*model, error) {
 		m.DefaultPanel = lay.id[lay.worst]
 	}
 
+	fillClusters(m, r)
+
+	if err := fillSlices(m, in, r, lay); err != nil {
+		return nil, err
+	}
+	if err := fillViewer(m, in, r, lay); err != nil {
+		return nil, err
+	}
+	return m, nil
+}
+
+// fillClusters lists the failing regions, the largest first.
+func fillClusters(m *model, r *result.Result) {
 	for i, c := range r.Clusters {
 		if i == maxClusterRows {
 			m.ClustersMore = len(r.Clusters) - i
@@ -330,14 +343,6 @@ func buildModel(in Page) (*model, error) {
 			Extent:   fixed(clusterExtent(c.VolumeCC), 1),
 		})
 	}
-
-	if err := fillSlices(m, in, r, lay); err != nil {
-		return nil, err
-	}
-	if err := fillViewer(m, in, r, lay); err != nil {
-		return nil, err
-	}
-	return m, nil
 }
 
 // checkPage checks that the grids and masks fit together.
@@ -530,12 +535,17 @@ func normOf(in Page, r *result.Result) (norm, greyMax float64, note string) {
 	return norm, greyMax, note
 }
 
-// sliceFigures returns the three orthogonal slice figures through centre.
-func sliceFigures(in Page, r *result.Result, lay *roiLayout, centre [3]float64) []*sliceFigure {
+// sliceFigures returns the three orthogonal slice figures through centre,
+// each cropped to a square window mm wide around it (0: the whole slice).
+func sliceFigures(in Page, r *result.Result, lay *roiLayout, centre [3]float64, window float64) []*sliceFigure {
 	norm, greyMax, _ := normOf(in, r)
 	var out []*sliceFigure
 	for _, v := range views {
 		s := extractSlice(in.Reference, v, centre)
+		if window > 0 {
+			across, down, _ := v.inPlane()
+			s = s.crop(centre[across], centre[down], window)
+		}
 		f := &sliceFigure{
 			Slice: s, Dose: s.values(in.Reference), Gamma: s.values(in.Gamma),
 			GreyMax: greyMax, NormDose: norm, Marker: centre, GammaCap: gammaCap(r.Criteria, in.Gamma),
@@ -561,7 +571,7 @@ func fillSlices(m *model, in Page, r *result.Result, lay *roiLayout) error {
 	norm, greyMax, normNote := normOf(in, r)
 	m.SliceCaption = caption + fmt.Sprintf(" Grey: reference dose, black 0 Gy to white %s Gy (the reference maximum). Γ > 1 in colour from pale orange (just above 1) to dark red (the search cap, Γ = %s); Γ ≤ 1 shows the dose. Dashed lines: isodoses in %% of %s, %s Gy. The ring marks the point the three slices go through; letters name the patient directions (R/L right/left, A/P anterior/posterior, S/I superior/inferior).",
 		fixed(greyMax, 2), fixed(gammaCap(r.Criteria, in.Gamma), 2), normNote, fixed(norm, 2))
-	for _, f := range sliceFigures(in, r, lay, centre) {
+	for _, f := range sliceFigures(in, r, lay, centre, 0) {
 		svg, err := sliceSVG(f)
 		if err != nil {
 			return err

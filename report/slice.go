@@ -265,3 +265,42 @@ func rasterAxis(edges []float64) []int {
 	}
 	return m
 }
+
+// crop returns the part of the slice whose pixel centres lie within half
+// of size (mm) of the point (across, down) on each axis, at least one
+// pixel each way; the slice itself when the window covers it.
+func (s *slice2D) crop(across, down, size float64) *slice2D {
+	pick := func(c []float64, at float64) (lo, hi int) {
+		lo, hi = -1, -1
+		for i, x := range c {
+			if math.Abs(x-at) <= size/2 {
+				if lo < 0 {
+					lo = i
+				}
+				hi = i + 1
+			}
+		}
+		if lo < 0 { // the point is off the slice: the nearest pixel
+			best := 0
+			for i, x := range c {
+				if math.Abs(x-at) < math.Abs(c[best]-at) {
+					best = i
+				}
+			}
+			lo, hi = best, best+1
+		}
+		return lo, hi
+	}
+	c0, c1 := pick(s.X, across)
+	r0, r1 := pick(s.Y, down)
+	if c0 == 0 && r0 == 0 && c1 == s.W && r1 == s.H {
+		return s
+	}
+	out := &slice2D{View: s.View, W: c1 - c0, H: r1 - r0, Plane: s.Plane, Index: s.Index,
+		X: s.X[c0:c1], Y: s.Y[r0:r1], XEdges: s.XEdges[c0 : c1+1], YEdges: s.YEdges[r0 : r1+1]}
+	out.Voxel = make([]int, 0, out.W*out.H)
+	for r := r0; r < r1; r++ {
+		out.Voxel = append(out.Voxel, s.Voxel[r*s.W+c0:r*s.W+c1]...)
+	}
+	return out
+}

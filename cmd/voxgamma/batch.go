@@ -30,6 +30,7 @@ type caseFlags struct {
 	gammaMap, diffMap, report, deid bool
 	rec                             recordFlags
 	siteKey                         string
+	reportPDF                       bool
 }
 
 func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
@@ -52,6 +53,7 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 	fl.BoolVar(&f.gammaMap, "gamma-map", false, "also write each case's Γ map as gamma.dcm (RT Dose)")
 	fl.BoolVar(&f.diffMap, "difference-map", false, "also write each case's dose difference map as difference.dcm (RT Dose)")
 	fl.BoolVar(&f.report, "report", false, "also write each case's review page as report.html")
+	fl.BoolVar(&f.reportPDF, "report-pdf", false, "also write each case's review as report.pdf (for the archive)")
 	fl.BoolVar(&f.deid, "deidentify", false, "de-identify every output, status, state and log line (DICOM PS3.15 Annex E intent): keyed pseudonyms for names and IDs, remapped UIDs, no dates, descriptions or input paths (docs/patient-data.md)")
 	deidFlags(cmd, &f.siteKey)
 	fl.IntVar(&f.workers, "workers", 0, "gamma worker goroutines per case (default: the cores divided among the cases run at once)")
@@ -59,7 +61,7 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 }
 
 func (f *caseFlags) outputs() batch.Outputs {
-	return batch.Outputs{GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.report, Deidentify: f.deid}
+	return batch.Outputs{GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.report, ReportPDF: f.reportPDF, Deidentify: f.deid}
 }
 
 // caseBar is stderr for a long run: log lines pass through, and on a
@@ -176,7 +178,7 @@ func newBatch(g *globals) *cobra.Command {
 		Short: "Compare many plans from a manifest, resumably, in parallel within a memory budget",
 		Long: `batch runs one comparison per row of a manifest and writes each case's outputs
 into DIR/cases/<id>/ (result.json, result.csv, status.json, and gamma.dcm,
-difference.dcm, report.html when asked), then a summary of every case in
+difference.dcm, report.html, report.pdf when asked), then a summary of every case in
 DIR/summary.csv and DIR/summary.json.
 
 The manifest is CSV with the header id,reference,evaluated,structures,protocol

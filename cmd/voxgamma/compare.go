@@ -26,6 +26,7 @@ type compareFlags struct {
 	plan                                              string
 	protocol                                          string
 	jsonOut, csvOut, gammaMap, diffMap, reportOut     string
+	reportPDF                                         string
 	allowFrameMismatch, force, deidentify             bool
 	maxMemory, siteKey                                string
 	rec                                               recordFlags
@@ -105,6 +106,7 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 	fl.StringVar(&f.gammaMap, "gamma-map", "", "write the Γ map: RT Dose when the name ends .dcm, MetaImage when .mha")
 	fl.StringVar(&f.diffMap, "difference-map", "", "write the dose difference map (evaluated − reference, Gy): .dcm or .mha")
 	fl.StringVar(&f.reportOut, "report", "", "write the review page (self-contained HTML) to this file")
+	fl.StringVar(&f.reportPDF, "report-pdf", "", "write the review as a paginated PDF (for the archive) to this file")
 	fl.IntVar(&f.workers, "workers", 0, "worker goroutines for the gamma search (default: all cores)")
 	fl.StringArrayVar(&f.kindRules, "kind", nil, `ROI kind rule PATTERN=KIND (target, oar, body, other), e.g. "PTV*=target"; a trailing ! overrides the file's RTROIInterpretedType (repeatable)`)
 	fl.Float64SliceVar(&f.isodose, "isodose", nil, "add isodose ROIs at these percentages of the normalisation dose, e.g. 50,80")
@@ -243,7 +245,7 @@ func settingsFrom(cmd *cobra.Command, f *compareFlags) (analysis.Settings, error
 }
 
 func (f *compareFlags) outputs() job.Outputs {
-	return job.Outputs{JSON: f.jsonOut, CSV: f.csvOut, GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.reportOut}
+	return job.Outputs{JSON: f.jsonOut, CSV: f.csvOut, GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.reportOut, ReportPDF: f.reportPDF}
 }
 
 // deidScope starts the de-identification when asked (see startDeid) and
@@ -272,8 +274,8 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 	if err != nil {
 		return nil, err
 	}
-	if f.referencePoints != "" && (f.gammaMap != "" || f.diffMap != "" || f.reportOut != "") {
-		return nil, errors.New("--gamma-map, --difference-map and --report need a reference grid, not --reference-points")
+	if f.referencePoints != "" && (f.gammaMap != "" || f.diffMap != "" || f.reportOut != "" || f.reportPDF != "") {
+		return nil, errors.New("--gamma-map, --difference-map, --report and --report-pdf need a reference grid, not --reference-points")
 	}
 	if f.reference == "" && f.referencePoints == "" {
 		return nil, errors.New("--reference (or --reference-points) is required")

@@ -23,7 +23,7 @@ three small targets, four organs at risk; a "planning system" dose and an
 "independent recalculation" with Monte Carlo-like noise, a 0.6 mm shift and a
 9 % dose error inside the smallest target), then compares them with the TG-218
 protocol and writes the JSON and CSV results, the gamma and difference maps
-(RT Dose and MetaImage) and the review page.
+(RT Dose and MetaImage) and the review page (HTML and PDF).
 
 It shows why per-ROI results matter: the overall pass rate passes while the
 smallest target fails. The case is invented; no patient data is involved.
@@ -49,7 +49,7 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 			out := job.Outputs{
 				JSON: filepath.Join(dir, "result.json"), CSV: filepath.Join(dir, "result.csv"),
 				GammaMap: filepath.Join(dir, "gamma.dcm"), DifferenceMap: filepath.Join(dir, "difference.dcm"),
-				Report: filepath.Join(dir, "report.html"),
+				Report: filepath.Join(dir, "report.html"), ReportPDF: filepath.Join(dir, "report.pdf"),
 			}
 			in := analysis.Inputs{Reference: files.Reference, Evaluated: files.Evaluated, Structures: files.Structures, Plan: files.Plan}
 			if err := out.Check([]string{files.Reference, files.Evaluated, files.Structures, files.Plan}, true); err != nil {
@@ -70,7 +70,7 @@ demo exits 0 when everything was computed and written, whatever the verdict.`,
 				return err
 			}
 			if !g.quiet {
-				fmt.Fprintf(g.stdout, "outputs: %s, %s, %s, %s, %s, %s\n", out.JSON, out.CSV, out.GammaMap, mha, out.DifferenceMap, out.Report)
+				fmt.Fprintf(g.stdout, "outputs: %s, %s, %s, %s, %s, %s, %s\n", out.JSON, out.CSV, out.GammaMap, mha, out.DifferenceMap, out.Report, out.ReportPDF)
 			}
 			g.outcome = "demo: " + verdictLine(o.Result) + " (exit 0: the demo ran completely, whatever its verdict)"
 			return nil

@@ -189,7 +189,7 @@ func TestSweep(t *testing.T) {
 func TestDemo(t *testing.T) {
 	dir := filepath.Join(t.TempDir(), "demo")
 	vgExit(t, exitPass, "demo", "--out", dir, "--quiet")
-	for _, name := range []string{"reference.dcm", "evaluated.dcm", "structures.dcm", "result.json", "result.csv", "gamma.dcm", "gamma.mha", "difference.dcm", "report.html"} {
+	for _, name := range []string{"reference.dcm", "evaluated.dcm", "structures.dcm", "plan.dcm", "result.json", "result.csv", "gamma.dcm", "gamma.mha", "difference.dcm", "report.html", "report.pdf"} {
 		st, err := os.Stat(filepath.Join(dir, name))
 		if err != nil || st.Size() == 0 {
 			t.Errorf("%s: %v (size %v)", name, err, st)

@@ -1,0 +1,905 @@
+package report
+
+import (
+	"bytes"
+	"fmt"
+	"image/color"
+	"io"
+	"math"
+	"strconv"
+	"strings"
+	"time"
+
+	"codeberg.org/go-fonts/liberation/liberationmonoregular"
+	"codeberg.org/go-fonts/liberation/liberationsansbold"
+	"codeberg.org/go-fonts/liberation/liberationsansregular"
+	"codeberg.org/go-pdf/fpdf"
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/vg"
+	"gonum.org/v1/plot/vg/draw"
+	"gonum.org/v1/plot/vg/vgimg"
+
+	"voxgamma/internal/atomicfile"
+	"voxgamma/result"
+)
+
+// The PDF review: the page's content for an archive (a record-and-verify
+// system or document store keeps a signed PDF), paginated A4, written with
+// codeberg.org/go-pdf/fpdf. Its fonts are Liberation Sans and Liberation
+// Mono (codeberg.org/go-fonts/liberation), embedded as subsets, so Γ, Δ and
+// ≥ print the same everywhere. Figures are the page's plots rendered to
+// PNG at figureDPI. Every number is formatted as the HTML page formats it,
+// from the same result.
+
+// figureDPI is the resolution of the figures in the PDF.
+const figureDPI = 200
+
+// maxPDFClusterSlices bounds the failing regions whose slices the PDF
+// shows (the largest first); the table lists up to maxClusterRows.
+const maxPDFClusterSlices = 5
+
+// PDF layout, in mm.
+const (
+	pdfMargin = 15.0
+	pdfLine   = 4.2
+)
+
+// Colours of the PDF's text marks.
+var (
+	pdfMet    = [3]int{23, 102, 58}
+	pdfNotMet = [3]int{163, 22, 27}
+	pdfMuted  = [3]int{85, 92, 99}
+	pdfInk    = [3]int{28, 30, 33}
+	pdfWarn   = [3]int{122, 78, 0}
+)
+
+// RenderPDF writes the review of in as a PDF to w. It returns an error, and
+// writes nothing, when the inputs disagree (see [RenderHTML]).
+func RenderPDF(w io.Writer, in Page) error {
+	d, err := buildPDF(in)
+	if err != nil {
+		return fmt.Errorf("report: PDF: %w", err)
+	}
+	if err := d.f.Output(w); err != nil {
+		return fmt.Errorf("report: PDF: %w", err)
+	}
+	return nil
+}
+
+// WritePDF writes the review (see [RenderPDF]) to the file at path,
+// atomically. The document is made before the file is opened.
+func WritePDF(path string, in Page) error {
+	d, err := buildPDF(in)
+	if err != nil {
+		return fmt.Errorf("report: PDF %s: %w", path, err)
+	}
+	if err := atomicfile.Write(path, func(w io.Writer) error { return d.f.Output(w) }); err != nil {
+		return fmt.Errorf("report: PDF: %w", err)
+	}
+	return nil
+}
+
+// pdfDoc is a PDF being written.
+type pdfDoc struct {
+	f    *fpdf.Fpdf
+	w    float64 // text width
+	imgs int
+	err  error
+}
+
+// buildPDF lays out the whole document.
+func buildPDF(in Page) (*pdfDoc, error) {
+	if err := checkPage(in); err != nil {
+		return nil, err
+	}
+	r := in.Result
+	m := &model{Caution: r.Caution, Version: r.Version, Schema: r.SchemaVersion, Generated: in.Generated, Warnings: r.Warnings, Notes: r.Notes}
+	if m.Caution == "" {
+		m.Caution = result.Caution
+	}
+	fillHeader(m, r)
+	fillClusters(m, r)
+	lay := layoutROIs(r, in.Reference, in.ROIs)
+	gcap := gammaCap(r.Criteria, in.Gamma)
+	overall, err := histogramOf(in.Gamma, nil, gcap)
+	if err != nil {
+		return nil, err
+	}
+	if overall.Total != r.Overall.Evaluated {
+		return nil, fmt.Errorf("the Γ grid has %d evaluated points but the result says %d: the grid and the result are not from the same comparison",
+			overall.Total, r.Overall.Evaluated)
+	}
+
+	f := fpdf.New("P", "mm", "A4", "")
+	d := &pdfDoc{f: f}
+	pw, _ := f.GetPageSize()
+	d.w = pw - 2*pdfMargin
+	f.SetMargins(pdfMargin, pdfMargin, pdfMargin)
+	f.SetCellMargin(0.8)
+	f.SetAutoPageBreak(true, pdfMargin+6)
+	f.AddUTF8FontFromBytes("sans", "", liberationsansregular.TTF)
+	f.AddUTF8FontFromBytes("sans", "B", liberationsansbold.TTF)
+	f.AddUTF8FontFromBytes("mono", "", liberationmonoregular.TTF)
+	f.SetTitle(m.Title, true)
+	f.SetSubject("Dose comparison review: "+r.Criteria.Label, true)
+	f.SetCreator("voxgamma "+r.Version, true)
+	f.SetProducer("voxgamma "+r.Version+" (codeberg.org/go-pdf/fpdf)", true)
+	f.SetLang("en")
+	// A PDF states a creation date; the run's start, or (de-identified
+	// reports carry no date) the Unix epoch.
+	when := time.Unix(0, 0).UTC()
+	if t, err := time.Parse(time.RFC3339, in.Generated); err == nil {
+		when = t.UTC()
+	}
+	f.SetCreationDate(when)
+	f.SetModificationDate(when)
+	f.AliasNbPages("{nb}")
+	ids := strings.Join(m.PatientIDs, ", ")
+	f.SetFooterFunc(func() {
+		f.SetY(-pdfMargin)
+		d.font("", 7)
+		d.color(pdfMuted)
+		left := "voxgamma " + r.Version + " · " + nonBlank(ids, "no patient ID") + " · " + r.Criteria.Label + " · verdict " + strings.ToUpper(nonBlank(r.Verdict, "none")) +
+			" · a verification aid: see the caution on page 1"
+		f.CellFormat(d.w-25, 4, pdfText(left), "T", 0, "L", false, 0, "")
+		f.CellFormat(25, 4, fmt.Sprintf("page %d of {nb}", f.PageNo()), "T", 0, "R", false, 0, "")
+	})
+
+	f.AddPage()
+	d.titleBlock(m, r)
+	d.identification(m)
+	d.inputs(m)
+	d.rules(m)
+	d.roiTable(r, lay)
+	d.clusters(m)
+	if err := d.figures(in, r, lay, overall, gcap); err != nil {
+		return nil, err
+	}
+	if err := d.slices(in, r, lay); err != nil {
+		return nil, err
+	}
+	d.plan(m.Plan)
+	d.messages(m)
+	d.protocol(m)
+	d.signOff()
+	if err := f.Error(); err != nil {
+		return nil, err
+	}
+	if d.err != nil {
+		return nil, d.err
+	}
+	return d, nil
+}
+
+// pdfFallback replaces the symbols the page uses that Liberation Sans has
+// no glyph for (the marks are also said in words).
+var pdfFallback = strings.NewReplacer("✔ ", "", "✘ ", "", "✔", "", "✘", "", "⚠ ", "", "⚠", "!")
+
+// pdfText is s as the PDF prints it.
+func pdfText(s string) string { return pdfFallback.Replace(s) }
+
+func (d *pdfDoc) font(style string, size float64) { d.f.SetFont("sans", style, size) }
+func (d *pdfDoc) mono(size float64)               { d.f.SetFont("mono", "", size) }
+func (d *pdfDoc) color(c [3]int)                  { d.f.SetTextColor(c[0], c[1], c[2]) }
+
+// heading starts a section (new page when little room is left) and adds
+// it to the document outline.
+func (d *pdfDoc) heading(text string, level int) {
+	f := d.f
+	_, ph := f.GetPageSize()
+	if f.GetY() > ph-pdfMargin-40 {
+		f.AddPage()
+	}
+	f.Ln(2)
+	f.Bookmark(text, level, -1)
+	size := 13.0
+	if level > 0 {
+		size = 11
+	}
+	d.font("B", size)
+	d.color(pdfInk)
+	f.CellFormat(d.w, size*0.5, pdfText(text), "", 1, "L", false, 0, "")
+	if level == 0 {
+		y := f.GetY()
+		f.SetDrawColor(28, 30, 33)
+		f.SetLineWidth(0.5)
+		f.Line(pdfMargin, y, pdfMargin+d.w, y)
+		f.SetLineWidth(0.2)
+	}
+	f.Ln(1.5)
+}
+
+// paragraph writes wrapped text.
+func (d *pdfDoc) paragraph(text string, size float64, c [3]int) {
+	d.font("", size)
+	d.color(c)
+	for _, line := range d.wrap(pdfText(text), d.w, false) {
+		d.f.CellFormat(d.w, size*0.45, line, "", 1, "L", false, 0, "")
+	}
+	d.f.Ln(1)
+}
+
+// wrap breaks text into lines no wider than w in the current font: at
+// spaces, or (path) only after "/" and "\" so that file paths break at
+// folder boundaries; a piece wider than the line is cut where it must.
+func (d *pdfDoc) wrap(text string, w float64, path bool) []string {
+	w -= 2 * d.f.GetCellMargin()
+	var out []string
+	for _, para := range strings.Split(text, "\n") {
+		var pieces []string
+		if path {
+			start := 0
+			for i, r := range para {
+				if r == '/' || r == '\\' {
+					pieces = append(pieces, para[start:i+1])
+					start = i + 1
+				}
+			}
+			pieces = append(pieces, para[start:])
+		} else {
+			words := strings.Split(para, " ")
+			for i, wd := range words {
+				if i < len(words)-1 {
+					wd += " "
+				}
+				pieces = append(pieces, wd)
+			}
+		}
+		line := ""
+		for _, p := range pieces {
+			if d.f.GetStringWidth(strings.TrimRight(line+p, " ")) <= w || line == "" {
+				line += p
+			} else {
+				out = append(out, strings.TrimRight(line, " "))
+				line = p
+			}
+			for d.f.GetStringWidth(strings.TrimRight(line, " ")) > w {
+				// A piece wider than the line: cut it.
+				rs := []rune(line)
+				k := len(rs) - 1
+				for k > 1 && d.f.GetStringWidth(string(rs[:k])) > w {
+					k--
+				}
+				out = append(out, string(rs[:k]))
+				line = string(rs[k:])
+			}
+		}
+		out = append(out, strings.TrimRight(line, " "))
+	}
+	return out
+}
+
+// pdfCell is a table cell: text, colour, bold, font (mono, path).
+type pdfCell struct {
+	Text  string
+	Color [3]int
+	Bold  bool
+	Mono  bool
+	Path  bool
+}
+
+func cell(s string) pdfCell { return pdfCell{Text: s, Color: pdfInk} }
+
+// table draws a table with a header row repeated on each page. Widths are
+// fractions of the text width; aligns "L" or "R".
+func (d *pdfDoc) table(headers []string, widths []float64, aligns string, rows [][]pdfCell, size float64) {
+	f := d.f
+	lh := size * 0.45
+	ws := make([]float64, len(widths))
+	for i, x := range widths {
+		ws[i] = x * d.w
+	}
+	_, ph := f.GetPageSize()
+	bottom := ph - pdfMargin - 6
+	header := func() {
+		if len(headers) == 0 {
+			return
+		}
+		d.font("B", size)
+		d.color(pdfInk)
+		f.SetFillColor(236, 239, 242)
+		hl := 1
+		lines := make([][]string, len(headers))
+		for i, h := range headers {
+			lines[i] = d.wrap(h, ws[i], false)
+			hl = max(hl, len(lines[i]))
+		}
+		x0, y0 := f.GetXY()
+		for i := range headers {
+			x := x0 + sum(ws[:i])
+			f.Rect(x, y0, ws[i], float64(hl)*lh+1.4, "FD")
+			for k, l := range lines[i] {
+				f.SetXY(x, y0+0.7+float64(k)*lh)
+				f.CellFormat(ws[i], lh, l, "", 0, string(aligns[i]), false, 0, "")
+			}
+		}
+		f.SetXY(x0, y0+float64(hl)*lh+1.4)
+	}
+	f.SetDrawColor(196, 202, 208)
+	f.SetLineWidth(0.2)
+	header()
+	for _, row := range rows {
+		// A row with fewer cells than columns: its last cell spans the
+		// rest.
+		rw := append([]float64(nil), ws[:len(row)]...)
+		rw[len(row)-1] = d.w - sum(ws[:len(row)-1])
+		lines := make([][]string, len(row))
+		n := 1
+		for i, c := range row {
+			switch {
+			case c.Mono:
+				d.mono(size - 0.5)
+			case c.Bold:
+				d.font("B", size)
+			default:
+				d.font("", size)
+			}
+			lines[i] = d.wrap(pdfText(c.Text), rw[i], c.Path)
+			n = max(n, len(lines[i]))
+		}
+		h := float64(n)*lh + 1.4
+		if f.GetY()+h > bottom {
+			f.AddPage()
+			header()
+		}
+		x0, y0 := f.GetXY()
+		for i, c := range row {
+			x := x0 + sum(rw[:i])
+			f.Rect(x, y0, rw[i], h, "D")
+			switch {
+			case c.Mono:
+				d.mono(size - 0.5)
+			case c.Bold:
+				d.font("B", size)
+			default:
+				d.font("", size)
+			}
+			d.color(c.Color)
+			for k, l := range lines[i] {
+				f.SetXY(x, y0+0.7+float64(k)*lh)
+				f.CellFormat(rw[i], lh, l, "", 0, string(aligns[i]), false, 0, "")
+			}
+		}
+		f.SetXY(x0, y0+h)
+	}
+	d.color(pdfInk)
+	f.Ln(2)
+}
+
+func sum(v []float64) float64 {
+	s := 0.0
+	for _, x := range v {
+		s += x
+	}
+	return s
+}
+
+// box writes text in a framed box (verdict, failures, caution).
+func (d *pdfDoc) box(title, text string, border, c [3]int, size float64) {
+	f := d.f
+	d.font("", size)
+	lines := d.wrap(pdfText(text), d.w-6, false)
+	h := float64(len(lines))*size*0.45 + 3
+	if title != "" {
+		h += size * 0.5
+	}
+	x, y := f.GetXY()
+	f.SetDrawColor(border[0], border[1], border[2])
+	f.SetLineWidth(0.5)
+	f.Rect(x, y, d.w, h, "D")
+	f.SetLineWidth(1.8)
+	f.Line(x+0.9, y, x+0.9, y+h)
+	f.SetLineWidth(0.2)
+	f.SetXY(x+3, y+1.5)
+	if title != "" {
+		d.font("B", size)
+		d.color(c)
+		f.CellFormat(d.w-6, size*0.5, pdfText(title), "", 2, "L", false, 0, "")
+	}
+	d.font("", size)
+	d.color(c)
+	for _, l := range lines {
+		f.SetX(x + 3)
+		f.CellFormat(d.w-6, size*0.45, l, "", 2, "L", false, 0, "")
+	}
+	f.SetXY(x, y+h+2)
+	d.color(pdfInk)
+}
+
+func (d *pdfDoc) titleBlock(m *model, r *result.Result) {
+	f := d.f
+	d.font("B", 17)
+	d.color(pdfInk)
+	f.CellFormat(d.w, 8, "Dose comparison review", "", 1, "L", false, 0, "")
+	sub := "voxgamma " + r.Version + ": volumetric gamma index (Low et al., Med Phys 25 (1998) 656) per structure"
+	if m.Generated != "" {
+		sub += " · " + m.Generated
+	}
+	d.paragraph(sub, 8.5, pdfMuted)
+	c := pdfInk
+	switch {
+	case m.VerdictKnown && m.VerdictPass:
+		c = pdfMet
+	case m.VerdictKnown:
+		c = pdfNotMet
+	}
+	d.font("B", 15)
+	d.color(c)
+	x, y := f.GetXY()
+	f.SetDrawColor(c[0], c[1], c[2])
+	f.SetLineWidth(0.8)
+	label := "Verdict: " + pdfText(m.Verdict)
+	bw := f.GetStringWidth(label) + 8
+	f.Rect(x, y, bw, 9, "D")
+	f.SetLineWidth(0.2)
+	f.CellFormat(bw, 9, label, "", 0, "C", false, 0, "")
+	d.font("", 10)
+	d.color(pdfInk)
+	f.CellFormat(d.w-bw, 9, "  "+m.VerdictOf, "", 1, "L", false, 0, "")
+	f.Ln(2)
+	if len(m.Failures) > 0 {
+		d.box("Rules not met (the tables and figures below start with these):", "NOT MET: "+strings.Join(m.Failures, "\nNOT MET: "), pdfNotMet, pdfNotMet, 9)
+	}
+	d.box("Caution.", m.Caution, pdfWarn, pdfInk, 9)
+}
+
+func (d *pdfDoc) identification(m *model) {
+	join := func(v []string, none string) string {
+		if len(v) == 0 {
+			return none
+		}
+		return strings.Join(v, "; ")
+	}
+	rows := [][]pdfCell{
+		{cell("Patient ID"), cell(join(m.PatientIDs, "not given"))},
+		{cell("Patient name"), cell(join(m.PatientNames, "not given"))},
+	}
+	if p := m.Plan; p != nil {
+		name := p.Label
+		if p.Name != "" {
+			name += ": " + p.Name
+		}
+		rows = append(rows,
+			[]pdfCell{cell("Plan"), {Text: name, Color: pdfInk, Bold: true}},
+			[]pdfCell{cell("Prescription"), cell(p.Prescription)},
+			[]pdfCell{cell("Fractions"), cell(p.Fractions)})
+	}
+	rows = append(rows,
+		[]pdfCell{cell("Frame of reference"), {Text: join(m.Frames, "not given"), Color: pdfInk, Mono: true}},
+		[]pdfCell{cell("Criteria"), cell(m.CriteriaLabel + ": " + strings.Join(m.CriteriaDetails, "; "))},
+		[]pdfCell{cell("Protocol"), cell(m.ProtocolName)},
+		[]pdfCell{cell("voxgamma version"), cell(m.Version + " (result schema " + m.Schema + ")")})
+	if m.Generated != "" {
+		rows = append(rows, []pdfCell{cell("Date"), cell(m.Generated)})
+	}
+	d.table(nil, []float64{0.2, 0.8}, "LL", rows, 8.5)
+}
+
+func (d *pdfDoc) inputs(m *model) {
+	d.heading("Input files", 1)
+	var rows [][]pdfCell
+	for _, in := range m.Inputs {
+		rows = append(rows, []pdfCell{cell(in.Role), {Text: htmlText(string(in.Path)), Color: pdfInk, Mono: true, Path: true},
+			cell(in.Modality), cell(in.Patient), cell(strings.TrimSpace(in.Dose + " " + in.Grid + " " + in.Description))})
+		rows = append(rows, []pdfCell{cell(""), {Text: "SHA-256 " + in.SHA256 + "\nframe of reference " + nonBlank(in.FrameOfReference, "not given"), Color: pdfInk, Mono: true}})
+	}
+	d.table([]string{"role", "file", "modality", "patient", "dose and grid"}, []float64{0.09, 0.38, 0.1, 0.15, 0.28}, "LLLLL", rows, 7.5)
+}
+
+// htmlText undoes the page's path markup (escapes and <wbr>).
+func htmlText(h string) string {
+	return strings.NewReplacer("<wbr>", "", "&lt;", "<", "&gt;", ">", "&#34;", `"`, "&#39;", "'", "&amp;", "&").Replace(h)
+}
+
+func outcomeColor(class string) [3]int {
+	switch class {
+	case "met":
+		return pdfMet
+	case "notmet":
+		return pdfNotMet
+	}
+	return pdfMuted
+}
+
+func (d *pdfDoc) rules(m *model) {
+	d.heading("Protocol rules", 0)
+	if len(m.Rules) == 0 {
+		d.paragraph("The result lists no protocol rules.", 9, pdfInk)
+		return
+	}
+	var rows [][]pdfCell
+	for _, r := range m.Rules {
+		remark := r.Reason
+		for _, c := range r.Conditions {
+			remark += "; under: " + c
+		}
+		rows = append(rows, []pdfCell{{Text: strings.ToUpper(pdfText(r.Mark)), Color: outcomeColor(r.Class), Bold: true}, cell(r.Rule), cell(r.Level), cell(r.Subject),
+			cell(r.Value), cell(r.Limit), cell(strings.TrimPrefix(remark, "; "))})
+	}
+	d.table([]string{"outcome", "rule", "level", "applied to", "measured", "limit", "remark"}, []float64{0.1, 0.28, 0.1, 0.13, 0.09, 0.06, 0.24}, "LLLLRRL", rows, 8)
+	d.paragraph("Rules not met first, then the others in the protocol's order.", 7.5, pdfMuted)
+}
+
+func (d *pdfDoc) roiTable(r *result.Result, lay *roiLayout) {
+	d.ensure(60)
+	d.heading("Results per ROI", 0)
+	rowOf := func(row roiRow) []pdfCell {
+		c := pdfInk
+		name := row.Name
+		if row.Failing {
+			c = pdfNotMet
+		}
+		var rules []string
+		for _, rm := range row.Rules {
+			rules = append(rules, pdfText(rm.Mark)+": "+rm.Text)
+		}
+		status := row.Status
+		if row.AlsoAs != "" {
+			status += "; also reported as " + row.AlsoAs + ", with the same numbers"
+		}
+		return []pdfCell{{Text: name, Color: c, Bold: row.Failing}, cell(row.Kind), cell(row.VolumeCC), cell(row.Evaluated), {Text: row.PassRate, Color: c, Bold: row.Failing},
+			cell(row.GammaMean), cell(row.GammaP95), cell(row.GammaMax), cell(row.DMean), cell(row.D95), cell(row.D2), cell(strings.Join(nonEmpty(append([]string{status}, rules...)...), "\n"))}
+	}
+	rows := [][]pdfCell{rowOf(overallRow(r))}
+	for _, i := range lay.order {
+		rows = append(rows, rowOf(roiTableRow(r, i, lay)))
+	}
+	d.table([]string{"ROI", "kind", "volume (cc)", "evaluated points", "pass rate (%)", "mean Γ", "P95 Γ", "max Γ", "ΔDmean (%)", "ΔD95 (%)", "ΔD2 (%)", "status and rules"},
+		[]float64{0.11, 0.09, 0.065, 0.075, 0.065, 0.055, 0.05, 0.05, 0.07, 0.06, 0.055, 0.255}, "LLRRRRRRRRRL", rows, 7)
+	d.paragraph("ROIs with a rule not met (in red, their rules marked \"not met\") first (the most serious level first, then the lowest pass rate), then the others in the structure set's order. Pass rate: points with Γ ≤ 1 over evaluated points, rounded down to one decimal (never shown as 100.0 unless every point passed). ΔD: evaluated minus reference in % of the reference value of the metric (ICRU Report 83: D95, minimum dose to the hottest 95 % of the ROI; D2, to the hottest 2 %).", 7.5, pdfMuted)
+}
+
+func (d *pdfDoc) clusters(m *model) {
+	d.heading("Failing regions", 0)
+	if len(m.Clusters) == 0 {
+		d.paragraph("No connected region of failing points (Γ > 1).", 9, pdfInk)
+		return
+	}
+	var rows [][]pdfCell
+	for _, c := range m.Clusters {
+		rows = append(rows, []pdfCell{cell(strconv.Itoa(c.Number)), cell(c.VolumeCC), cell(c.Voxels), cell(c.Centroid), cell(c.GammaMax), cell(c.ROIs)})
+	}
+	d.table([]string{"#", "volume (cc)", "voxels", "centroid x, y, z (mm)", "max Γ", "ROIs touched"}, []float64{0.05, 0.12, 0.1, 0.25, 0.1, 0.38}, "RRRRRL", rows, 8)
+	if m.ClustersMore > 0 {
+		d.paragraph(fmt.Sprintf("%d smaller regions are not listed here; the JSON result lists them all.", m.ClustersMore), 8, pdfMuted)
+	}
+}
+
+// image places a plot rendered to PNG, w×h mm, at the current position
+// (starting a new page when it does not fit), then moves right by w+gap
+// or, with newline, down below it.
+func (d *pdfDoc) image(p *plot.Plot, w, h float64, x, y float64) error {
+	c := vgimg.NewWith(vgimg.UseWH(vg.Length(w)*vg.Millimeter, vg.Length(h)*vg.Millimeter), vgimg.UseDPI(figureDPI), vgimg.UseBackgroundColor(color.White))
+	if err := drawPlot(p, c); err != nil {
+		return err
+	}
+	var buf bytes.Buffer
+	if _, err := (vgimg.PngCanvas{Canvas: c}).WriteTo(&buf); err != nil {
+		return err
+	}
+	d.imgs++
+	name := "fig" + strconv.Itoa(d.imgs)
+	opt := fpdf.ImageOptions{ImageType: "PNG"}
+	d.f.RegisterImageOptionsReader(name, opt, &buf)
+	d.f.ImageOptions(name, x, y, w, h, false, opt, 0, "")
+	return d.f.Error()
+}
+
+// drawPlot draws p, turning a panic of the plotting library into an error.
+func drawPlot(p *plot.Plot, c *vgimg.Canvas) (err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			err = fmt.Errorf("drawing %q: %v", p.Title.Text, r)
+		}
+	}()
+	p.Draw(draw.New(c))
+	return nil
+}
+
+// ensure starts a new page unless h mm are left.
+func (d *pdfDoc) ensure(h float64) {
+	_, ph := d.f.GetPageSize()
+	if d.f.GetY()+h > ph-pdfMargin-6 {
+		d.f.AddPage()
+	}
+}
+
+// figures: the overall Γ histogram and every ROI's Γ histogram and DVH.
+func (d *pdfDoc) figures(in Page, r *result.Result, lay *roiLayout, overall *gammaHistogram, gcap float64) error {
+	const fw, fh = 88.0, 56.0
+	d.ensure(fh + 30)
+	d.heading("Γ distribution and dose-volume histograms", 0)
+	if overall.Total > 0 {
+		p, err := histogramPlot(overall, "Γ histogram: all evaluated points")
+		if err != nil {
+			return err
+		}
+		d.ensure(fh + 12)
+		y := d.f.GetY()
+		if err := d.image(p, fw, fh, pdfMargin, y); err != nil {
+			return err
+		}
+		d.f.SetXY(pdfMargin+fw+4, y+4)
+		d.font("", 7.5)
+		d.color(pdfMuted)
+		d.f.MultiCell(d.w-fw-4, 3.4, histogramCaption(overall, gcap, r.Overall.Capped), "", "L", false)
+		d.f.SetXY(pdfMargin, y+fh+2)
+	}
+	d.paragraph("Per ROI, in the table's order: Γ histogram (left) and cumulative DVH (right), reference solid, evaluated dashed, in the ROI's colour.", 8, pdfMuted)
+	for _, i := range lay.order {
+		roi := r.ROIs[i]
+		d.ensure(fh + 8)
+		d.font("B", 9)
+		c := pdfInk
+		label := roi.Name
+		if lay.failing[i] {
+			c, label = pdfNotMet, "NOT MET: "+roi.Name
+		}
+		d.color(c)
+		d.f.CellFormat(d.w, 5, label, "", 1, "L", false, 0, "")
+		y := d.f.GetY()
+		drew, hist := false, false
+		if pr := lay.mask[i]; pr != nil {
+			h, err := histogramOf(in.Gamma, pr.Mask, gcap)
+			if err != nil {
+				return err
+			}
+			if h.Total > 0 {
+				p, err := histogramPlot(h, "Γ histogram: "+roi.Name)
+				if err != nil {
+					return err
+				}
+				if err := d.image(p, fw, fh, pdfMargin, y); err != nil {
+					return err
+				}
+				drew, hist = true, true
+			}
+		}
+		if roi.DVH != nil && checkCurves(roi.DVH.Curves) == nil {
+			p, err := dvhPlot([]dvhSeries{{Name: roi.Name, Color: lay.color[i], Curves: roi.DVH.Curves}}, "Cumulative DVH: "+roi.Name, false)
+			if err != nil {
+				return err
+			}
+			if err := d.image(p, fw, fh, pdfMargin+fw+4, y); err != nil {
+				return err
+			}
+			drew = true
+		}
+		if drew && !hist {
+			d.f.SetXY(pdfMargin+4, y+fh/2-4)
+			d.font("", 8)
+			d.color(pdfMuted)
+			why := "No mask of this ROI is drawn (a derived ROI): no Γ histogram; its numbers are in the table."
+			if lay.mask[i] != nil {
+				why = "No voxel of this ROI has a Γ (status: " + statusText(roi) + ")."
+			}
+			d.f.MultiCell(fw-8, 3.6, why, "", "L", false)
+		}
+		if drew {
+			d.f.SetXY(pdfMargin, y+fh+2)
+		} else {
+			d.paragraph("No Γ and no DVH for this ROI (status: "+statusText(roi)+").", 8, pdfMuted)
+		}
+	}
+	return nil
+}
+
+// sliceSet is one row of three slices in the PDF, cropped to a window mm
+// wide around the centre (0: the whole slice).
+type sliceSet struct {
+	title  string
+	centre [3]float64
+	window float64
+}
+
+// sliceWindow is the width (mm) of the slices around a region extent mm
+// across: room for the region and its surroundings, at least 60 mm.
+func sliceWindow(extent float64) float64 { return math.Max(60, 2.5*extent) }
+
+// slices: the three views through each failing region (the largest
+// first) and through each target.
+func (d *pdfDoc) slices(in Page, r *result.Result, lay *roiLayout) error {
+	d.ensure(110)
+	d.heading("Slices through the failing regions and the targets", 0)
+	norm, greyMax, normNote := normOf(in, r)
+	d.paragraph(fmt.Sprintf("Grey: reference dose, black 0 Gy to white %s Gy. Γ > 1 in colour from pale orange (just above 1) to dark red (the search cap, Γ = %s); Γ ≤ 1 shows the dose. Dashed lines: isodoses of 20, 50, 80 and 95 %% of %s (%s Gy). Outlines: the ROIs in their colours. The ring marks the point the three slices go through; letters name the patient directions (R/L, A/P, S/I). Axial seen from the feet, coronal from the front, sagittal from the patient's left.",
+		fixed(greyMax, 2), fixed(gammaCap(r.Criteria, in.Gamma), 2), normNote, fixed(norm, 2)), 7.5, pdfMuted)
+	var sets []sliceSet
+	for i, c := range r.Clusters {
+		if i == maxPDFClusterSlices {
+			break
+		}
+		sets = append(sets, sliceSet{fmt.Sprintf("Failing region %d: centroid %s mm, %s cc, maximum Γ %s, touching %s", i+1, mm3(c.CentroidMM), cc(c.VolumeCC), fixed(c.GammaMax, 2), nonBlank(strings.Join(c.ROIs, ", "), "no ROI")),
+			c.CentroidMM, sliceWindow(clusterExtent(c.VolumeCC))})
+	}
+	for _, i := range lay.order {
+		roi := r.ROIs[i]
+		if roi.Kind != "target" || roi.Source != "structure set" {
+			continue
+		}
+		g, ok := lay.goTo[i]
+		if !ok {
+			continue
+		}
+		what := "its centre"
+		if roi.WorstCentroidMM != nil {
+			what = "the centroid of its failing voxels"
+		}
+		ext := g.extent
+		if pr := lay.mask[i]; pr != nil {
+			if _, e, ok := maskCentre(in.Reference, pr.Mask); ok {
+				ext = math.Max(ext, e)
+			}
+		}
+		sets = append(sets, sliceSet{fmt.Sprintf("Target %s: through %s, %s mm; %s mm wide", roi.Name, what, mm3(g.at), fixed(sliceWindow(ext), 0)), g.at, sliceWindow(ext)})
+	}
+	if len(sets) == 0 {
+		c, caption := sliceCentre(in, r)
+		sets = append(sets, sliceSet{caption, c, 0})
+	}
+	const gap = 3.0
+	for _, s := range sets {
+		figs := sliceFigures(in, r, lay, s.centre, s.window)
+		w := (d.w - 2*gap) / 3
+		h := 0.0
+		type sized struct {
+			p    *plot.Plot
+			w, h float64
+		}
+		var plots []sized
+		for _, f := range figs {
+			p, pw, ph := slicePlot(f, vg.Length(w)*vg.Millimeter, vg.Length(w*1.15)*vg.Millimeter)
+			plots = append(plots, sized{p, float64(pw / vg.Millimeter), float64(ph / vg.Millimeter)})
+			h = math.Max(h, float64(ph/vg.Millimeter))
+		}
+		d.ensure(h + 12)
+		d.font("B", 8.5)
+		d.color(pdfInk)
+		for _, l := range d.wrap(s.title, d.w, false) {
+			d.f.CellFormat(d.w, 4, l, "", 1, "L", false, 0, "")
+		}
+		y := d.f.GetY()
+		for k, p := range plots {
+			if err := d.image(p.p, p.w, p.h, pdfMargin+float64(k)*(w+gap), y); err != nil {
+				return err
+			}
+		}
+		d.f.SetXY(pdfMargin, y+h+3)
+	}
+	d.colourBar(gammaCap(r.Criteria, in.Gamma))
+	return nil
+}
+
+// colourBar draws the Γ colour scale with its ends named.
+func (d *pdfDoc) colourBar(gcap float64) {
+	f := d.f
+	d.ensure(10)
+	x, y := f.GetXY()
+	const bw, bh = 60.0, 3.5
+	steps := 60
+	for k := 0; k < steps; k++ {
+		c := scale(gammaClasses, (float64(k)+0.5)/float64(steps))
+		f.SetFillColor(int(c.R), int(c.G), int(c.B))
+		f.Rect(x+bw*float64(k)/float64(steps), y, bw/float64(steps)+0.05, bh, "F")
+	}
+	f.SetDrawColor(68, 68, 68)
+	f.Rect(x, y, bw, bh, "D")
+	f.SetXY(x+bw+2, y-0.3)
+	d.font("", 7.5)
+	d.color(pdfInk)
+	f.CellFormat(d.w-bw-2, 4, "Γ from 1 (left) to "+fixed(gcap, 2)+", the search cap (right); Γ ≤ 1 not coloured", "", 1, "L", false, 0, "")
+	f.Ln(2)
+}
+
+func (d *pdfDoc) plan(p *planView) {
+	if p == nil {
+		return
+	}
+	d.heading("Plan", 0)
+	rows := [][]pdfCell{{cell("Label"), cell(p.Label)}}
+	for _, kv := range [][2]string{{"Name", p.Name}, {"Description", p.Description}, {"Intent", p.Intent}, {"Approval", p.Approval},
+		{"Prescription", p.Prescription}, {"Fractions planned", p.Fractions}, {"Reference dose", p.ReferenceDose}, {"Found", p.Source}} {
+		if kv[1] != "" {
+			c := cell(kv[1])
+			if kv[0] == "Reference dose" && !p.Matches {
+				c.Color = pdfNotMet
+			}
+			rows = append(rows, []pdfCell{cell(kv[0]), c})
+		}
+	}
+	d.table(nil, []float64{0.2, 0.8}, "LL", rows, 8.5)
+	if len(p.Beams) > 0 {
+		var br [][]pdfCell
+		for _, b := range p.Beams {
+			br = append(br, []pdfCell{cell(b.Number), cell(b.Name), cell(b.Type), cell(b.Radiation), cell(b.Delivery), cell(b.Machine), cell(b.Energy), cell(b.Gantry), cell(b.Meterset), cell(b.Group)})
+		}
+		d.table([]string{"beam", "name", "type", "radiation", "delivery", "machine", "energy", "gantry (°)", "meterset per fraction", "fraction group"},
+			[]float64{0.06, 0.17, 0.09, 0.1, 0.11, 0.13, 0.07, 0.08, 0.12, 0.07}, "RLLLLLRRRR", br, 7.5)
+	}
+	d.paragraph("From the RT Plan: context for the review. The plan changes no number of the comparison.", 7.5, pdfMuted)
+}
+
+func (d *pdfDoc) messages(m *model) {
+	d.heading("Warnings and notes", 0)
+	list := func(title string, items []string, none string, c [3]int) {
+		d.heading(title, 1)
+		if len(items) == 0 {
+			d.paragraph(none, 8.5, pdfInk)
+			return
+		}
+		for _, it := range items {
+			d.paragraph("• "+it, 8.5, c)
+		}
+	}
+	list("Warnings", m.Warnings, "None.", pdfWarn)
+	list("Not evaluated", m.NotEvaluated, "Nothing: every reference point at or above the threshold was evaluated, and so was every ROI.", pdfInk)
+	list("Notes", m.Notes, "None.", pdfInk)
+}
+
+func (d *pdfDoc) protocol(m *model) {
+	if len(m.ProtocolLines) == 0 {
+		return
+	}
+	d.heading("Protocol in full", 0)
+	for _, l := range m.ProtocolLines {
+		text := l.Key
+		if l.Value != "" {
+			if l.Key != "" {
+				if l.Item {
+					text += " "
+				} else {
+					text += ": "
+				}
+			}
+			text += l.Value
+		}
+		if l.Note != "" {
+			text += " (" + l.Note + ")"
+		}
+		indent := 5 * float64(l.Depth)
+		d.mono(7.5)
+		d.color(pdfInk)
+		for _, line := range d.wrap(text, d.w-indent, false) {
+			d.f.SetX(pdfMargin + indent)
+			d.f.CellFormat(d.w-indent, 3.4, line, "", 1, "L", false, 0, "")
+		}
+	}
+	d.paragraph("Values the protocol leaves to their default are shown as applied.", 7.5, pdfMuted)
+}
+
+// signOff draws the block a reviewer fills in by hand, kept on one page.
+func (d *pdfDoc) signOff() {
+	f := d.f
+	d.ensure(75)
+	d.heading("Review and sign-off", 0)
+	line := func(label string, h float64) {
+		d.font("", 9.5)
+		d.color(pdfInk)
+		x, y := f.GetXY()
+		f.CellFormat(30, h, label, "", 0, "L", false, 0, "")
+		f.SetDrawColor(28, 30, 33)
+		f.Line(x+30, y+h-1, x+d.w, y+h-1)
+		f.SetXY(x, y+h+1)
+	}
+	line("Reviewer", 9)
+	// Decision: three boxes to tick.
+	d.font("", 9.5)
+	x, y := f.GetXY()
+	f.CellFormat(30, 9, "Decision", "", 0, "L", false, 0, "")
+	cx := x + 30
+	for _, opt := range []string{"accepted", "accepted with remarks", "not accepted: investigate or re-plan"} {
+		f.Rect(cx, y+2.5, 3.8, 3.8, "D")
+		f.SetXY(cx+5, y)
+		f.CellFormat(f.GetStringWidth(opt)+2, 9, opt, "", 0, "L", false, 0, "")
+		cx += 5 + f.GetStringWidth(opt) + 8
+	}
+	f.SetXY(x, y+10)
+	line("Date", 9)
+	d.font("", 9.5)
+	x, y = f.GetXY()
+	f.CellFormat(30, 6, "Comment", "", 0, "L", false, 0, "")
+	f.Rect(x+30, y, d.w-30, 24, "D")
+	f.SetXY(x, y+26)
+	line("Signature", 12)
+	d.paragraph("Filled in by the reviewer. voxgamma stores nothing of it.", 7.5, pdfMuted)
+}
