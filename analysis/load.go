@@ -247,7 +247,7 @@ func (in Inputs) resolveDose(seenRole, path string, opt dicomio.ChooseOptions) (
 		in.seen("", s.Path, nil, s.Set)
 	}
 	for _, p := range folder.Plans {
-		in.seen("", p.Path, planSeen(p.Plan), nil)
+		in.seen("", p.Path, PlanSeen(p.Plan), nil)
 	}
 	for _, ig := range folder.Ignored {
 		in.seen("", ig.Path, nil, nil)
@@ -262,7 +262,7 @@ func (in Inputs) resolveDose(seenRole, path string, opt dicomio.ChooseOptions) (
 	}
 	if choice.Plan != nil {
 		plan = choice.Plan.Path
-		in.seen("plan", plan, planSeen(choice.Plan.Plan), nil)
+		in.seen("plan", plan, PlanSeen(choice.Plan.Plan), nil)
 	}
 	in.seen(seenRole, choice.Dose.Path, choice.Dose.Info, nil)
 	return choice.Dose.Path, structures, plan, choice.Account, nil
@@ -276,7 +276,7 @@ func (l *Loaded) loadPlan(in Inputs, path, source string) error {
 	if err != nil {
 		return fmt.Errorf("%w: %w", ErrBadInput, err)
 	}
-	in.seen("plan", path, planSeen(p), nil)
+	in.seen("plan", path, PlanSeen(p), nil)
 	sum, err := fileSHA256(path)
 	if err != nil {
 		return badInput("reading %s: %v", path, err)
@@ -310,12 +310,12 @@ func (l *Loaded) loadPlan(in Inputs, path, source string) error {
 	return nil
 }
 
-// planSeen is what an RT Plan identifies, in the form Inputs.Seen takes
+// PlanSeen is what an RT Plan identifies, in the form Inputs.Seen takes
 // (a dose header): the patient, study and frame of reference identifiers,
 // the plan's instance and series UIDs, and its label and name as the free
 // text a de-identification removes (as it removes a dose's series
 // description and comment).
-func planSeen(p *dicomio.Plan) *dicomio.DoseInfo {
+func PlanSeen(p *dicomio.Plan) *dicomio.DoseInfo {
 	return &dicomio.DoseInfo{Identifiers: p.Identifiers, SOPInstanceUID: p.SOPInstanceUID, SeriesInstanceUID: p.SeriesInstanceUID,
 		SeriesDescription: p.Label, DoseComment: p.Name}
 }

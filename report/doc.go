@@ -19,10 +19,20 @@
 //   - [WriteHTML] / [RenderHTML]: the review page, one file that opens
 //     offline in any browser. It fetches nothing: figures are inline SVG
 //     (drawn with gonum.org/v1/plot), raster slices are data: PNG inside the
-//     SVG, styles and the few lines of script are inline, and a
-//     Content-Security-Policy forbids any other source. The script only
-//     switches which ROI's figures are shown; with scripts disabled every
-//     figure is shown.
+//     SVG, styles are inline, the one script (viewer.js) is allowed by its
+//     SHA-256 hash in a Content-Security-Policy that forbids any other
+//     source, and the slice browser's volumes are zlib-compressed data
+//     blocks (see viewer.go for their encoding and when they are
+//     downsampled). The script shows one ROI's figures at a time (the
+//     worst ROI's first) and runs the slice browser: three orthogonal views
+//     stepping through every slice, zoom, pan, and overlays of the
+//     reference dose, isodoses, ROI outlines, Γ and the dose difference.
+//     With scripts disabled every figure shows, with fixed slices through
+//     the largest failing region.
+//   - [WritePDF] / [RenderPDF]: the same review as a paginated A4 PDF for
+//     the archive (codeberg.org/go-pdf/fpdf, Liberation fonts embedded),
+//     with slices through each failing region and each target and a
+//     sign-off block.
 //
 // Files are written atomically (see internal/atomicfile): a reader never sees
 // a half-written report.
@@ -38,6 +48,17 @@
 // (anterior on the left, superior at the top). Letters at the image edges name
 // the patient directions.
 //
-// Met and not-met rules, pass and fail are always marked by a word and a
-// symbol as well as by colour.
+// Met, not-met and not-applicable rules, pass and fail are always marked
+// by a word (and on the page a symbol) as well as by colour. Failures lead:
+// rules not met first, then the ROIs with a rule not met (action level
+// before tolerance, then the lowest pass rate). ROIs are coloured with
+// Kelly's colours of maximum contrast (palette.go), Γ, the dose difference
+// and the dose wash with ColorBrewer scales. A derived ROI with the numbers
+// of a structure-set ROI (the derived "body" of one BODY) shares its row.
+// Person names are shown "Family, Given"; file paths break only at
+// separators.
+//
+// The headless-browser checks live in report/browsercheck: a static check
+// of a page (figures, console, requests, with and without scripts) and a
+// Session that drives a page over the DevTools protocol.
 package report

@@ -473,13 +473,16 @@
     if (b[0].length !== 2 * total || b[1].length !== total || b[2].length !== total) {
       throw new Error("the embedded volumes do not have the stated size");
     }
-    codes = new Uint16Array(total);
-    var dv = new DataView(b[0].buffer, b[0].byteOffset, b[0].byteLength);
-    for (var row = 0; row < N[1] * N[2]; row++) {
+    // Each x-run holds differences from the previous value (mod 2^16):
+    // add them up in place (the data are little endian, as every browser's
+    // typed arrays are on the machines that run them; checked below).
+    var probe = new Uint8Array(new Uint16Array([1]).buffer);
+    if (probe[0] !== 1) { throw new Error("this machine is big-endian"); }
+    codes = new Uint16Array(b[0].buffer, b[0].byteOffset, total);
+    for (var row = 0, i = 0; row < N[1] * N[2]; row++) {
       var prev = 0;
-      for (var x = 0; x < NX; x++) {
-        var i = row * NX + x;
-        prev = (prev + dv.getUint16(2 * i, true)) & 0xffff;
+      for (var x = 0; x < NX; x++, i++) {
+        prev = (prev + codes[i]) & 0xffff;
         codes[i] = prev;
       }
     }

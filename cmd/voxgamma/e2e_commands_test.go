@@ -42,8 +42,22 @@ func TestInspect(t *testing.T) {
 			t.Errorf("inspect structures: no %q in\n%s", want, r.stdout)
 		}
 	}
+	rx, ms := 18.0, 612.5
+	plan := &dicomio.Plan{Label: "SRS_1", Name: "one met",
+		DoseReferences: []dicomio.DoseReference{{Number: 1, Type: "TARGET", Description: "PTV_Met", TargetPrescriptionGy: &rx}},
+		Beams:          []dicomio.Beam{{Number: 1, Name: "Arc A"}},
+		FractionGroups: []dicomio.FractionGroup{{Number: 1, FractionsPlanned: 3, Beams: []dicomio.ReferencedBeam{{BeamNumber: 1, Meterset: &ms}}}}}
+	if _, err := dicomio.WritePlan(filepath.Join(dir, "RP_plan.dcm"), plan, ids); err != nil {
+		t.Fatal(err)
+	}
+	r = vgExit(t, exitPass, "inspect", filepath.Join(dir, "RP_plan.dcm"))
+	for _, want := range []string{`RT Plan "SRS_1" (one met)`, "prescription 18 Gy; PTV_Met 18 Gy", "fraction group 1: 3 fractions, beams 1 (612.5)", `beam 1 "Arc A"`} {
+		if !strings.Contains(r.stdout, want) {
+			t.Errorf("inspect plan: no %q in\n%s", want, r.stdout)
+		}
+	}
 	r = vgExit(t, exitPass, "inspect", dir)
-	for _, want := range []string{"folder with 1 RT Dose and 1 RT Structure Set files", "RD_plan.dcm", "RS_plan.dcm", "12×10×8", "would use:"} {
+	for _, want := range []string{"folder with 1 RT Dose, 1 RT Structure Set and 1 RT Plan files", "RD_plan.dcm", "RS_plan.dcm", "12×10×8", "would use:", `chose plan RP_plan.dcm: label "SRS_1"`} {
 		if !strings.Contains(r.stdout, want) {
 			t.Errorf("inspect folder: no %q in\n%s", want, r.stdout)
 		}

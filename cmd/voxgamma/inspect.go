@@ -8,6 +8,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"voxgamma/analysis"
 	"voxgamma/batch"
 	"voxgamma/dicomio"
 	"voxgamma/roi"
@@ -20,11 +21,11 @@ func newInspect(g *globals) *cobra.Command {
 	var siteKey, maxMemory string
 	cmd := &cobra.Command{
 		Use:   "inspect PATH...",
-		Short: "Describe RT Dose and RT Structure Set files or folders",
+		Short: "Describe RT Dose, RT Structure Set and RT Plan files or folders",
 		Long: `inspect says what is in each file or folder: for a dose, the grid, spacing,
 extent, units, summation type and frame of reference; for a structure set, the
-ROIs with their kinds and contour counts; for a folder, which files voxgamma
-would choose and why. Problems found are listed; the exit status is 1 when a
+ROIs with their kinds and contour counts; for a plan, its label, prescription,
+fractions and beams; for a folder, which files voxgamma would choose and why. Problems found are listed; the exit status is 1 when a
 path could not be read.
 
 A dose's header is read, not its values, whatever the grid's size: --values
@@ -97,10 +98,13 @@ func inspectPath(g *globals, path string, rules []roi.Rule, values bool, maxMemo
 		for _, s := range folder.StructureSets {
 			g.seen("", s.Path, nil, s.Set)
 		}
+		for _, p := range folder.Plans {
+			g.seen("", p.Path, analysis.PlanSeen(p.Plan), nil)
+		}
 		for _, ig := range folder.Ignored {
 			g.seen("", ig.Path, nil, nil)
 		}
-		fmt.Fprintf(w, "%s: folder with %d RT Dose and %d RT Structure Set files\n", path, len(folder.Doses), len(folder.StructureSets))
+		fmt.Fprintf(w, "%s: folder with %d RT Dose, %d RT Structure Set and %d RT Plan files\n", path, len(folder.Doses), len(folder.StructureSets), len(folder.Plans))
 		for _, d := range folder.Doses {
 			kind := "dose"
 			if d.Info.DisagreementMap() != "" {
@@ -111,6 +115,9 @@ func inspectPath(g *globals, path string, rules []roi.Rule, values bool, maxMemo
 		}
 		for _, s := range folder.StructureSets {
 			fmt.Fprintf(w, "  structures %s\n", s.Path)
+		}
+		for _, p := range folder.Plans {
+			fmt.Fprintf(w, "  plan %s: %q, SOP instance %s\n", p.Path, p.Plan.Label, p.Plan.SOPInstanceUID)
 		}
 		for _, ig := range folder.Ignored {
 			fmt.Fprintf(w, "  ignored %s\n", strings.TrimSpace(fmt.Sprint(ig)))
@@ -206,14 +213,69 @@ func inspectPath(g *globals, path string, rules []roi.Rule, values bool, maxMemo
 		fmt.Fprintln(w)
 		return nil
 	}
-	// Neither: report the more specific of the two reasons. A file that is
-	// not a dose says so through its modality; then the structure set
-	// reader's reason is the one that matters.
+	plan, perr := dicomio.ReadPlan(path)
+	if perr == nil {
+		g.seen("", path, analysis.PlanSeen(plan), nil)
+		describePlan(g, path, plan)
+		return nil
+	}
+	// None: report the most specific reason. A file that is not a dose
+	// says so through its modality; then the structure set reader's
+	// reason, or the plan reader's for a plan, is the one that matters.
 	var me *dicomio.ModalityError
 	if errors.As(derr, &me) {
+		if errors.As(serr, &me) && !errors.As(perr, &me) {
+			return perr
+		}
 		return serr
 	}
 	return derr
+}
+
+func describePlan(g *globals, path string, p *dicomio.Plan) {
+	w := g.stdout
+	fmt.Fprintf(w, "%s: RT Plan %q", path, p.Label)
+	if p.Name != "" {
+		fmt.Fprintf(w, " (%s)", p.Name)
+	}
+	fmt.Fprintf(w, ", %s, geometry %s, SOP instance %s\n", orDash(p.ApprovalStatus), orDash(p.Geometry), p.SOPInstanceUID)
+	if g.verbose {
+		fmt.Fprintf(w, "  patient %s (%s)\n", p.PatientName, p.PatientID)
+	}
+	if rx, ok := p.PrescriptionGy(); ok {
+		fmt.Fprintf(w, "  prescription %g Gy", rx)
+		for _, d := range p.Prescriptions() {
+			fmt.Fprintf(w, "; %s %g Gy", orDash(d.Description), *d.TargetPrescriptionGy)
+		}
+		fmt.Fprintln(w)
+	} else {
+		fmt.Fprintln(w, "  no target prescription")
+	}
+	for _, fg := range p.FractionGroups {
+		fmt.Fprintf(w, "  fraction group %d: %d fractions, beams", fg.Number, fg.FractionsPlanned)
+		for _, b := range fg.Beams {
+			ms := "-"
+			if b.Meterset != nil {
+				ms = fmt.Sprintf("%g", *b.Meterset)
+			}
+			fmt.Fprintf(w, " %d (%s)", b.BeamNumber, ms)
+		}
+		fmt.Fprintln(w)
+	}
+	for _, b := range p.Beams {
+		fmt.Fprintf(w, "  beam %d %q: %s %s, %s, machine %s, %d control points\n", b.Number, b.Name, orDash(b.Type), orDash(b.RadiationType), orDash(b.DeliveryType), orDash(b.MachineName), b.ControlPoints)
+	}
+	for _, n := range p.Notes {
+		fmt.Fprintf(w, "  note: %s\n", n)
+	}
+	fmt.Fprintln(w)
+}
+
+func orDash(s string) string {
+	if s == "" {
+		return "-"
+	}
+	return s
 }
 
 func max1(n int) int { return max(n, 1) }
