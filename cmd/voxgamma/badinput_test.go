@@ -1403,7 +1403,7 @@ func TestBadInputReferencePoints(t *testing.T) {
 	})
 	t.Run("points_with_gamma_map", func(t *testing.T) {
 		p := csvFile("points2.csv", "x_mm,y_mm,z_mm,dose_gy\n0,0,0,2\n")
-		refused(t, []string{"compare", "--reference-points", p, "--evaluated", f.eval}, "--gamma-map, --difference-map and --report need a reference grid")
+		refused(t, []string{"compare", "--reference-points", p, "--evaluated", f.eval}, "--gamma-map, --difference-map, --report and --report-pdf need a reference grid")
 	})
 }
 
