@@ -582,3 +582,25 @@ func cspHash(script string) string {
 	sum := sha256.Sum256([]byte(script))
 	return base64.StdEncoding.EncodeToString(sum[:])
 }
+
+// BenchmarkReview256 writes the review of the size case (256×256×160
+// voxels, 20 ROIs) as HTML (with the slice browser's volumes) and as PDF.
+//
+//	go test -run '^$' -bench Review256 -benchtime 1x ./report/
+func BenchmarkReview256(b *testing.B) {
+	page := synthCase(b, synthOptions{Dims: [3]int{256, 256, 160}, Spacing: [3]float64{1.5, 1.5, 2}, Fail: true, ExtraROIs: 16})
+	b.Run("HTML", func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			if err := RenderHTML(io.Discard, page); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+	b.Run("PDF", func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			if err := RenderPDF(io.Discard, page); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+}

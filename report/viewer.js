@@ -446,6 +446,12 @@
       root.scrollIntoView({ block: "start" });
     });
     Array.prototype.forEach.call(document.querySelectorAll("button.goto"), function (b) { b.hidden = false; });
+    var pending = 0;
+    window.addEventListener("resize", function () {
+      // Redraw once the window has settled (the views keep their zoom).
+      clearTimeout(pending);
+      pending = setTimeout(drawAll, 100);
+    });
   }
 
   function bar(id, lut, labels) {
