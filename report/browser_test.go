@@ -390,3 +390,97 @@ func TestSliceBrowserDriven(t *testing.T) {
 		t.Errorf("the page reported problems: %q", p)
 	}
 }
+
+// gammaCentroidJS returns the centre (x, y) of a view's Γ-coloured pixels
+// and the canvas size, in canvas pixels (read from a copy of the canvas).
+const gammaCentroidJS = `(function(view){var src=document.getElementById("vw-"+view), c=document.createElement("canvas");
+c.width=src.width; c.height=src.height; var x=c.getContext("2d",{willReadFrequently:true}); x.drawImage(src,0,0);
+var d=x.getImageData(0,0,c.width,c.height).data, sx=0, sy=0, n=0;
+for(var i=0;i<d.length;i+=4){var r=d[i],g=d[i+1],b=d[i+2]; if(r>=g&&r-b>60){var p=i/4; sx+=p%c.width; sy+=Math.floor(p/c.width); n++;}}
+return n?[sx/n, sy/n, c.width, c.height]:[0,0,0,0];})`
+
+// TestSliceBrowserOddGrids opens the slice browser on grids a planning
+// system may send: a single frame, and axes stored flipped and transposed
+// (the views must still be in patient orientation): the browser starts
+// without a console message, steps and zooms.
+func TestSliceBrowserOddGrids(t *testing.T) {
+	chromium := chromiumOrSkip(t)
+	for name, o := range map[string]synthOptions{
+		"single frame":         {Dims: [3]int{40, 36, 1}, Spacing: [3]float64{3, 3, 3}, Fail: true},
+		"flipped, transposed":  {Dims: [3]int{30, 26, 20}, Spacing: [3]float64{2, 2.5, 3}, Direction: [3][3]float64{{0, -1, 0}, {1, 0, 0}, {0, 0, -1}}, Fail: true},
+		"feet first prone":     {Dims: [3]int{24, 22, 18}, Spacing: [3]float64{3, 3, 3}, Direction: [3][3]float64{{1, 0, 0}, {0, -1, 0}, {0, 0, -1}}, Fail: true},
+		"no failure, no masks": {Dims: [3]int{24, 22, 18}, Spacing: [3]float64{3, 3, 3}},
+	} {
+		t.Run(name, func(t *testing.T) {
+			page := synthCase(t, o)
+			if name == "no failure, no masks" {
+				page.ROIs, page.Difference = nil, nil
+			}
+			path := filepath.Join(t.TempDir(), "report.html")
+			if err := WriteHTML(path, page); err != nil {
+				t.Fatal(err)
+			}
+			s, err := browsercheck.Open(path, browsercheck.Options{Chromium: chromium, Width: 1280, Height: 1200})
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer s.Close()
+			if err := s.WaitFor(`document.getElementById("viewer").dataset.ready === "1"`, time.Minute); err != nil {
+				t.Fatalf("%v: %q", err, s.Problems())
+			}
+			if err := s.Click("#vw-coronal"); err != nil {
+				t.Fatal(err)
+			}
+			for _, k := range []string{"ArrowUp", "ArrowDown", "End", "Home", "+", "-", "0"} {
+				if err := s.Key(k); err != nil {
+					t.Fatal(err)
+				}
+			}
+			if o.Fail {
+				// Orientation: with the whole grid shown (centred on the
+				// patient origin) and only Γ drawn, the failing region at
+				// x = +18 (patient left), y = −10 (anterior), z = +6
+				// (superior) must appear right of and above the middle in
+				// the axial view (R on the left, A at the top), right and
+				// up in the coronal view, left (anterior) and up in the
+				// sagittal view, whatever the storage order. Single-frame
+				// grids have one plane: only the axial view is checked.
+				for _, id := range []string{"#vw-reset", "#vw-iso", "#vw-roi"} {
+					if err := s.Click(id); err != nil {
+						t.Fatal(err)
+					}
+				}
+				want := map[string][2]int{"axial": {1, -1}, "coronal": {1, -1}, "sagittal": {-1, -1}}
+				for view, sign := range want {
+					if o.Dims[2] == 1 && view != "axial" {
+						continue
+					}
+					// The view through the failing region's centre.
+					if err := s.Click(`#cluster-table tr.cluster-row:nth-child(1)`); err != nil {
+						t.Fatal(err)
+					}
+					if err := s.Click("#vw-reset"); err != nil {
+						t.Fatal(err)
+					}
+					var c [4]float64
+					if err := s.Eval(gammaCentroidJS+fmt.Sprintf("(%q)", view), &c); err != nil {
+						t.Fatal(err)
+					}
+					dx, dy := c[0]-c[2]/2, c[1]-c[3]/2
+					if c[2] == 0 || dx*float64(sign[0]) <= 0 || dy*float64(sign[1]) <= 0 {
+						t.Errorf("%s view: Γ > 1 centred at (%.0f, %.0f) px of %.0f×%.0f; want it %s and %s of the middle", view, c[0], c[1], c[2], c[3],
+							map[int]string{1: "right", -1: "left"}[sign[0]], map[int]string{1: "below", -1: "above"}[sign[1]])
+					}
+				}
+			}
+			var pos string
+			s.Eval(`document.getElementById("vw-pos-axial").textContent`, &pos)
+			if !strings.HasPrefix(pos, "z = ") {
+				t.Errorf("axial position %q", pos)
+			}
+			if p := s.Problems(); len(p) > 0 {
+				t.Errorf("problems: %q", p)
+			}
+		})
+	}
+}
