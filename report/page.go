@@ -599,9 +599,6 @@ func fillViewer(m *model, in Page, r *result.Result, lay *roiLayout) error {
 		// Open on the largest failing region, with room around it.
 		vin.StartExtent = math.Max(60, 3*clusterExtent(r.Clusters[0].VolumeCC))
 	}
-	for _, c := range r.Clusters {
-		vin.Clusters = append(vin.Clusters, viewerCluster{Centre: c.CentroidMM, ExtentMM: clusterExtent(c.VolumeCC)})
-	}
 	for _, i := range lay.order {
 		if pr := lay.mask[i]; pr != nil {
 			vin.ROIs = append(vin.ROIs, viewerMask{Name: r.ROIs[i].Name, Color: hexColor(lay.color[i]), Row: lay.id[i], Mask: pr.Mask})

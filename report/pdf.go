@@ -8,12 +8,15 @@ import (
 	"math"
 	"strconv"
 	"strings"
+	"sync"
 	"time"
+	"unicode"
 
 	"codeberg.org/go-fonts/liberation/liberationmonoregular"
 	"codeberg.org/go-fonts/liberation/liberationsansbold"
 	"codeberg.org/go-fonts/liberation/liberationsansregular"
 	"codeberg.org/go-pdf/fpdf"
+	"golang.org/x/image/font/sfnt"
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/vg"
 	"gonum.org/v1/plot/vg/draw"
@@ -38,11 +41,8 @@ const figureDPI = 200
 // shows (the largest first); the table lists up to maxClusterRows.
 const maxPDFClusterSlices = 5
 
-// PDF layout, in mm.
-const (
-	pdfMargin = 15.0
-	pdfLine   = 4.2
-)
+// pdfMargin is the page margin, mm.
+const pdfMargin = 15.0
 
 // Colours of the PDF's text marks.
 var (
@@ -84,7 +84,6 @@ type pdfDoc struct {
 	f    *fpdf.Fpdf
 	w    float64 // text width
 	imgs int
-	err  error
 }
 
 // buildPDF lays out the whole document.
@@ -165,9 +164,6 @@ func buildPDF(in Page) (*pdfDoc, error) {
 	if err := f.Error(); err != nil {
 		return nil, err
 	}
-	if d.err != nil {
-		return nil, d.err
-	}
 	return d, nil
 }
 
@@ -175,8 +171,61 @@ func buildPDF(in Page) (*pdfDoc, error) {
 // no glyph for (the marks are also said in words).
 var pdfFallback = strings.NewReplacer("✔ ", "", "✘ ", "", "✔", "", "✘", "", "⚠ ", "", "⚠", "!")
 
-// pdfText is s as the PDF prints it.
-func pdfText(s string) string { return pdfFallback.Replace(s) }
+// pdfGlyphs tells whether the embedded fonts can print a character.
+var pdfGlyphs = func() func(rune) bool {
+	var fonts []*sfnt.Font
+	for _, ttf := range [][]byte{liberationsansregular.TTF, liberationsansbold.TTF, liberationmonoregular.TTF} {
+		if f, err := sfnt.Parse(ttf); err == nil {
+			fonts = append(fonts, f)
+		}
+	}
+	var mu sync.Mutex
+	var buf sfnt.Buffer
+	known := map[rune]bool{}
+	return func(r rune) bool {
+		mu.Lock()
+		defer mu.Unlock()
+		if ok, seen := known[r]; seen {
+			return ok
+		}
+		ok := false
+		for _, f := range fonts {
+			if g, err := f.GlyphIndex(&buf, r); err == nil && g != 0 {
+				ok = true
+				break
+			}
+		}
+		known[r] = ok
+		return ok
+	}
+}()
+
+// pdfText is s as the PDF prints it: the page's marks left out (their
+// words remain), and control characters, bidirectional overrides and
+// characters the embedded fonts cannot draw written as visible escapes
+// (\u202e), so that text from the input files can neither hide nor
+// reorder what the reader sees.
+func pdfText(s string) string {
+	s = pdfFallback.Replace(s)
+	var b strings.Builder
+	for _, r := range s {
+		switch {
+		case r == '\n':
+			b.WriteRune(r)
+		case r == '\t':
+			b.WriteRune(' ')
+		case unicode.IsControl(r) || unicode.Is(unicode.Bidi_Control, r) || unicode.Is(unicode.Cf, r) || !pdfGlyphs(r):
+			if r <= 0xFFFF {
+				fmt.Fprintf(&b, "\\u%04x", r)
+			} else {
+				fmt.Fprintf(&b, "\\U%08x", r)
+			}
+		default:
+			b.WriteRune(r)
+		}
+	}
+	return b.String()
+}
 
 func (d *pdfDoc) font(style string, size float64) { d.f.SetFont("sans", style, size) }
 func (d *pdfDoc) mono(size float64)               { d.f.SetFont("mono", "", size) }
@@ -435,7 +484,7 @@ func (d *pdfDoc) titleBlock(m *model, r *result.Result) {
 	f.CellFormat(bw, 9, label, "", 0, "C", false, 0, "")
 	d.font("", 10)
 	d.color(pdfInk)
-	f.CellFormat(d.w-bw, 9, "  "+m.VerdictOf, "", 1, "L", false, 0, "")
+	f.CellFormat(d.w-bw, 9, "  "+pdfText(m.VerdictOf), "", 1, "L", false, 0, "")
 	f.Ln(2)
 	if len(m.Failures) > 0 {
 		d.box("Rules not met (the tables and figures below start with these):", "NOT MET: "+strings.Join(m.Failures, "\nNOT MET: "), pdfNotMet, pdfNotMet, 9)
@@ -636,7 +685,7 @@ func (d *pdfDoc) figures(in Page, r *result.Result, lay *roiLayout, overall *gam
 			c, label = pdfNotMet, "NOT MET: "+roi.Name
 		}
 		d.color(c)
-		d.f.CellFormat(d.w, 5, label, "", 1, "L", false, 0, "")
+		d.f.CellFormat(d.w, 5, pdfText(label), "", 1, "L", false, 0, "")
 		y := d.f.GetY()
 		drew, hist := false, false
 		if pr := lay.mask[i]; pr != nil {
@@ -673,7 +722,7 @@ func (d *pdfDoc) figures(in Page, r *result.Result, lay *roiLayout, overall *gam
 			if lay.mask[i] != nil {
 				why = "No voxel of this ROI has a Γ (status: " + statusText(roi) + ")."
 			}
-			d.f.MultiCell(fw-8, 3.6, why, "", "L", false)
+			d.f.MultiCell(fw-8, 3.6, pdfText(why), "", "L", false)
 		}
 		if drew {
 			d.f.SetXY(pdfMargin, y+fh+2)
@@ -755,7 +804,7 @@ func (d *pdfDoc) slices(in Page, r *result.Result, lay *roiLayout) error {
 		d.ensure(h + 12)
 		d.font("B", 8.5)
 		d.color(pdfInk)
-		for _, l := range d.wrap(s.title, d.w, false) {
+		for _, l := range d.wrap(pdfText(s.title), d.w, false) {
 			d.f.CellFormat(d.w, 4, l, "", 1, "L", false, 0, "")
 		}
 		y := d.f.GetY()
@@ -859,7 +908,7 @@ func (d *pdfDoc) protocol(m *model) {
 		indent := 5 * float64(l.Depth)
 		d.mono(7.5)
 		d.color(pdfInk)
-		for _, line := range d.wrap(text, d.w-indent, false) {
+		for _, line := range d.wrap(pdfText(text), d.w-indent, false) {
 			d.f.SetX(pdfMargin + indent)
 			d.f.CellFormat(d.w-indent, 3.4, line, "", 1, "L", false, 0, "")
 		}

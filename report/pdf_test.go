@@ -271,3 +271,26 @@ func TestPDFPlan(t *testing.T) {
 		}
 	}
 }
+
+// Text from the input files reaches the PDF visibly: a control character
+// and a right-to-left override in an ROI name, and characters the embedded
+// fonts have no glyph for, are printed as escapes (\u001b, \u202e), never
+// as invisible or reordering characters or empty boxes.
+func TestPDFTextVisible(t *testing.T) {
+	page := synthCase(t, smallCase)
+	r := page.Result
+	r.ROIs[1].Name = "CORD\x1b[31m\u202eLIAT"
+	page.ROIs[1].Name = r.ROIs[1].Name
+	r.Warnings = append(r.Warnings, "a warning in another script: 脊髄")
+	text := extractPDF(t, writeSynthPDF(t, page))
+	for _, want := range []string{`CORD\u001b[31m\u202eLIAT`, `\u810a\u9ac4`} {
+		if !strings.Contains(text, want) {
+			t.Errorf("the PDF does not show %q", want)
+		}
+	}
+	for _, bad := range []string{"\x1b", "\u202e", "脊"} {
+		if strings.Contains(text, bad) {
+			t.Errorf("the PDF holds %q itself", bad)
+		}
+	}
+}

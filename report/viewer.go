@@ -76,12 +76,6 @@ type viewerROI struct {
 	Offset int `json:"offset"`
 }
 
-// viewerCluster is a failing cluster the browser can centre on.
-type viewerCluster struct {
-	Centre   [3]float64 `json:"centre"`
-	ExtentMM float64    `json:"extent"`
-}
-
 // viewerIso is an isodose level.
 type viewerIso struct {
 	Percent float64 `json:"percent"`
@@ -114,11 +108,10 @@ type viewerMeta struct {
 	Start     [3]float64 `json:"start"`
 	// StartExtent is the size (mm) of the region first shown around Start;
 	// 0 shows the whole grid.
-	StartExtent float64         `json:"startExtent"`
-	StartNote   string          `json:"startNote"`
-	Isodoses    []viewerIso     `json:"isodoses"`
-	ROIs        []viewerROI     `json:"rois"`
-	Clusters    []viewerCluster `json:"clusters"`
+	StartExtent float64     `json:"startExtent"`
+	StartNote   string      `json:"startNote"`
+	Isodoses    []viewerIso `json:"isodoses"`
+	ROIs        []viewerROI `json:"rois"`
 }
 
 // viewerPayload is the slice browser's data as the page embeds it.
@@ -163,7 +156,6 @@ type viewerInput struct {
 	Start            [3]float64
 	StartExtent      float64
 	StartNote        string
-	Clusters         []viewerCluster
 }
 
 // viewerMask is one ROI's mask with its display name, colour and row.
@@ -370,10 +362,6 @@ func encodeViewer(in viewerInput, c *canonical, block [3]int) (*viewerPayload, e
 	m.Threshold, m.DosePct = in.ThresholdPercent, in.DosePercent
 	m.DiffShown = fmt.Sprintf("shown where either dose is at least the low-dose threshold (%s %% of %s Gy)", exact(in.ThresholdPercent), fixed(norm, 2))
 	m.Start, m.StartExtent, m.StartNote = in.Start, in.StartExtent, in.StartNote
-	m.Clusters = in.Clusters
-	if m.Clusters == nil {
-		m.Clusters = []viewerCluster{}
-	}
 	for _, iso := range isodoseLevels {
 		m.Isodoses = append(m.Isodoses, viewerIso{Percent: iso.Percent, Color: hexColor(iso.Color)})
 	}
