@@ -344,6 +344,10 @@ func TestSliceBrowserDriven(t *testing.T) {
 	if err := s.Wheel(box.X+box.Width/2, box.Y+box.Height/2, -300); err != nil {
 		t.Fatal(err)
 	}
+	// Wheel events reach the page after the compositor: wait for the zoom.
+	if err := s.WaitFor(fmt.Sprintf(`parseFloat(document.getElementById("vw-sagittal").dataset.zoom) > %g`, z0*1.5), 10*time.Second); err != nil {
+		t.Error(err)
+	}
 	st = state()
 	if z1, _ := strconv.ParseFloat(st.Zooms[2], 64); !(z1 > z0*1.5) {
 		t.Errorf("wheel: zoom %s from %g", st.Zooms[2], z0)

@@ -5,6 +5,11 @@
 // something. It is used by the report package's tests on a synthetic page
 // and can be used by any test on a real report (the CLI's demo).
 //
+// [Open] starts a [Session] instead: a headless Chromium driven over the
+// DevTools protocol, in which a test presses keys, clicks, turns the mouse
+// wheel, drags, reads what the page's scripts did and takes screenshots,
+// as a reader of the page would.
+//
 // Chromium is Debian's /usr/bin/chromium (apt-get install chromium) or the
 // first of chromium, chromium-browser, google-chrome on PATH; the
 // VOXGAMMA_CHROMIUM environment variable names another binary.

@@ -6,6 +6,7 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 )
 
 func chromiumOrSkip(t *testing.T) string {
@@ -134,5 +135,85 @@ func TestCheckGoodPage(t *testing.T) {
 	}
 	if rep.ScreenshotWidth != 640 || rep.ScreenshotHeight != 480 {
 		t.Errorf("screenshot %d×%d", rep.ScreenshotWidth, rep.ScreenshotHeight)
+	}
+}
+
+// TestSession drives a small page: a click on a button and keys in a text
+// box reach the page's script as a user's would; Eval reads the result; a
+// console message, an uncaught exception and a blocked request are
+// reported; the screenshot of an element has its size.
+func TestSession(t *testing.T) {
+	chromium := chromiumOrSkip(t)
+	dir := t.TempDir()
+	page := filepath.Join(dir, "p.html")
+	html := `<!DOCTYPE html><html><head><meta charset="utf-8"><title>t</title></head><body>
+<button id="b" style="width:120px;height:40px">press</button><input id="i"><div id="out" style="width:200px;height:50px;background:#c00"></div>
+<script>
+var clicks = 0, keys = [];
+document.getElementById("b").addEventListener("click", function () { clicks++; });
+document.getElementById("i").addEventListener("keydown", function (e) { keys.push(e.key); });
+window.addEventListener("wheel", function (e) { window.wheel = e.deltaY; });
+</script></body></html>`
+	if err := os.WriteFile(page, []byte(html), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	s, err := Open(page, Options{Chromium: chromium, Width: 800, Height: 600})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	if err := s.Click("#b"); err != nil {
+		t.Fatal(err)
+	}
+	if err := s.Click("#i"); err != nil {
+		t.Fatal(err)
+	}
+	for _, k := range []string{"ArrowUp", "PageDown", "+"} {
+		if err := s.Key(k); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := s.Wheel(100, 100, -120); err != nil {
+		t.Fatal(err)
+	}
+	// Wheel events reach the page after the compositor: wait for it.
+	if err := s.WaitFor(`window.wheel !== undefined`, 10*time.Second); err != nil {
+		t.Error(err)
+	}
+	var got struct {
+		Clicks int
+		Keys   []string
+		Wheel  float64
+	}
+	if err := s.Eval(`({Clicks: clicks, Keys: keys, Wheel: window.wheel})`, &got); err != nil {
+		t.Fatal(err)
+	}
+	if got.Clicks != 1 || strings.Join(got.Keys, ",") != "ArrowUp,PageDown,+" || got.Wheel != -120 {
+		t.Errorf("the page saw %+v", got)
+	}
+	if p := s.Problems(); len(p) != 0 {
+		t.Errorf("problems before any: %q", p)
+	}
+	shot := filepath.Join(dir, "out.png")
+	if err := s.Screenshot(shot, "#out"); err != nil {
+		t.Fatal(err)
+	}
+	if w, h, colours, err := screenshotStats(shot); err != nil || w != 200 || h != 50 || colours < 1 {
+		t.Errorf("element screenshot %d×%d, %d colours, %v", w, h, colours, err)
+	}
+	// What must be reported.
+	s.Eval(`console.error("boom"); setTimeout(function () { throw new Error("late"); }, 0); var im = new Image(); im.src = "http://example.invalid/x.png"; 1`, nil)
+	deadline := 50
+	var p []string
+	for ; deadline > 0; deadline-- {
+		p = s.Problems()
+		joined := strings.Join(p, "\n")
+		if strings.Contains(joined, "boom") && strings.Contains(joined, "late") && strings.Contains(joined, "example.invalid") {
+			break
+		}
+		s.Eval(`new Promise(function (r) { setTimeout(r, 100); })`, nil)
+	}
+	if deadline == 0 {
+		t.Errorf("problems %q: want the console error, the exception and the request", p)
 	}
 }
