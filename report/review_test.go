@@ -604,3 +604,25 @@ func BenchmarkReview256(b *testing.B) {
 		}
 	})
 }
+
+// A page whose volumes would exceed the budget gets a downsampled browser
+// that says so; halving stops as soon as the volumes fit.
+func TestViewerBudget(t *testing.T) {
+	page := synthCase(t, synthOptions{Dims: [3]int{40, 36, 30}, Spacing: [3]float64{2, 2, 3}, Fail: true})
+	full, err := buildViewer(viewerInput{Ref: page.Reference, Gamma: page.Gamma, Diff: page.Difference, NormDose: synthNormDose, ThresholdPercent: 10, GammaCap: 2.5})
+	if err != nil || full.Meta.Block != [3]int{1, 1, 1} || full.Note != "" {
+		t.Fatalf("within the budget: block %v note %q err %v", full.Meta.Block, full.Note, err)
+	}
+	old := viewerBudget
+	defer func() { viewerBudget = old }()
+	viewerBudget = full.Size() / 2
+	_, doc := render(t, page)
+	text := doc.ByID("slices").TextContent()
+	if m := regexp.MustCompile(`the slice browser shows blocks of (\d+) × (\d+) × (\d+) voxels`).FindStringSubmatch(text); m == nil || m[1]+m[2]+m[3] == "111" {
+		t.Errorf("over the budget the page does not say how it was reduced: %q", m)
+	}
+	small, err := buildViewer(viewerInput{Ref: page.Reference, Gamma: page.Gamma, Diff: page.Difference, NormDose: synthNormDose, ThresholdPercent: 10, GammaCap: 2.5})
+	if err != nil || small.Size() > viewerBudget || small.Meta.Block == [3]int{1, 1, 1} {
+		t.Errorf("block %v, %d bytes for a budget of %d", small.Meta.Block, small.Size(), viewerBudget)
+	}
+}

@@ -49,7 +49,7 @@ import (
 // the page says so.
 
 // viewerBudget is the most base64 the slice browser's volumes may take.
-const viewerBudget = 8 << 20
+var viewerBudget = 8 << 20
 
 // Codes of the Γ and difference volumes.
 const (
