@@ -15,6 +15,7 @@ import (
 	"testing"
 
 	"voxgamma/demo"
+	"voxgamma/dicomio"
 	"voxgamma/internal/reftool"
 	"voxgamma/result"
 )
@@ -113,4 +114,47 @@ func TestBatchReportPDF(t *testing.T) {
 		}
 	}
 	checkPDFAgainstJSON(t, filepath.Join(caseDir, "report.pdf"), readResultJSON(t, filepath.Join(caseDir, "result.json")))
+}
+
+// TestDeidentifyPlan: with --deidentify and --plan, nothing the plan
+// identifies reaches an output: not the patient's name or ID written in the
+// plan, not its label, name or description (free text a planner may put a
+// name in), not its SOP instance UID; the PDF is searched through its text
+// (pdftotext), its streams being compressed.
+func TestDeidentifyPlan(t *testing.T) {
+	in := t.TempDir()
+	f := plantCase(t, in, 0.97)
+	ids, err := dicomio.ReadDoseInfo(f.Reference)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rx := 30.0
+	plan := &dicomio.Plan{Label: "PL_" + plantFamily, Name: "for " + plantGiven, Description: plantDesc,
+		DoseReferences: []dicomio.DoseReference{{Number: 1, Type: "TARGET", Description: "PTV_" + plantFamily, TargetPrescriptionGy: &rx}},
+		Beams:          []dicomio.Beam{{Number: 1, Name: "Arc " + plantGiven}},
+		FractionGroups: []dicomio.FractionGroup{{Number: 1, FractionsPlanned: 5, Beams: []dicomio.ReferencedBeam{{BeamNumber: 1}}}}}
+	rp := filepath.Join(filepath.Dir(f.Reference), "rp_"+plantFile+".dcm")
+	written, err := dicomio.WritePlan(rp, plan, ids.Identifiers)
+	if err != nil {
+		t.Fatal(err)
+	}
+	vals := append(planted(t, f.Reference, f.Evaluated, f.Structures), written.SOPInstanceUID, "PL_"+plantFamily)
+	out := t.TempDir()
+	pdf := filepath.Join(out, "r.pdf")
+	r := vgRun(t, "compare", "--reference", f.Reference, "--evaluated", f.Evaluated, "--structures", f.Structures, "--plan", rp, "--deidentify",
+		"--json", filepath.Join(out, "r.json"), "--report", filepath.Join(out, "r.html"), "--report-pdf", pdf)
+	if r.code == exitError {
+		t.Fatalf("compare: %s", r)
+	}
+	grepWritten(t, "compare --plan", vals, r, out)
+	text := pdfToText(t, pdf)
+	for _, v := range vals {
+		if v != "" && strings.Contains(strings.ToLower(text), strings.ToLower(v)) {
+			t.Errorf("the PDF's text holds the planted value %q", v)
+		}
+	}
+	res := readResultJSON(t, filepath.Join(out, "r.json"))
+	if res.Plan == nil || res.Plan.FractionsPlanned == nil || *res.Plan.FractionsPlanned != 5 || res.Plan.PrescriptionGy == nil || *res.Plan.PrescriptionGy != 30 {
+		t.Errorf("the de-identified plan keeps its numbers: %+v", res.Plan)
+	}
 }
