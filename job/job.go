@@ -23,6 +23,7 @@ import (
 	"voxgamma/dicomio"
 	"voxgamma/gamma"
 	"voxgamma/internal/atomicfile"
+	"voxgamma/internal/fault"
 	"voxgamma/internal/pathcheck"
 	"voxgamma/metaimage"
 	"voxgamma/protocol"
@@ -441,9 +442,13 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 	}
 	type staged struct{ tmp, final string }
 	var done []staged
+	renamed, finished := 0, false
+	// However Write ends (an error, or a panic on its way up to a caller
+	// that recovers it), no staging file stays behind: those not renamed
+	// into place are removed.
 	defer func() {
-		if err != nil {
-			for _, s := range done {
+		if !finished {
+			for _, s := range done[renamed:] {
 				os.Remove(s.tmp)
 			}
 		}
@@ -453,11 +458,11 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 			return nil
 		}
 		tmp := filepath.Join(filepath.Dir(final), "."+filepath.Base(final)+".voxgamma-staging")
+		done = append(done, staged{tmp, final})
 		if err := write(tmp); err != nil {
-			os.Remove(tmp)
 			return fmt.Errorf("%w (nothing written)", renameErr(err, tmp, final))
 		}
-		done = append(done, staged{tmp, final})
+		fault.Point(fault.JobWriteStaged)
 		return nil
 	}
 	if err := stage(o.JSON, func(p string) error { return report.WriteJSON(p, r) }); err != nil {
@@ -494,17 +499,17 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 	if err := stage(o.ReportPDF, func(p string) error { return report.WritePDF(p, reviewPage()) }); err != nil {
 		return err
 	}
-	for i, s := range done {
+	for _, s := range done {
 		if err := atomicfile.CheckTarget(s.final); err != nil {
-			done = done[i:]
 			return err
 		}
 		if err := os.Rename(s.tmp, s.final); err != nil {
 			// Those already renamed stay (complete); the rest are removed.
-			done = done[i:]
 			return fmt.Errorf("writing %s: %w", s.final, err)
 		}
+		renamed++
 	}
+	finished = true
 	return nil
 }
 

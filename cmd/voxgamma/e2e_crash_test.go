@@ -176,6 +176,21 @@ func TestCrashCodesPanics(t *testing.T) {
 			oneErrorLine(t, r, "internal error", "injected at "+tc.site)
 		})
 	}
+	// A panic while the outputs are staged (job.Write recovers nothing; the
+	// command does): exit 1, and no staging file or partial output left.
+	t.Run("compare_write", func(t *testing.T) {
+		hookPanic(t, fault.JobWriteStaged, true)
+		out := t.TempDir()
+		r := vgRun(t, withOutputs(append(compareArgs(f.ref, f.eval, f.rs), "-q"), out)...)
+		noCrash(t, r)
+		if r.code != exitError {
+			t.Fatalf("exit %d, want 1\n%s", r.code, r)
+		}
+		oneErrorLine(t, r, "internal error", "injected at "+fault.JobWriteStaged)
+		if names := testDirNames(t, out); len(names) != 0 {
+			t.Errorf("files left in the output folder after a panic while writing: %v", names)
+		}
+	})
 	// A panic in one batch case, outside the comparison: the other case is
 	// computed, the failing one gets its status, exit 1 with the count line.
 	t.Run("batch_one_case", func(t *testing.T) {

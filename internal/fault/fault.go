@@ -31,4 +31,7 @@ const (
 	WatchCase = "watch.case"
 	// Command: the start of a command's work (name appended: "command compare").
 	Command = "command"
+	// JobWriteStaged: job.Write, after each output is staged and before any
+	// is renamed into place.
+	JobWriteStaged = "job.write.staged"
 )
