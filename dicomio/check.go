@@ -100,7 +100,18 @@ func CheckConsistency(ref *DoseInfo, refGrid *volume.Grid, eval *DoseInfo, evalG
 			tagString(tagReferencedRTPlanSequence), a, b)
 	}
 	rs, es := ref.DoseSummationType, eval.DoseSummationType
+	refSum, evalSum := len(ref.SummedFrom) > 1, len(eval.SummedFrom) > 1
 	switch {
+	case (refSum || evalSum) && rs == es && summableTypes[rs] == "beam" && FormatNumbers(ref.ReferencedBeamNumbers) != FormatNumbers(eval.ReferencedBeamNumbers):
+		f.errorf("the doses hold different beams: reference (%s) beams %s, evaluated (%s) beams %s (%s): a sum that lacks a beam is not the plan's dose",
+			rn, FormatNumbers(ref.ReferencedBeamNumbers), en, FormatNumbers(eval.ReferencedBeamNumbers), tagString(tagReferencedBeamNumber))
+	case rs != es && (refSum && partialSummation[rs] || evalSum && partialSummation[es]):
+		side, sum, other, otherType := "reference", ref, "evaluated", es
+		if !refSum || !partialSummation[rs] {
+			side, sum, other, otherType = "evaluated", eval, "reference", rs
+		}
+		f.warnf("the %s dose is %s and the %s dose is %s: that the sum holds every part of the plan is checked only against the plan's RT Plan (give it with --plan)",
+			side, sum.SumLabel(), other, orNone(otherType))
 	case rs == "" || es == "":
 		f.warnf("DoseSummationType missing (reference %s, evaluated %s): cannot check that both are the same kind of dose", orNone(rs), orNone(es))
 	case rs != es && (partialSummation[rs] || partialSummation[es]):
@@ -180,6 +191,9 @@ func coverage(f *Findings, ref *DoseInfo, refGrid, evalGrid *volume.Grid, rn, en
 }
 
 func fileLabel(d *DoseInfo, fallback string) string {
+	if n := len(d.SummedFrom); n > 1 {
+		return fmt.Sprintf("%s and %d more summed", filepath.Base(d.SummedFrom[0]), n-1)
+	}
 	if d.Path == "" {
 		return fallback
 	}

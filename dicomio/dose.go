@@ -75,6 +75,14 @@ type DoseInfo struct {
 	// ReferencedFractionGroupNumber (300C,0022) and ReferencedBeamNumber
 	// (300C,0006) under the referenced plan; 0 when absent.
 	ReferencedFractionGroupNumber, ReferencedBeamNumber int
+	// ReferencedBeamNumbers lists the ReferencedBeamNumber of every item of
+	// the fraction group's ReferencedBeamSequence (300C,0004), in file
+	// order: a BEAM dose is of "one or more Beams" (PS3.3 C.8.8.3).
+	// ReferencedBeamNumber is the first of them.
+	ReferencedBeamNumbers []int
+	// SummedFrom lists the files of a dose made by summing several (see
+	// [DoseSet]), in the order summed; nil for a dose read from one file.
+	SummedFrom []string
 	// Rows (0028,0010), Columns (0028,0011) and NumberOfFrames (0028,0008;
 	// 1 when absent).
 	Rows, Columns, NumberOfFrames int
@@ -218,8 +226,13 @@ func (f *file) doseHeader() (*DoseInfo, *doseGeometry, error) {
 	if plans := d.items(tagReferencedRTPlanSequence); len(plans) > 0 {
 		if fg := plans[0].items(tagReferencedFractionGroupS); len(fg) > 0 {
 			info.ReferencedFractionGroupNumber, _, _ = fg[0].integer(tagReferencedFractionGroupN)
-			if beams := fg[0].items(tagReferencedBeamSequence); len(beams) > 0 {
-				info.ReferencedBeamNumber, _, _ = beams[0].integer(tagReferencedBeamNumber)
+			for _, b := range fg[0].items(tagReferencedBeamSequence) {
+				if n, ok, _ := b.integer(tagReferencedBeamNumber); ok {
+					info.ReferencedBeamNumbers = append(info.ReferencedBeamNumbers, n)
+				}
+			}
+			if len(info.ReferencedBeamNumbers) > 0 {
+				info.ReferencedBeamNumber = info.ReferencedBeamNumbers[0]
 			}
 		}
 	}

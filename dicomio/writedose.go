@@ -337,6 +337,9 @@ func buildDose(path string, g *volume.Grid, ids Identifiers, opt WriteOptions) (
 		b.addSeq(tagReferencedRTPlanSequence, plan)
 		info.ReferencedFractionGroupNumber = opt.ReferencedFractionGroupNumber
 		info.ReferencedBeamNumber = opt.ReferencedBeamNumber
+		if opt.ReferencedFractionGroupNumber > 0 && opt.ReferencedBeamNumber > 0 {
+			info.ReferencedBeamNumbers = []int{opt.ReferencedBeamNumber}
+		}
 	} else {
 		// Not present otherwise (PS3.3 C.8.8.3 as dciodvfy checks it).
 		info.ReferencedRTPlanUID = ""
