@@ -21,14 +21,24 @@ import (
 
 // Inputs names the files of one comparison.
 type Inputs struct {
-	// Reference is an RT Dose file or a folder holding one; empty when
-	// ReferencePoints is given.
+	// Reference is an RT Dose file or a folder holding one (or holding the
+	// parts of one, summed: see ReferenceFiles); empty when
+	// ReferencePoints or ReferenceFiles is given.
 	Reference string
+	// ReferenceFiles, when it holds two or more RT Dose files, are the
+	// parts of the reference dose (its beams, fraction groups or
+	// sessions): checked to belong together and summed (see
+	// dicomio.ReadDoseSet). One file is as Reference.
+	ReferenceFiles []string
 	// ReferencePoints is a CSV of measured points (header
 	// x_mm,y_mm,z_mm,dose_gy) used instead of Reference.
 	ReferencePoints string
-	// Evaluated is an RT Dose file or a folder holding one.
+	// Evaluated is an RT Dose file or a folder holding one (or the parts
+	// of one, summed).
 	Evaluated string
+	// EvaluatedFiles are the parts of the evaluated dose, as
+	// ReferenceFiles.
+	EvaluatedFiles []string
 	// Structures is an RT Structure Set file; empty for none. When empty
 	// and Reference is a folder, the folder's structure set (in the
 	// reference's frame of reference) is used.
@@ -82,6 +92,10 @@ type Loaded struct {
 	// Paths lists every input file read, so that outputs can refuse to
 	// overwrite them.
 	Paths []string
+	// DoseSums describes each dose summed from several files; ReferenceSet
+	// and EvaluatedSet are those sets (nil for a dose read from one file).
+	DoseSums                   []result.DoseSum
+	ReferenceSet, EvaluatedSet *dicomio.DoseSet
 	// DoseTypeMismatch says why the doses' DoseType values differ
 	// (dicomio.DoseTypeMismatch), SwapEvidence why the files read as the
 	// wrong way round (dicomio.SwapEvidence); "" when not. Prepare refuses
@@ -97,46 +111,59 @@ func badInput(format string, args ...any) error {
 	return fmt.Errorf("%w: %s", ErrBadInput, fmt.Sprintf(format, args...))
 }
 
+// given returns the paths given for one dose: the files, or the one path.
+func given(one string, files []string) []string {
+	if len(files) > 0 {
+		return files
+	}
+	if one != "" {
+		return []string{one}
+	}
+	return nil
+}
+
 // Load reads and checks the inputs. Every error names the file at fault and
 // matches ErrBadInput.
 func Load(in Inputs) (*Loaded, error) {
 	l := &Loaded{}
-	if (in.Reference == "") == (in.ReferencePoints == "") {
+	refGiven, evalGiven := given(in.Reference, in.ReferenceFiles), given(in.Evaluated, in.EvaluatedFiles)
+	if (len(refGiven) == 0) == (in.ReferencePoints == "") {
 		return nil, badInput("give either a reference dose or reference points, not both and not neither")
 	}
-	if in.Evaluated == "" {
+	if len(evalGiven) == 0 {
 		return nil, badInput("no evaluated dose given")
 	}
 	if in.NoStructures && in.Structures != "" {
 		return nil, badInput("a structure set (%s) was given with --no-structures: give one or the other", in.Structures)
 	}
 
-	in.seen("reference", in.Reference, nil, nil)
+	for _, p := range refGiven {
+		in.seen("reference", p, nil, nil)
+	}
 	in.seen("reference points", in.ReferencePoints, nil, nil)
-	in.seen("evaluated", in.Evaluated, nil, nil)
+	for _, p := range evalGiven {
+		in.seen("evaluated", p, nil, nil)
+	}
 	in.seen("structures", in.Structures, nil, nil)
 	in.seen("plan", in.Plan, nil, nil)
 	// Evaluated first: the reference points are in its coordinates. A
-	// folder never yields the file given as the other dose, and when both
+	// folder never yields a file given as the other dose, and when both
 	// are folders the words of the files decide which is which.
-	evalPath, _, _, evalAccount, err := in.resolveDose("evaluated", in.Evaluated, dicomio.ChooseOptions{Role: dicomio.EvaluatedRole,
-		Exclude: []string{fileOnly(in.Reference)}, ExcludeRole: dicomio.ReferenceRole})
+	evalPaths, _, _, evalAccount, err := in.resolveDoses("evaluated", "evaluated dose", evalGiven, dicomio.ChooseOptions{Role: dicomio.EvaluatedRole,
+		Exclude: filesOnly(refGiven), ExcludeRole: dicomio.ReferenceRole})
 	if err != nil {
 		return nil, err
 	}
 	l.Notes = append(l.Notes, evalAccount...)
-	if l.Evaluated, l.EvaluatedInfo, err = in.readDose(evalPath, "evaluated dose", "evaluated"); err != nil {
-		return nil, err
-	}
-	if err := l.addDoseInput("evaluated", evalPath, l.EvaluatedInfo, l.Evaluated); err != nil {
+	if l.Evaluated, l.EvaluatedInfo, l.EvaluatedSet, err = l.loadDose(in, "evaluated", "evaluated dose", evalPaths); err != nil {
 		return nil, err
 	}
 
 	structuresPath := in.Structures
 	planPath, planSource := in.Plan, "--plan"
-	if in.Reference != "" {
-		refPath, folderRS, folderPlan, account, err := in.resolveDose("reference", in.Reference, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
-			Exclude: []string{evalPath}, ExcludeRole: dicomio.EvaluatedRole})
+	if len(refGiven) > 0 {
+		refPaths, folderRS, folderPlan, account, err := in.resolveDoses("reference", "reference", refGiven, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
+			Exclude: evalPaths, ExcludeRole: dicomio.EvaluatedRole})
 		if err != nil {
 			return nil, err
 		}
@@ -144,13 +171,14 @@ func Load(in Inputs) (*Loaded, error) {
 		if planPath == "" && folderPlan != "" {
 			planPath, planSource = folderPlan, "reference folder"
 		}
-		if refPath == evalPath {
-			return nil, badInput("%s is both the reference and the evaluated dose", refPath)
+		for _, r := range refPaths {
+			for _, e := range evalPaths {
+				if r == e || sameFile(r, e) {
+					return nil, badInput("%s is both the reference and the evaluated dose", r)
+				}
+			}
 		}
-		if l.Reference, l.ReferenceInfo, err = in.readDose(refPath, "reference", "reference"); err != nil {
-			return nil, err
-		}
-		if err := l.addDoseInput("reference", refPath, l.ReferenceInfo, l.Reference); err != nil {
+		if l.Reference, l.ReferenceInfo, l.ReferenceSet, err = l.loadDose(in, "reference", "reference", refPaths); err != nil {
 			return nil, err
 		}
 		if structuresPath == "" && !in.NoStructures {
@@ -208,37 +236,62 @@ func Load(in Inputs) (*Loaded, error) {
 			return nil, badInput("structures cannot be used with reference points: per-ROI results need a reference grid")
 		}
 		if l.EvaluatedInfo.Relative() {
-			l.Warnings = append(l.Warnings, fmt.Sprintf("the evaluated dose %s is RELATIVE while the reference points are in Gy", evalPath))
+			l.Warnings = append(l.Warnings, fmt.Sprintf("the evaluated dose %s is RELATIVE while the reference points are in Gy", strings.Join(evalPaths, ", ")))
 		}
 	}
 	return l, nil
 }
 
-// fileOnly returns path when it names something other than a folder, else
-// "" (a folder given for one dose excludes nothing from the other's).
-func fileOnly(path string) string {
-	if st, err := os.Stat(path); path == "" || err != nil || st.IsDir() {
-		return ""
+// filesOnly returns the paths that name something other than a folder (a
+// folder given for one dose excludes nothing from the other's).
+func filesOnly(paths []string) []string {
+	var out []string
+	for _, p := range paths {
+		if st, err := os.Stat(p); p != "" && err == nil && !st.IsDir() {
+			out = append(out, p)
+		}
 	}
-	return path
+	return out
 }
 
-// resolveDose returns the RT Dose file named by path: path itself, or the
-// plan dose chosen in a folder (see dicomio.Folder.ChooseFor), with the
-// structure set and the RT Plan chosen with it ("" when none) and the
-// account of the choice. Every file of a folder is reported to Seen (role
-// "" but for the chosen ones, which get seenRole).
-func (in Inputs) resolveDose(seenRole, path string, opt dicomio.ChooseOptions) (dose, structures, plan string, account []string, err error) {
+// sameFile reports whether two paths name one file.
+func sameFile(a, b string) bool {
+	sa, errA := os.Stat(a)
+	sb, errB := os.Stat(b)
+	return errA == nil && errB == nil && os.SameFile(sa, sb)
+}
+
+// resolveDoses returns the RT Dose files given for one dose (label names
+// it in messages): the files themselves, or what a folder holds: the plan
+// dose chosen in it, or the parts of the dose when it holds those and no
+// whole (see dicomio.Folder.ChooseFor), with the structure set and the RT
+// Plan chosen with it ("" when none) and the account of the choice. Every
+// file of a folder is reported to Seen (role "" but for the chosen ones,
+// which get seenRole).
+func (in Inputs) resolveDoses(seenRole, label string, paths []string, opt dicomio.ChooseOptions) (doses []string, structures, plan string, account []string, err error) {
+	if len(paths) > 1 {
+		for _, p := range paths {
+			st, err := os.Stat(p)
+			if err != nil {
+				return nil, "", "", nil, badInput("%v", err)
+			}
+			if st.IsDir() {
+				return nil, "", "", nil, badInput("the %s is given as %d paths and %s is a folder: give one folder, or the RT Dose files to sum", label, len(paths), p)
+			}
+		}
+		return paths, "", "", nil, nil
+	}
+	path := paths[0]
 	st, err := os.Stat(path)
 	if err != nil {
-		return "", "", "", nil, badInput("%v", err)
+		return nil, "", "", nil, badInput("%v", err)
 	}
 	if !st.IsDir() {
-		return path, "", "", nil, nil
+		return []string{path}, "", "", nil, nil
 	}
 	folder, err := dicomio.ScanFolder(path)
 	if err != nil {
-		return "", "", "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+		return nil, "", "", nil, fmt.Errorf("%w: %w", ErrBadInput, err)
 	}
 	for _, d := range folder.Doses {
 		in.seen("", d.Path, d.Info, nil)
@@ -254,18 +307,25 @@ func (in Inputs) resolveDose(seenRole, path string, opt dicomio.ChooseOptions) (
 	}
 	choice, err := folder.ChooseFor(opt)
 	if err != nil {
-		return "", "", "", nil, fmt.Errorf("%w: folder %s (for the %s): %w", ErrBadInput, path, opt.Role, err)
+		return nil, "", "", nil, fmt.Errorf("%w: folder %s (for the %s): %w", ErrBadInput, path, opt.Role, err)
 	}
 	if choice.StructureSet != nil {
 		structures = choice.StructureSet.Path
 		in.seen("structures", structures, nil, choice.StructureSet.Set)
 	}
+	chosen := []dicomio.DoseFile{choice.Dose}
+	if len(choice.Doses) > 1 {
+		chosen = choice.Doses
+	}
+	for _, d := range chosen {
+		in.seen(seenRole, d.Path, d.Info, nil)
+		doses = append(doses, d.Path)
+	}
 	if choice.Plan != nil {
 		plan = choice.Plan.Path
 		in.seen("plan", plan, PlanSeen(choice.Plan.Plan), nil)
 	}
-	in.seen(seenRole, choice.Dose.Path, choice.Dose.Info, nil)
-	return choice.Dose.Path, structures, plan, choice.Account, nil
+	return doses, structures, plan, choice.Account, nil
 }
 
 // loadPlan reads the RT Plan, lists it among the inputs and checks it
@@ -423,6 +483,80 @@ func (l *Loaded) addDoseInput(role, path string, info *dicomio.DoseInfo, g *volu
 	}
 	l.Paths = append(l.Paths, path)
 	return nil
+}
+
+// loadDose reads the dose of one role ("reference", "evaluated"; label
+// names it in messages) from one file, or sums several (see
+// dicomio.ReadDoseSet), listing every file among the inputs.
+func (l *Loaded) loadDose(in Inputs, role, label string, paths []string) (*volume.Grid, *dicomio.DoseInfo, *dicomio.DoseSet, error) {
+	if len(paths) == 1 {
+		g, info, err := in.readDose(paths[0], label, role)
+		if err != nil {
+			return nil, nil, nil, err
+		}
+		if err := l.addDoseInput(role, paths[0], info, g); err != nil {
+			return nil, nil, nil, err
+		}
+		return g, info, nil, nil
+	}
+	for _, p := range paths {
+		in.seen(role, p, nil, nil)
+	}
+	set, err := dicomio.ReadDoseSet(paths)
+	if err != nil {
+		return nil, nil, nil, badInput("the %s given as %d RT Dose files to sum: %v", label, len(paths), err)
+	}
+	for _, part := range set.Parts {
+		in.seen(role, part.Path, part.Info, nil)
+	}
+	var inputErr error
+	g, info, err := set.Sum(func(i int, pg *volume.Grid) {
+		part := set.Parts[i]
+		if err := l.addDoseInput(role, part.Path, part.Info, pg); err != nil && inputErr == nil {
+			inputErr = err
+		}
+		inp := &l.Inputs[len(l.Inputs)-1]
+		inp.Part = i + 1
+		inp.Description = strings.TrimSpace(fmt.Sprintf("part %d of %d of the %s (%s%s) %s", i+1, len(set.Parts), label,
+			part.Info.DoseSummationType, partWhich(part.Info), inp.Description))
+	})
+	if inputErr != nil {
+		return nil, nil, nil, inputErr
+	}
+	if err != nil {
+		var se *dicomio.DoseSetError
+		if errors.As(err, &se) {
+			return nil, nil, nil, badInput("the %s given as %d RT Dose files to sum: %v", label, len(paths), err)
+		}
+		return nil, nil, nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+	}
+	max, _ := g.Max()
+	sum := result.DoseSum{Role: role, Parts: len(set.Parts), SummationType: set.SummationType,
+		Beams: set.Beams, FractionGroups: set.FractionGroups, Resampled: !set.SameGrid, Method: set.Method,
+		PlanCheck: "not checked: no RT Plan", Grid: GridInfo(g, float64(max))}
+	l.DoseSums = append(l.DoseSums, sum)
+	l.Notes = append(l.Notes, fmt.Sprintf("the %s is %s: %s", label, info.SumLabel(), set.Method))
+	for _, n := range set.Notes {
+		l.Notes = append(l.Notes, fmt.Sprintf("the %s: %s", label, n))
+	}
+	for _, w := range set.Warnings {
+		l.Warnings = append(l.Warnings, fmt.Sprintf("the %s: %s", label, w))
+	}
+	return g, info, set, nil
+}
+
+// partWhich names the beams or fraction group a part holds, e.g.
+// ", beam 2".
+func partWhich(d *dicomio.DoseInfo) string {
+	switch {
+	case len(d.ReferencedBeamNumbers) == 1:
+		return fmt.Sprintf(", beam %d", d.ReferencedBeamNumbers[0])
+	case len(d.ReferencedBeamNumbers) > 1:
+		return ", beams " + dicomio.FormatNumbers(d.ReferencedBeamNumbers)
+	case d.ReferencedFractionGroupNumber > 0:
+		return fmt.Sprintf(", fraction group %d", d.ReferencedFractionGroupNumber)
+	}
+	return ""
 }
 
 // GridInfo describes a grid's geometry for the result.

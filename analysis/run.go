@@ -73,6 +73,11 @@ type Settings struct {
 	// (Loaded.DoseTypeMismatch) with a warning; otherwise they are refused.
 	// Both come from the protocol's inputs section.
 	RefuseSwappedDoses, AllowDoseTypeMismatch bool
+	// ScaleEvaluated multiplies the evaluated dose before the comparison
+	// (a per-fraction dose against a plan total); the zero value leaves it
+	// as read. Doses whose ratio is close to a whole number are refused
+	// unless scaled (see Prepare).
+	ScaleEvaluated Scale
 }
 
 // SwapWarning begins the warning of doses that look swapped (see
@@ -124,13 +129,23 @@ type Prepared struct {
 	sizes          *roi.VoxelSize
 	notes          []string
 	warnings       []string
+	// scale is the factor the evaluated dose was multiplied by and
+	// scaleSource who asked for it ("" when nobody did).
+	scale       float64
+	scaleSource string
 }
 
 // Prepare rasterises the structure set's ROIs onto the reference grid and
-// resamples the evaluated dose onto it.
+// resamples the evaluated dose onto it. It multiplies the evaluated dose by
+// s.ScaleEvaluated when asked, and refuses doses that differ by a
+// whole-number ratio of 2 or more (a per-fraction dose against a plan
+// total), naming the likely factor (see Scale).
 func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}, kindSource: map[*roi.Region]string{}}
 	if l.Reference == nil {
+		if err := p.applyScale(s.ScaleEvaluated); err != nil {
+			return nil, err
+		}
 		return p, nil
 	}
 	if m := l.DoseTypeMismatch; m != "" {
@@ -149,6 +164,9 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	var err error
 	p.EvaluatedOnRef, err = l.Evaluated.ResampleOnto(l.Reference, float32(math.NaN()))
 	if err != nil && err != volume.ErrNoOverlap {
+		return nil, err
+	}
+	if err := p.applyScale(s.ScaleEvaluated); err != nil {
 		return nil, err
 	}
 	if s.Choices.NoStructures && l.Structures != nil {
@@ -233,7 +251,7 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	started := time.Now()
 	res := &result.Result{
 		SchemaVersion: result.SchemaVersion, Version: s.Version, Caution: result.Caution,
-		Protocol: s.Protocol, Inputs: p.Inputs, Plan: p.PlanInfo,
+		Protocol: s.Protocol, Inputs: p.Inputs, DoseSums: p.DoseSums, Plan: p.PlanInfo,
 		Warnings: append(append([]string{}, p.Loaded.Warnings...), p.warnings...),
 		Notes:    append(append([]string{}, p.Loaded.Notes...), p.notes...),
 		ROIs:     []result.ROI{}, Clusters: []result.Cluster{}, Rules: []result.RuleOutcome{},
@@ -258,6 +276,9 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	res.Choices.SubGridROIs = []string{}
 	res.Choices.SubGridStepMM = 0
 	res.Choices.UnusualNormDose = s.AcceptNormDose && s.Criteria.NormDose > 0 && !p.normDoseInBand(s.Criteria.NormDose)
+	if p.scaleSource != "" {
+		res.Choices.EvaluatedScale, res.Choices.EvaluatedScaleSource = result.Ptr(p.scale), p.scaleSource
+	}
 	opt := gamma.Options{Workers: s.Workers, Progress: s.Progress, Method: s.Method}
 	t0 := time.Now()
 	var gres *gamma.Result

@@ -147,6 +147,7 @@ type settingsKey struct {
 	AllowFrameMismatch bool               `json:"allow_frame_mismatch"`
 	NoStructures       bool               `json:"no_structures"`
 	AcceptNormDose     bool               `json:"accept_norm_dose"`
+	ScaleEvaluated     string             `json:"scale_evaluated,omitempty"`
 	// DeidentifyKey is deid.Key.ID: a new site key reruns a case; random
 	// keys ("per-run") do not.
 	DeidentifyKey string `json:"deidentify_key,omitempty"`
@@ -166,6 +167,7 @@ func SettingsHash(p *protocol.Protocol, s analysis.Settings, o Outputs, allowFra
 		SubGrid: s.SubGridROIs, SubGridStep: s.SubGridStep, MinClusterCC: s.MinClusterCC,
 		GammaMap: o.GammaMap, DifferenceMap: o.DifferenceMap, Report: o.Report, ReportPDF: o.ReportPDF, Deidentify: o.Deidentify,
 		AllowFrameMismatch: allowFrameMismatch, NoStructures: s.Choices.NoStructures, AcceptNormDose: s.AcceptNormDose,
+		ScaleEvaluated: s.ScaleEvaluated.Given,
 	}
 	if o.Deidentify {
 		k.DeidentifyKey = o.KeyID

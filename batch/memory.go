@@ -91,6 +91,28 @@ func DoseVoxels(path string) (int64, error) {
 	return best, nil
 }
 
+// DoseSetVoxels returns the voxel count of the dose given as paths: one
+// file or folder (see [DoseVoxels]), or several files to sum, whose grid
+// is the common grid of the sum (see dicomio.ReadDoseSet) or, when they
+// cannot be summed (refused later, with the reason), the largest of them.
+func DoseSetVoxels(paths []string) (int64, error) {
+	if len(paths) == 1 {
+		return DoseVoxels(paths[0])
+	}
+	var best int64
+	for _, p := range paths {
+		n, err := DoseVoxels(p)
+		if err != nil {
+			return 0, err
+		}
+		best = max(best, n)
+	}
+	if set, err := dicomio.ReadDoseSet(paths); err == nil {
+		best = max(best, set.Voxels())
+	}
+	return best, nil
+}
+
 // EstimateCase estimates the peak memory of case c from its dose headers
 // (see [EstimateBytes]); errors name the file.
 func EstimateCase(c Case) (int64, error) {

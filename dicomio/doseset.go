@@ -10,8 +10,24 @@ import (
 	"strconv"
 	"strings"
 
+	"github.com/suyashkumar/dicom/pkg/tag"
+
 	"voxgamma/volume"
 )
+
+// The keywords of the reference tags the messages of dose sets name.
+func init() {
+	for t, n := range map[tag.Tag]string{
+		tagReferencedBeamSequence:   "ReferencedBeamSequence",
+		tagReferencedBeamNumber:     "ReferencedBeamNumber",
+		tagReferencedFractionGroupS: "ReferencedFractionGroupSequence",
+		tagReferencedFractionGroupN: "ReferencedFractionGroupNumber",
+	} {
+		if _, ok := tagNames[t]; !ok {
+			tagNames[t] = n
+		}
+	}
+}
 
 // Doses in parts. Planning systems export one RT Dose per beam, Monte Carlo
 // engines one per beam or arc, a plan of several fraction groups one per

@@ -128,7 +128,14 @@ func (fo *Folder) scanFile(path string) {
 
 // Choice is what [Folder.Choose] picked, and an account of it.
 type Choice struct {
+	// Dose is the dose chosen; when the folder holds the parts of a dose
+	// rather than a whole (see Doses), the first of them.
 	Dose DoseFile
+	// Doses are the doses to sum when the folder holds several doses that
+	// are parts of one (DoseSummationType BEAM, FRACTION, ... and no
+	// whole-plan dose), in file-name order; nil when one dose was chosen.
+	// Whether they belong together is checked by [ReadDoseSet].
+	Doses []DoseFile
 	// StructureSet is the structure set in the dose's frame of reference;
 	// nil when the folder holds none.
 	StructureSet *StructureFile
@@ -282,15 +289,53 @@ func (fo *Folder) ChooseFor(opt ChooseOptions) (*Choice, error) {
 				rest = append(rest, d)
 			}
 		}
-		if len(fit) == 1 {
+		if len(fit) > 0 && len(rest) > 0 {
 			kind := "the planning system's dose"
 			if want == OriginIndependent {
 				kind = "an independent dose"
 			}
-			byRole = fmt.Sprintf("chose %s as the %s among %d doses of the same kind: it reads as %s (%s)", name(fit[0].Path), opt.Role, len(cands), kind, why)
+			chosen := name(fit[0].Path)
+			if len(fit) > 1 {
+				var names []string
+				for _, d := range fit {
+					names = append(names, name(d.Path))
+				}
+				sort.Strings(names)
+				chosen = strings.Join(names, ", ")
+				kind += "s"
+			}
+			byRole = fmt.Sprintf("chose %s as the %s among %d doses of the same kind: it reads as %s (%s)", chosen, opt.Role, len(cands), kind, why)
+			if len(fit) > 1 {
+				byRole = fmt.Sprintf("chose %s as the %s among %d doses of the same kind: they read as %s (%s)", chosen, opt.Role, len(cands), kind, why)
+			}
 			cands = fit
 			others = append(others, rest...)
 		}
+	}
+	if len(cands) > 1 && best == 2 {
+		// The parts of a dose (beams, fraction groups, sessions) and no
+		// whole: they are summed, once ReadDoseSet has checked that they
+		// belong together.
+		sort.Slice(cands, func(i, j int) bool { return cands[i].Path < cands[j].Path })
+		c := &Choice{Dose: cands[0], Doses: cands}
+		var names []string
+		for _, d := range cands {
+			names = append(names, fmt.Sprintf("%s (%s)", name(d.Path), summationLabel(d.Info.DoseSummationType)))
+		}
+		c.Account = append(c.Account, fmt.Sprintf("chose %d doses to sum, the folder holding no whole-plan dose: %s", len(cands), strings.Join(names, ", ")))
+		if byRole != "" {
+			c.Account = append(c.Account, byRole)
+		}
+		for _, o := range others {
+			c.Account = append(c.Account, fmt.Sprintf("ignored %s: %s, not read as the %s", name(o.Path), summationLabel(o.Info.DoseSummationType), opt.Role))
+		}
+		c.Account = append(c.Account, setAside...)
+		if err := c.chooseStructures(fo, name); err != nil {
+			return nil, err
+		}
+		c.choosePlan(fo, name)
+		c.Account = append(c.Account, ignored...)
+		return c, nil
 	}
 	if len(cands) > 1 {
 		var names []string
@@ -320,7 +365,18 @@ func (fo *Folder) ChooseFor(opt ChooseOptions) (*Choice, error) {
 		c.Account = append(c.Account, fmt.Sprintf("ignored %s: %s", name(o.Path), summationLabel(o.Info.DoseSummationType)))
 	}
 	c.Account = append(c.Account, setAside...)
+	if err := c.chooseStructures(fo, name); err != nil {
+		return nil, err
+	}
+	c.choosePlan(fo, name)
+	c.Account = append(c.Account, ignored...)
+	return c, nil
+}
 
+// chooseStructures picks the structure set in the chosen dose's frame of
+// reference.
+func (c *Choice) chooseStructures(fo *Folder, name func(string) string) error {
+	in := c.Dose.Info
 	var match []StructureFile
 	var mismatch []string
 	for _, s := range fo.StructureSets {
@@ -338,7 +394,7 @@ func (fo *Folder) ChooseFor(opt ChooseOptions) (*Choice, error) {
 			names = append(names, name(s.Path))
 		}
 		sort.Strings(names)
-		return nil, fmt.Errorf("%d RT Structure Set files in %s share the dose's frame of reference: %s; name the file to use", len(match), fo.Dir, strings.Join(names, ", "))
+		return fmt.Errorf("%d RT Structure Set files in %s share the dose's frame of reference: %s; name the file to use", len(match), fo.Dir, strings.Join(names, ", "))
 	case len(match) == 1:
 		s := match[0]
 		c.StructureSet = &s
@@ -349,9 +405,7 @@ func (fo *Folder) ChooseFor(opt ChooseOptions) (*Choice, error) {
 		c.Account = append(c.Account, "no RT Structure Set in the folder")
 	}
 	c.Account = append(c.Account, mismatch...)
-	c.choosePlan(fo, name)
-	c.Account = append(c.Account, ignored...)
-	return c, nil
+	return nil
 }
 
 // sameFile returns path made absolute with symbolic links resolved, for

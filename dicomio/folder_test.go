@@ -117,11 +117,23 @@ func TestChooseOnlyBeamDose(t *testing.T) {
 		!hasLine(c.Account, "no RT Structure Set in the folder") || c.StructureSet != nil {
 		t.Errorf("account:\n%s", c.Report())
 	}
-	// Two beam doses and no plan dose: ask.
+	// Two beam doses and no plan dose: the parts of one dose, to sum
+	// (whether they belong together is ReadDoseSet's to check).
 	writeDoseKind(t, filepath.Join(dir, "beam2.dcm"), ids, "BEAM")
 	fo, _ = dicomio.ScanFolder(dir)
-	if _, err := fo.Choose(); err == nil || !strings.Contains(err.Error(), "name the file to use") {
-		t.Errorf("two beam doses: %v", err)
+	c, err = fo.Choose()
+	if err != nil {
+		t.Fatalf("two beam doses: %v", err)
+	}
+	if len(c.Doses) != 2 || filepath.Base(c.Doses[0].Path) != "beam.dcm" || filepath.Base(c.Doses[1].Path) != "beam2.dcm" || c.Dose.Path != c.Doses[0].Path ||
+		!hasLine(c.Account, "chose 2 doses to sum, the folder holding no whole-plan dose: beam.dcm (DoseSummationType BEAM), beam2.dcm (DoseSummationType BEAM)") {
+		t.Errorf("two beam doses: %+v\n%s", c.Doses, c.Report())
+	}
+	// A plan dose beside them is the dose; the beams are set aside.
+	writeDoseKind(t, filepath.Join(dir, "plan.dcm"), ids, "PLAN")
+	fo, _ = dicomio.ScanFolder(dir)
+	if c, err = fo.Choose(); err != nil || c.Doses != nil || filepath.Base(c.Dose.Path) != "plan.dcm" || !hasLine(c.Account, "ignored beam2.dcm: DoseSummationType BEAM") {
+		t.Errorf("plan dose beside beams: %v\n%v", err, c)
 	}
 }
 

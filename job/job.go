@@ -76,6 +76,10 @@ type Overrides struct {
 	// AcceptNormDose uses a normalisation dose outside the plausible band
 	// of the reference maximum as given (see analysis.NormDoseBand).
 	AcceptNormDose bool
+	// ScaleEvaluated multiplies the evaluated dose before the comparison:
+	// "fractions", a factor or "1/N" (see analysis.ParseScale); "" leaves
+	// it as read.
+	ScaleEvaluated string
 	// Version is recorded in the result.
 	Version string
 }
@@ -228,6 +232,11 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 			s.NormDoseSource = "user"
 		}
 	}
+	if ov.ScaleEvaluated != "" {
+		if s.ScaleEvaluated, err = analysis.ParseScale(ov.ScaleEvaluated); err != nil {
+			return s, err
+		}
+	}
 	if ov.Exhaustive {
 		s.Method = gamma.Exhaustive
 		s.Choices.Method = s.Method.String()
@@ -361,7 +370,8 @@ func CompareFor(ctx context.Context, in analysis.Inputs, s analysis.Settings, ou
 	if err != nil {
 		return nil, err
 	}
-	given := []string{in.Reference, in.ReferencePoints, in.Evaluated, in.Structures, in.Plan}
+	given := append([]string{in.Reference, in.ReferencePoints, in.Evaluated, in.Structures, in.Plan}, in.ReferenceFiles...)
+	given = append(given, in.EvaluatedFiles...)
 	if err := outs.Check(append(given, l.Paths...), force); err != nil {
 		return nil, err
 	}

@@ -181,6 +181,9 @@ func globalConditions(r *result.Result) []string {
 	if r.Choices.Method != "" {
 		c = append(c, "search method "+r.Choices.Method+" (--"+r.Choices.Method+")")
 	}
+	if x := r.Choices.EvaluatedScale; x != nil && *x != 1 {
+		c = append(c, fmt.Sprintf("evaluated dose multiplied by %s (%s)", strconv.FormatFloat(*x, 'g', -1, 64), r.Choices.EvaluatedScaleSource))
+	}
 	return c
 }
 

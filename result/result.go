@@ -50,6 +50,10 @@ type Result struct {
 	Choices Choices `json:"choices"`
 	// Inputs describes each input file.
 	Inputs []Input `json:"inputs"`
+	// DoseSums describes each dose made by summing several RT Dose files
+	// (the beams of a plan, its fraction groups, sessions); omitted when
+	// every dose was one file.
+	DoseSums []DoseSum `json:"dose_sums,omitempty"`
 	// Plan is the treatment plan the doses belong to, as its RT Plan file
 	// says; nil (omitted) when no plan was given or found.
 	Plan *Plan `json:"plan,omitempty"`
@@ -276,6 +280,12 @@ type Choices struct {
 	UnusualNormDose bool `json:"unusual_norm_dose_allowed"`
 	// Method is set when the search method was chosen on the command line.
 	Method string `json:"method,omitempty"`
+	// EvaluatedScale is the factor the evaluated dose was multiplied by
+	// before the comparison (a per-fraction dose against a plan total),
+	// null when it was not scaled; EvaluatedScaleSource says who asked and
+	// where the factor came from.
+	EvaluatedScale       *float64 `json:"evaluated_scale"`
+	EvaluatedScaleSource string   `json:"evaluated_scale_source,omitempty"`
 }
 
 // RuleOutcome is one protocol rule and whether it was met.
@@ -325,6 +335,34 @@ type Input struct {
 	Grid *GridInfo `json:"grid,omitempty"`
 	// Description is anything else worth saying about the input.
 	Description string `json:"description,omitempty"`
+	// Part is this file's place (1, 2, ...) among the files summed into
+	// the dose of its role (see DoseSum); 0 for a file used whole.
+	Part int `json:"part,omitempty"`
+}
+
+// DoseSum describes a dose made by summing several RT Dose files.
+type DoseSum struct {
+	// Role is "reference" or "evaluated"; the files summed are the inputs
+	// of that role, numbered by Part.
+	Role string `json:"role"`
+	// Parts is the number of files summed.
+	Parts int `json:"parts"`
+	// SummationType is the parts' DoseSummationType (BEAM, BEAM_SESSION,
+	// FRACTION, FRACTION_SESSION).
+	SummationType string `json:"dose_summation_type"`
+	// Beams and FractionGroups are the beam and fraction group numbers
+	// the parts name, ascending.
+	Beams          []int `json:"beams"`
+	FractionGroups []int `json:"fraction_groups"`
+	// Resampled is true when the parts were on different grids and were
+	// interpolated onto a common grid; Method says how they were summed.
+	Resampled bool   `json:"resampled"`
+	Method    string `json:"method"`
+	// PlanCheck says what the parts were checked against: every beam of
+	// the RT Plan, or why not.
+	PlanCheck string `json:"plan_check"`
+	// Grid is the grid of the sum.
+	Grid *GridInfo `json:"grid"`
 }
 
 // GridInfo describes a dose grid's geometry.

@@ -22,14 +22,14 @@ import (
 // compareFlags are the options of compare (and of the commands built on it).
 type compareFlags struct {
 	comparisonFlags
-	reference, referencePoints, evaluated, structures string
-	plan                                              string
-	protocol                                          string
-	jsonOut, csvOut, gammaMap, diffMap, reportOut     string
-	reportPDF                                         string
-	allowFrameMismatch, force, deidentify             bool
-	maxMemory, siteKey                                string
-	rec                                               recordFlags
+	reference, evaluated                          []string
+	referencePoints, structures, plan             string
+	protocol                                      string
+	jsonOut, csvOut, gammaMap, diffMap, reportOut string
+	reportPDF                                     string
+	allowFrameMismatch, force, deidentify         bool
+	maxMemory, siteKey                            string
+	rec                                           recordFlags
 }
 
 // comparisonFlags are the options that shape a comparison beyond its
@@ -47,6 +47,7 @@ type comparisonFlags struct {
 	workers                     int
 	noStructures                bool
 	acceptNormDose              bool
+	scaleEvaluated              string
 }
 
 // overrides turns the options given on the command line into job
@@ -56,7 +57,7 @@ func (f *comparisonFlags) overrides(cmd *cobra.Command) job.Overrides {
 	ov := job.Overrides{
 		KindRules: f.kindRules, VDoses: f.vDoses, SubGrid: f.subgrid, SubGridStep: f.subgridStep,
 		MinClusterCC: f.minClusterCC, Workers: f.workers, Exhaustive: f.exhaustive, Version: version,
-		NoStructures: f.noStructures, AcceptNormDose: f.acceptNormDose,
+		NoStructures: f.noStructures, AcceptNormDose: f.acceptNormDose, ScaleEvaluated: f.scaleEvaluated,
 	}
 	if changed("criteria") {
 		ov.Criteria = f.criteria
@@ -85,14 +86,15 @@ func (f *comparisonFlags) registerVerdictFlags(cmd *cobra.Command) {
 	fl := cmd.Flags()
 	fl.BoolVar(&f.noStructures, "no-structures", false, "compare deliberately without a structure set (none is looked for in the reference folder): per-ROI rules are then not applicable instead of not met")
 	fl.BoolVar(&f.acceptNormDose, "accept-norm-dose", false, "use --norm-dose (or the protocol's norm_dose_gy) as given even when it lies outside 0.5–1.5 × the reference maximum")
+	fl.StringVar(&f.scaleEvaluated, "scale-evaluated", "", "multiply the evaluated dose by a factor before comparing (a per-fraction dose against a plan total): fractions (the RT Plan's number of fractions), a number such as 30, or 1/N; never done unasked")
 }
 
 func (f *compareFlags) register(cmd *cobra.Command) {
 	f.registerVerdictFlags(cmd)
 	fl := cmd.Flags()
-	fl.StringVar(&f.reference, "reference", "", "reference RT Dose file or folder (the planning system's dose)")
+	fl.StringArrayVar(&f.reference, "reference", nil, "reference RT Dose file or folder (the planning system's dose); repeat it to sum per-beam or per-fraction-group doses of one plan")
 	fl.StringVar(&f.referencePoints, "reference-points", "", "reference measured points: CSV with header x_mm,y_mm,z_mm,dose_gy (instead of --reference)")
-	fl.StringVar(&f.evaluated, "evaluated", "", "evaluated RT Dose file or folder (the independent dose)")
+	fl.StringArrayVar(&f.evaluated, "evaluated", nil, "evaluated RT Dose file or folder (the independent dose); repeat it to sum per-beam or per-fraction-group doses")
 	fl.StringVar(&f.structures, "structures", "", "RT Structure Set file (default: the one in the reference folder, if any)")
 	fl.StringVar(&f.plan, "plan", "", "RT Plan file, shown as context in the report: label, prescription, fractions, beams (default: the plan the reference dose names, when it is in the reference folder)")
 	fl.StringVar(&f.criteria, "criteria", "3%/2mm", "dose-difference and distance criteria, e.g. 3%/2mm, 2%/1mm")
@@ -134,16 +136,16 @@ func checkMemory(f *compareFlags) error {
 		budget, source = b, "--max-memory"
 	}
 	var nr int64
-	if f.reference != "" {
-		n, err := batch.DoseVoxels(f.reference)
+	if len(f.reference) > 0 {
+		n, err := batch.DoseSetVoxels(f.reference)
 		if err != nil {
-			return fmt.Errorf("reference %s: %w", f.reference, err)
+			return fmt.Errorf("reference %s: %w", strings.Join(f.reference, ", "), err)
 		}
 		nr = n
 	}
-	ne, err := batch.DoseVoxels(f.evaluated)
+	ne, err := batch.DoseSetVoxels(f.evaluated)
 	if err != nil {
-		return fmt.Errorf("evaluated dose %s: %w", f.evaluated, err)
+		return fmt.Errorf("evaluated dose %s: %w", strings.Join(f.evaluated, ", "), err)
 	}
 	need := batch.EstimateBytes(nr, ne)
 	if need > budget {
@@ -244,6 +246,30 @@ func settingsFrom(cmd *cobra.Command, f *compareFlags) (analysis.Settings, error
 	return job.Settings(p, f.overrides(cmd))
 }
 
+// inputs are the input files given, for analysis: one path per dose, or
+// several files to sum.
+func (f *compareFlags) inputs() analysis.Inputs {
+	in := analysis.Inputs{ReferencePoints: f.referencePoints, Structures: f.structures, Plan: f.plan,
+		AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
+	if len(f.reference) == 1 {
+		in.Reference = f.reference[0]
+	} else {
+		in.ReferenceFiles = f.reference
+	}
+	if len(f.evaluated) == 1 {
+		in.Evaluated = f.evaluated[0]
+	} else {
+		in.EvaluatedFiles = f.evaluated
+	}
+	return in
+}
+
+// givenPaths lists every input path given, which no output may replace.
+func (f *compareFlags) givenPaths() []string {
+	p := append(append([]string{}, f.reference...), f.evaluated...)
+	return append(p, f.referencePoints, f.structures, f.plan)
+}
+
 func (f *compareFlags) outputs() job.Outputs {
 	return job.Outputs{JSON: f.jsonOut, CSV: f.csvOut, GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.reportOut, ReportPDF: f.reportPDF}
 }
@@ -257,9 +283,13 @@ func (f *compareFlags) deidScope(g *globals) (*deid.Scope, error) {
 		return nil, err
 	}
 	d := run.Base()
-	d.Path(f.reference, "reference")
+	for _, p := range f.reference {
+		d.Path(p, "reference")
+	}
 	d.Path(f.referencePoints, "reference points")
-	d.Path(f.evaluated, "evaluated")
+	for _, p := range f.evaluated {
+		d.Path(p, "evaluated")
+	}
 	d.Path(f.structures, "structures")
 	return d, nil
 }
@@ -277,21 +307,20 @@ func runCompare(ctx context.Context, cmd *cobra.Command, g *globals, f *compareF
 	if f.referencePoints != "" && (f.gammaMap != "" || f.diffMap != "" || f.reportOut != "" || f.reportPDF != "") {
 		return nil, errors.New("--gamma-map, --difference-map, --report and --report-pdf need a reference grid, not --reference-points")
 	}
-	if f.reference == "" && f.referencePoints == "" {
+	if len(f.reference) == 0 && f.referencePoints == "" {
 		return nil, errors.New("--reference (or --reference-points) is required")
 	}
-	if f.evaluated == "" {
+	if len(f.evaluated) == 0 {
 		return nil, errors.New("--evaluated is required")
 	}
 	outs := f.outputs()
-	if err := outs.Check([]string{f.reference, f.referencePoints, f.evaluated, f.structures, f.plan}, f.force); err != nil {
+	if err := outs.Check(f.givenPaths(), f.force); err != nil {
 		return nil, err
 	}
 	if err := checkMemory(f); err != nil {
 		return nil, err
 	}
-	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated,
-		Structures: f.structures, Plan: f.plan, AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
+	in := f.inputs()
 	if d != nil {
 		in.Seen = d.Seen
 	}

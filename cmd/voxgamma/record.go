@@ -104,9 +104,10 @@ func compareCaseID(f *compareFlags) string {
 	if f.rec.caseID != "" {
 		return f.rec.caseID
 	}
-	ref := f.reference
-	if ref == "" {
-		ref = f.referencePoints
+	ref := f.referencePoints
+	if len(f.reference) > 0 {
+		// Several files (beam doses to sum): their folder names the case.
+		ref = f.reference[0]
 	}
 	if st, err := os.Stat(ref); err == nil && st.IsDir() {
 		return filepath.Base(filepath.Clean(ref))

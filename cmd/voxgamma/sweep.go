@@ -112,13 +112,13 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 	if len(doses) == 0 || len(dtas) == 0 || len(normList) == 0 {
 		return fmt.Errorf("a sweep needs at least one dose criterion, one DTA and one normalisation")
 	}
-	if err := (job.Outputs{JSON: f.jsonOut, CSV: f.csvOut}).Check([]string{f.reference, f.referencePoints, f.evaluated, f.structures}, f.force); err != nil {
+	if err := (job.Outputs{JSON: f.jsonOut, CSV: f.csvOut}).Check(f.givenPaths(), f.force); err != nil {
 		return err
 	}
-	if f.reference == "" && f.referencePoints == "" {
+	if len(f.reference) == 0 && f.referencePoints == "" {
 		return fmt.Errorf("--reference (or --reference-points) is required")
 	}
-	in := analysis.Inputs{Reference: f.reference, ReferencePoints: f.referencePoints, Evaluated: f.evaluated, Structures: f.structures, AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
+	in := f.inputs()
 	if d != nil {
 		in.Seen = d.Seen
 	}
