@@ -58,6 +58,11 @@ type Outputs struct {
 	// KeyID names the de-identification key in the settings hash (see
 	// deid.Key.ID); set by Run and NewWatcher.
 	KeyID string
+	// ResultsTo and ResultsAET send each case's gamma and difference maps
+	// to a DICOM node (see job.Outputs); a case whose maps could not be
+	// sent is not evaluated (in a batch, its error says why; a watched
+	// case is tried again at the next poll).
+	ResultsTo, ResultsAET string
 }
 
 // Options configure a batch run.
@@ -665,7 +670,7 @@ func compute(ctx context.Context, parent string, w caseWork, inputs []InputHash,
 		}
 	}()
 	t0 := time.Now()
-	outs := job.Outputs{JSON: filepath.Join(tmp, ResultJSON), CSV: filepath.Join(tmp, ResultCSV)}
+	outs := job.Outputs{JSON: filepath.Join(tmp, ResultJSON), CSV: filepath.Join(tmp, ResultCSV), ResultsTo: w.outs.ResultsTo, ResultsAET: w.outs.ResultsAET}
 	if w.outs.GammaMap {
 		outs.GammaMap = filepath.Join(tmp, GammaMapFile)
 	}

@@ -21,6 +21,7 @@ import (
 	"voxgamma/analysis"
 	"voxgamma/deid"
 	"voxgamma/dicomio"
+	"voxgamma/dicomsend"
 	"voxgamma/gamma"
 	"voxgamma/internal/atomicfile"
 	"voxgamma/internal/fault"
@@ -263,6 +264,30 @@ func percents(v []float64) string {
 // Report is the HTML review page, ReportPDF the same review as a PDF.
 type Outputs struct {
 	JSON, CSV, GammaMap, DifferenceMap, Report, ReportPDF string
+	// ResultsTo, when not empty, is a DICOM node (AET@HOST:PORT, see
+	// dicomsend.ParseDestination) the gamma and difference maps are sent
+	// to as RT Dose files (written for the purpose when not asked for as
+	// .dcm files); ResultsAET is the AE title voxgamma calls from
+	// (dicomsend.DefaultCallingAETitle when empty).
+	ResultsTo, ResultsAET string
+}
+
+// Destination returns the node the results are sent to; nil when none.
+func (o Outputs) Destination() (*dicomsend.Destination, error) {
+	if o.ResultsTo == "" {
+		return nil, nil
+	}
+	d, err := dicomsend.ParseDestination(o.ResultsTo)
+	if err != nil {
+		return nil, fmt.Errorf("--results-to %w", err)
+	}
+	if o.ResultsAET != "" {
+		if err := dicomsend.CheckAETitle(o.ResultsAET); err != nil {
+			return nil, fmt.Errorf("--results-aet: %w", err)
+		}
+		d.CallingAETitle = o.ResultsAET
+	}
+	return &d, nil
 }
 
 // List returns the names of the outputs to write.
@@ -282,6 +307,13 @@ func (o Outputs) List() []string {
 // socket or device node), missing or unwritable directories and map names
 // without a known extension.
 func (o Outputs) Check(inputs []string, force bool) error {
+	if d, err := o.Destination(); err != nil {
+		return err
+	} else if d != nil {
+		if err := dicomsend.Available(); err != nil {
+			return fmt.Errorf("--results-to %s: %w", d, err)
+		}
+	}
 	seen := map[string]string{}
 	in := map[string]bool{}
 	for _, p := range inputs {
@@ -414,7 +446,9 @@ func CompareFor(ctx context.Context, in analysis.Inputs, s analysis.Settings, ou
 // review page are scrubbed, and the DICOM maps carry the patient's
 // pseudonyms, remapped study, frame of reference and plan UIDs and no
 // dates. A reference without a study or frame-of-reference UID gets new
-// ones in the maps (the result says so).
+// ones in the maps (the result says so). With o.ResultsTo, the gamma and
+// difference maps are sent to that DICOM node (see sendMaps) before
+// anything is put in place.
 func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 	r := out.Result
 	var ids dicomio.Identifiers
@@ -440,7 +474,7 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 	for _, o := range []*dicomio.WriteOptions{&gammaOpt, &diffOpt} {
 		o.DoseSummationType, o.ReferencedFractionGroupNumber, o.ReferencedBeamNumber = sum, fg, beam
 	}
-	if o.GammaMap != "" || o.DifferenceMap != "" {
+	if o.GammaMap != "" || o.DifferenceMap != "" || o.ResultsTo != "" {
 		if ids.StudyInstanceUID == "" {
 			ids.StudyInstanceUID = dicomio.NewUID()
 			r.Notes = append(r.Notes, "the reference has no StudyInstanceUID: the DICOM maps carry a new one")
@@ -475,16 +509,29 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 		fault.Point(fault.JobWriteStaged)
 		return nil
 	}
-	if err := stage(o.JSON, func(p string) error { return report.WriteJSON(p, r) }); err != nil {
-		return err
-	}
-	if err := stage(o.CSV, func(p string) error { return report.WriteCSV(p, r) }); err != nil {
-		return err
-	}
 	if err := stage(o.GammaMap, func(p string) error { return writeMapAs(p, o.GammaMap, out.Gamma, ids, gammaOpt) }); err != nil {
 		return err
 	}
 	if err := stage(o.DifferenceMap, func(p string) error { return writeMapAs(p, o.DifferenceMap, out.Difference, ids, diffOpt) }); err != nil {
+		return err
+	}
+	// Sent before anything is put in place (a node that cannot be
+	// reached leaves no outputs, like any other output that fails), and
+	// before the result is written, which says where they went.
+	if err := sendMaps(o, out, ids, gammaOpt, diffOpt, func(final string) string {
+		for _, s := range done {
+			if s.final == final {
+				return s.tmp
+			}
+		}
+		return ""
+	}); err != nil {
+		return err
+	}
+	if err := stage(o.JSON, func(p string) error { return report.WriteJSON(p, r) }); err != nil {
+		return err
+	}
+	if err := stage(o.CSV, func(p string) error { return report.WriteCSV(p, r) }); err != nil {
 		return err
 	}
 	var page *report.Page
@@ -520,6 +567,54 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 		renamed++
 	}
 	finished = true
+	return nil
+}
+
+// sendMaps sends the gamma and difference maps to o's DICOM node, when it
+// names one: the staged RT Dose files when they were asked for as .dcm
+// outputs (staged(final) returns the staging path), else maps written for
+// the purpose into a temporary folder (removed after).
+func sendMaps(o Outputs, out *analysis.Outcome, ids dicomio.Identifiers, gammaOpt, diffOpt dicomio.WriteOptions, staged func(string) string) error {
+	d, err := o.Destination()
+	if err != nil || d == nil {
+		return err
+	}
+	if out.Gamma == nil || out.Difference == nil {
+		return fmt.Errorf("--results-to %s: there are no maps to send (the reference is not a grid)", d)
+	}
+	var files []string
+	var tmpDir string
+	defer func() {
+		if tmpDir != "" {
+			os.RemoveAll(tmpDir)
+		}
+	}()
+	for _, m := range []struct {
+		final, name string
+		grid        *volume.Grid
+		opt         dicomio.WriteOptions
+	}{{o.GammaMap, "gamma.dcm", out.Gamma, gammaOpt}, {o.DifferenceMap, "difference.dcm", out.Difference, diffOpt}} {
+		if strings.EqualFold(filepath.Ext(m.final), ".dcm") {
+			if p := staged(m.final); p != "" {
+				files = append(files, p)
+				continue
+			}
+		}
+		if tmpDir == "" {
+			if tmpDir, err = os.MkdirTemp("", "voxgamma-send-"); err != nil {
+				return fmt.Errorf("--results-to %s: %w", d, err)
+			}
+		}
+		p := filepath.Join(tmpDir, m.name)
+		if _, err := dicomio.WriteDose(p, m.grid, ids, m.opt); err != nil {
+			return fmt.Errorf("--results-to %s: %w", d, err)
+		}
+		files = append(files, p)
+	}
+	if err := dicomsend.Send(context.Background(), *d, files); err != nil {
+		return fmt.Errorf("results not sent (nothing written): %w", err)
+	}
+	out.Result.Notes = append(out.Result.Notes, fmt.Sprintf("the gamma and difference maps were sent to %s (DICOM C-STORE, dcmtk's storescu)", d))
 	return nil
 }
 

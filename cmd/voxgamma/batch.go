@@ -17,6 +17,8 @@ import (
 	"github.com/spf13/cobra"
 
 	"voxgamma/batch"
+	"voxgamma/dicomsend"
+	"voxgamma/job"
 	"voxgamma/protocol"
 )
 
@@ -31,6 +33,7 @@ type caseFlags struct {
 	rec                             recordFlags
 	siteKey                         string
 	reportPDF                       bool
+	resultsTo, resultsAET           string
 }
 
 func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
@@ -56,12 +59,28 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 	fl.BoolVar(&f.reportPDF, "report-pdf", false, "also write each case's review as report.pdf (for the archive)")
 	fl.BoolVar(&f.deid, "deidentify", false, "de-identify every output, status, state and log line (DICOM PS3.15 Annex E intent): keyed pseudonyms for names and IDs, remapped UIDs, no dates, descriptions or input paths (docs/patient-data.md)")
 	deidFlags(cmd, &f.siteKey)
+	fl.StringVar(&f.resultsTo, "results-to", "", "send each case's gamma and difference maps (RT Dose) to this DICOM node, AET@HOST:PORT, with dcmtk's storescu")
+	fl.StringVar(&f.resultsAET, "results-aet", "", "AE title to call --results-to from (default "+dicomsend.DefaultCallingAETitle+")")
 	fl.IntVar(&f.workers, "workers", 0, "gamma worker goroutines per case (default: the cores divided among the cases run at once)")
 	f.rec.register(cmd, false)
 }
 
+// checkResultsTo refuses, before any case is run, a --results-to that
+// names no valid node or that cannot be used (no storescu).
+func (f *caseFlags) checkResultsTo() error {
+	d, err := job.Outputs{ResultsTo: f.resultsTo, ResultsAET: f.resultsAET}.Destination()
+	if err != nil || d == nil {
+		return err
+	}
+	if err := dicomsend.Available(); err != nil {
+		return fmt.Errorf("--results-to %s: %w", d, err)
+	}
+	return nil
+}
+
 func (f *caseFlags) outputs() batch.Outputs {
-	return batch.Outputs{GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.report, ReportPDF: f.reportPDF, Deidentify: f.deid}
+	return batch.Outputs{GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.report, ReportPDF: f.reportPDF, Deidentify: f.deid,
+		ResultsTo: f.resultsTo, ResultsAET: f.resultsAET}
 }
 
 // caseBar is stderr for a long run: log lines pass through, and on a
@@ -228,6 +247,9 @@ last line on stderr gives the counts.`,
 			}
 			if d != nil {
 				d.Base().File(args[0], "the manifest")
+			}
+			if err := f.checkResultsTo(); err != nil {
+				return err
 			}
 			cases, err := batch.ReadManifest(args[0])
 			if err != nil {

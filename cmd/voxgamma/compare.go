@@ -14,6 +14,7 @@ import (
 	"voxgamma/analysis"
 	"voxgamma/batch"
 	"voxgamma/deid"
+	"voxgamma/dicomsend"
 	"voxgamma/job"
 	"voxgamma/protocol"
 	"voxgamma/result"
@@ -30,6 +31,7 @@ type compareFlags struct {
 	allowFrameMismatch, force, deidentify         bool
 	maxMemory, siteKey                            string
 	rec                                           recordFlags
+	resultsTo, resultsAET                         string
 }
 
 // comparisonFlags are the options that shape a comparison beyond its
@@ -121,6 +123,8 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 	fl.BoolVar(&f.deidentify, "deidentify", false, "de-identify every output and message (DICOM PS3.15 Annex E intent): patient names and IDs become keyed pseudonyms, UIDs are remapped, dates, descriptions and file paths are left out (docs/patient-data.md)")
 	deidFlags(cmd, &f.siteKey)
 	fl.Float64Var(&f.minClusterCC, "min-cluster", 0.01, "smallest failing cluster listed, cm³")
+	fl.StringVar(&f.resultsTo, "results-to", "", "send the gamma and difference maps (RT Dose, DoseType ERROR) to this DICOM node, AET@HOST:PORT, with dcmtk's storescu")
+	fl.StringVar(&f.resultsAET, "results-aet", "", "AE title to call --results-to from (default "+dicomsend.DefaultCallingAETitle+")")
 	fl.StringVar(&f.maxMemory, "max-memory", "", "memory budget, e.g. 8GiB (default: 70 % of the available memory); a comparison estimated to need more is refused before loading")
 }
 
@@ -271,7 +275,8 @@ func (f *compareFlags) givenPaths() []string {
 }
 
 func (f *compareFlags) outputs() job.Outputs {
-	return job.Outputs{JSON: f.jsonOut, CSV: f.csvOut, GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.reportOut, ReportPDF: f.reportPDF}
+	return job.Outputs{JSON: f.jsonOut, CSV: f.csvOut, GammaMap: f.gammaMap, DifferenceMap: f.diffMap, Report: f.reportOut, ReportPDF: f.reportPDF,
+		ResultsTo: f.resultsTo, ResultsAET: f.resultsAET}
 }
 
 // deidScope starts the de-identification when asked (see startDeid) and

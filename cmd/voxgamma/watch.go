@@ -88,6 +88,9 @@ failed its rules, 1 when one could not be evaluated.`,
 				}
 			}
 			defer memoryLimit(budget)()
+			if err := f.checkResultsTo(); err != nil {
+				return err
+			}
 			log := runLogger(g, g.stderr)
 			opt := batch.WatchOptions{Dir: args[0], Out: out, Settle: settle, Protocol: f.protocol,
 				Overrides: f.overrides(cmd), Outputs: f.outputs(), AllowFrameMismatch: f.allowFrameMismatch,
