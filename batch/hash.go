@@ -81,7 +81,7 @@ func hashPath(path string) (sum string, folder bool, err error) {
 // the file.
 func HashInputs(c Case) ([]InputHash, error) {
 	var out []InputHash
-	for _, in := range [][2]string{{"reference", c.Reference}, {"evaluated", c.Evaluated}, {"structures", c.Structures}} {
+	for _, in := range c.roleInputs() {
 		if in[1] == "" {
 			continue
 		}

@@ -36,11 +36,50 @@ type Case struct {
 	Protocol string `json:"protocol"`
 	// Labels are the case's grouping labels for the results store.
 	Labels
+	// ReferenceFiles and EvaluatedFiles, when not empty, are the RT Dose
+	// files whose sum is the dose (beam or fraction-group doses of one
+	// plan, see analysis.Inputs), used instead of Reference or Evaluated;
+	// a watched case sets them, a manifest names a folder instead.
+	ReferenceFiles, EvaluatedFiles []string `json:"-"`
 	// Index is the case's 0-based position in the manifest (the shard rule
 	// counts it); Row names the row in messages: "row 3 (line 4)" for CSV,
 	// "row 3" for JSON.
 	Index int    `json:"-"`
 	Row   string `json:"-"`
+}
+
+// doses returns the paths of one dose of the case: the files to sum, else
+// the one path.
+func doses(one string, files []string) []string {
+	if len(files) > 0 {
+		return files
+	}
+	if one == "" {
+		return nil
+	}
+	return []string{one}
+}
+
+// roleInputs lists the case's inputs by role, in the order reference,
+// evaluated, structures (the structures "" when none).
+func (c Case) roleInputs() [][2]string {
+	var out [][2]string
+	for _, p := range doses(c.Reference, c.ReferenceFiles) {
+		out = append(out, [2]string{"reference", p})
+	}
+	for _, p := range doses(c.Evaluated, c.EvaluatedFiles) {
+		out = append(out, [2]string{"evaluated", p})
+	}
+	return append(out, [2]string{"structures", c.Structures})
+}
+
+// inputPaths lists every input path of the case.
+func (c Case) inputPaths() []string {
+	var out []string
+	for _, in := range c.roleInputs() {
+		out = append(out, in[1])
+	}
+	return out
 }
 
 // NoStructuresWord in a manifest's structures column runs the case

@@ -3,6 +3,7 @@ package batch
 import (
 	"os"
 	"path/filepath"
+	"reflect"
 	"strings"
 	"testing"
 )
@@ -89,7 +90,7 @@ func TestManifestCSVAndJSONAgree(t *testing.T) {
 		for i := range want {
 			g := got[i]
 			g.Row = ""
-			if g != want[i] {
+			if !reflect.DeepEqual(g, want[i]) {
 				t.Errorf("case %d: got %+v, want %+v", i, g, want[i])
 			}
 		}

@@ -116,13 +116,14 @@ func DoseSetVoxels(paths []string) (int64, error) {
 // EstimateCase estimates the peak memory of case c from its dose headers
 // (see [EstimateBytes]); errors name the file.
 func EstimateCase(c Case) (int64, error) {
-	nr, err := DoseVoxels(c.Reference)
+	refs, evals := doses(c.Reference, c.ReferenceFiles), doses(c.Evaluated, c.EvaluatedFiles)
+	nr, err := DoseSetVoxels(refs)
 	if err != nil {
-		return 0, fmt.Errorf("case %s: estimating memory from the reference %s: %w", c.ID, c.Reference, err)
+		return 0, fmt.Errorf("case %s: estimating memory from the reference %s: %w", c.ID, strings.Join(refs, ", "), err)
 	}
-	ne, err := DoseVoxels(c.Evaluated)
+	ne, err := DoseSetVoxels(evals)
 	if err != nil {
-		return 0, fmt.Errorf("case %s: estimating memory from the evaluated dose %s: %w", c.ID, c.Evaluated, err)
+		return 0, fmt.Errorf("case %s: estimating memory from the evaluated dose %s: %w", c.ID, strings.Join(evals, ", "), err)
 	}
 	return EstimateBytes(nr, ne), nil
 }

@@ -611,7 +611,7 @@ func newStatus(w caseWork, inputs []InputHash, prev *Status) *Status {
 	st := &Status{SchemaVersion: StatusSchemaVersion, ID: w.c.ID, Inputs: append([]InputHash{}, inputs...), Protocol: w.protocolName,
 		SettingsSHA256: w.settingsHash, Runs: 1, Outputs: []string{}, WatchKey: w.watchKey}
 	if inputs == nil {
-		for _, in := range [][2]string{{"reference", w.c.Reference}, {"evaluated", w.c.Evaluated}, {"structures", w.c.Structures}} {
+		for _, in := range w.c.roleInputs() {
 			if in[1] != "" {
 				st.Inputs = append(st.Inputs, InputHash{Role: in[0], Path: in[1]})
 			}
@@ -684,12 +684,13 @@ func compute(ctx context.Context, parent string, w caseWork, inputs []InputHash,
 		outs.ReportPDF = filepath.Join(tmp, ReportPDFFile)
 	}
 	res, cerr := protect(func() (*result.Result, error) {
-		if err := outs.Check([]string{c.Reference, c.Evaluated, c.Structures}, false); err != nil {
+		if err := outs.Check(c.inputPaths(), false); err != nil {
 			return nil, err
 		}
 		s := w.settings
 		s.Choices.NoStructures = s.Choices.NoStructures || c.NoStructures
-		in := analysis.Inputs{Reference: c.Reference, Evaluated: c.Evaluated, Structures: c.Structures,
+		in := analysis.Inputs{Reference: c.Reference, ReferenceFiles: c.ReferenceFiles,
+			Evaluated: c.Evaluated, EvaluatedFiles: c.EvaluatedFiles, Structures: c.Structures,
 			AllowFrameMismatch: w.allowFM, NoStructures: s.Choices.NoStructures}
 		if w.scope != nil {
 			in.Seen = w.scope.Seen

@@ -1050,9 +1050,9 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 		return strings.Join(n, ", ")
 	}
 	switch {
-	case len(refs) > 1:
+	case len(refs) > 1 && !partsOfOne(refs):
 		return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("%d reference doses (%s): one case needs exactly one (put each case in its own subfolder)", len(refs), names(refs))))
-	case len(evals) > 1:
+	case len(evals) > 1 && !partsOfOne(evals):
 		return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("%d evaluated doses (%s): one case needs exactly one (put each case in its own subfolder)", len(evals), names(evals))))
 	case len(sets) > 1:
 		return w.moveAside(c, all, quick, full, scrub(fmt.Sprintf("%d structure sets (%s): one case needs at most one", len(sets), names(sets))))
@@ -1078,10 +1078,14 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	ref, eval := refs[0], evals[0]
 	if sc := w.scope(c.unit, nil); sc != nil {
 		// The files' roles stand for their names from here on.
-		sc.Path(ref.path, "reference")
-		sc.Text(ref.rel, "reference")
-		sc.Path(eval.path, "evaluated")
-		sc.Text(eval.rel, "evaluated")
+		for _, f := range refs {
+			sc.Path(f.path, "reference")
+			sc.Text(f.rel, "reference")
+		}
+		for _, f := range evals {
+			sc.Path(f.path, "evaluated")
+			sc.Text(f.rel, "evaluated")
+		}
 		if len(sets) == 1 {
 			sc.Path(sets[0].path, "structures")
 			sc.Text(sets[0].rel, "structures")
@@ -1097,8 +1101,25 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 				sets[0].rel, orNone(sets[0].frame), ref.rel, orNone(ref.frame))))
 		}
 	}
-	cs := Case{ID: c.key, Reference: ref.path, Evaluated: eval.path}
-	inputs := []InputHash{{Role: "reference", Path: ref.path, SHA256: ref.sha}, {Role: "evaluated", Path: eval.path, SHA256: eval.sha}}
+	cs := Case{ID: c.key}
+	var inputs []InputHash
+	for _, r := range []struct {
+		role  string
+		files []*watchFile
+		one   *string
+		all   *[]string
+	}{{"reference", refs, &cs.Reference, &cs.ReferenceFiles}, {"evaluated", evals, &cs.Evaluated, &cs.EvaluatedFiles}} {
+		// Several doses of one role are the parts of the dose (beams,
+		// fraction groups), summed: the comparison checks that they
+		// belong together.
+		for _, f := range r.files {
+			inputs = append(inputs, InputHash{Role: r.role, Path: f.path, SHA256: f.sha})
+			*r.all = append(*r.all, f.path)
+		}
+		if len(r.files) == 1 {
+			*r.one, *r.all = r.files[0].path, nil
+		}
+	}
 	if len(sets) == 1 && !w.settings.Choices.NoStructures {
 		cs.Structures = sets[0].path
 		inputs = append(inputs, InputHash{Role: "structures", Path: sets[0].path, SHA256: sets[0].sha})
@@ -1168,6 +1189,20 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	}
 	w.log.Info("case finished", "case", c.key, "verdict", st.Verdict, "seconds", round3(st.Seconds), "output", final)
 	return &WatchedCase{Key: c.key, Verdict: st.Verdict, Output: final, Seconds: st.Seconds}, false, nil
+}
+
+// partsOfOne reports whether several doses of one role are all parts of a
+// dose (DoseSummationType BEAM, FRACTION or their sessions), to be summed,
+// rather than whole doses of which a case takes one.
+func partsOfOne(fs []*watchFile) bool {
+	for _, f := range fs {
+		switch f.dose.DoseSummationType {
+		case "BEAM", "BEAM_SESSION", "FRACTION", "FRACTION_SESSION":
+		default:
+			return false
+		}
+	}
+	return true
 }
 
 func orNone(s string) string {

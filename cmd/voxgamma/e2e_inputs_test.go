@@ -9,6 +9,7 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"voxgamma/dicomio"
 	"voxgamma/phantom"
@@ -241,5 +242,65 @@ func TestPerFractionScaledOnlyWhenAsked(t *testing.T) {
 	oneErrorLine(t, vgExit(t, exitError, append(base, "--scale-evaluated", "fractions")...), "--scale-evaluated fractions takes the number of fractions from the RT Plan")
 	for _, bad := range []string{"0", "-3", "abc", "1/0", "Inf"} {
 		oneErrorLine(t, vgExit(t, exitError, append(base, "--scale-evaluated", bad)...), "--scale-evaluated "+bad+": want fractions")
+	}
+}
+
+// backdateTree sets every file under dir to an hour ago: files at rest
+// before the watch looked.
+func backdateTree(t *testing.T, dir string) {
+	t.Helper()
+	old := time.Now().Add(-time.Hour)
+	filepath.Walk(dir, func(p string, info os.FileInfo, err error) error {
+		if err == nil && info.Mode().IsRegular() {
+			os.Chtimes(p, old, old)
+		}
+		return nil
+	})
+}
+
+// A watched case whose reference arrives as one dose per beam is summed
+// (the closed form of TestSummedBeamsThroughCompare: Γ = 0.667, pass); two
+// whole-plan doses of one role are still a broken case.
+func TestWatchSumsBeamDoses(t *testing.T) {
+	dir, out := t.TempDir(), filepath.Join(t.TempDir(), "results")
+	c := newBeamCase(t, 1.02)
+	beams := filepath.Join(dir, "beams")
+	os.Mkdir(beams, 0o755)
+	for b, p := range c.parts {
+		data, err := os.ReadFile(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		writeBytes(t, filepath.Join(beams, "ref_beam"+string(rune('1'+b))+".dcm"), data)
+	}
+	data, _ := os.ReadFile(c.eval)
+	writeBytes(t, filepath.Join(beams, "eval_mc.dcm"), data)
+	twice := filepath.Join(dir, "twoplans")
+	os.Mkdir(twice, 0o755)
+	ids := phantomIDs()
+	for _, n := range []string{"ref_a.dcm", "ref_b.dcm"} {
+		writePartDose(t, filepath.Join(twice, n), [3]int{12, 12, 8}, [3]float64{-11, -11, -7}, [3]float64{2, 2, 2}, phantom.Uniform(2), ids, "PLAN", 0, 0, nil)
+	}
+	writePartDose(t, filepath.Join(twice, "eval.dcm"), [3]int{22, 22, 18}, [3]float64{-21, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2), ids, "PLAN", 0, 0, nil)
+	backdateTree(t, dir)
+	r := vgRun(t, "watch", dir, "--out", out, "--once", "--settle", "1s", "--poll", "50ms", "--no-structures")
+	if r.code != exitError {
+		t.Errorf("exit %d, want 1 (one broken case)\n%s", r.code, r)
+	}
+	res := readResultJSON(t, filepath.Join(out, "beams", "result.json"))
+	if res.Verdict != "pass" || len(res.DoseSums) != 1 || res.DoseSums[0].Parts != 3 || dicomio.FormatNumbers(res.DoseSums[0].Beams) != "1, 2, 3" {
+		t.Errorf("verdict %s, dose_sums %+v", res.Verdict, res.DoseSums)
+	}
+	checkGammaStats(t, "overall", res.Overall, repeat(0.02/0.03, 12*12*8), 1e-3)
+	why, err := os.ReadFile(filepath.Join(dir, ".failed", "twoplans", "error.txt"))
+	if err != nil || !strings.Contains(string(why), "2 reference doses") {
+		t.Errorf("two plan doses: %v\n%s", err, why)
+	}
+}
+
+func writeBytes(t *testing.T, path string, data []byte) {
+	t.Helper()
+	if err := os.WriteFile(path, data, 0o644); err != nil {
+		t.Fatal(err)
 	}
 }
