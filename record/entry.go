@@ -261,13 +261,26 @@ func newComparison(r *result.Result, m Meta, now time.Time) (*comparison, error)
 		c.comparedAt = now
 	}
 	str := func(s string) *string { return &s }
+	// A dose summed from several files (result.Input.Part) is recorded by
+	// its first file, with the SHA-256 of its parts' SHA-256s in order.
+	var refParts, evalParts []string
 	for _, in := range r.Inputs {
 		switch in.Role {
 		case "reference", "reference points":
-			c.refSHA, c.refUID, c.refPath = in.SHA256, in.SOPInstanceUID, str(in.Path)
-			c.frameUID = in.FrameOfReferenceUID
+			if in.Part > 0 {
+				refParts = append(refParts, in.SHA256)
+			}
+			if in.Part <= 1 {
+				c.refSHA, c.refUID, c.refPath = in.SHA256, in.SOPInstanceUID, str(in.Path)
+				c.frameUID = in.FrameOfReferenceUID
+			}
 		case "evaluated":
-			c.evalSHA, c.evalUID, c.evalPath = in.SHA256, in.SOPInstanceUID, str(in.Path)
+			if in.Part > 0 {
+				evalParts = append(evalParts, in.SHA256)
+			}
+			if in.Part <= 1 {
+				c.evalSHA, c.evalUID, c.evalPath = in.SHA256, in.SOPInstanceUID, str(in.Path)
+			}
 			if c.frameUID == "" {
 				c.frameUID = in.FrameOfReferenceUID
 			}
@@ -277,6 +290,16 @@ func newComparison(r *result.Result, m Meta, now time.Time) (*comparison, error)
 		if c.patientID == "" {
 			c.patientID = in.PatientID
 		}
+	}
+	partsSHA := func(parts []string) string {
+		h := sha256.Sum256([]byte(strings.Join(parts, "\n")))
+		return hex.EncodeToString(h[:])
+	}
+	if len(refParts) > 1 {
+		c.refSHA = partsSHA(refParts)
+	}
+	if len(evalParts) > 1 {
+		c.evalSHA = partsSHA(evalParts)
 	}
 	if m.Deidentify {
 		p := m.Pseudonym
