@@ -105,6 +105,18 @@
 // error asking for a file. [SwapEvidence] tells when the files say that a
 // reference and an evaluated dose are the wrong way round.
 //
+// # Doses in parts
+//
+// A folder that holds several parts of a dose and no whole-plan dose gives
+// them all ([Choice.Doses]). [ReadDoseSet] checks from their headers that
+// files belong together (one DoseSummationType among BEAM, BEAM_SESSION,
+// FRACTION and FRACTION_SESSION; the same units, dose type, frame of
+// reference, patient and referenced plan; no file, beam or fraction group
+// twice) and [DoseSet.Sum] adds them voxel by voxel, on their grid when they
+// share one, else after trilinear resampling onto a common grid that covers
+// them all on the finest lattice ([DoseSet.Method] says which). Refusals
+// are [DoseSetError]s naming the file at fault.
+//
 // # Consistency checks
 //
 // [CheckConsistency] compares a reference and an evaluated dose (and a
