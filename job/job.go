@@ -695,6 +695,11 @@ func DeidentifyResult(r *result.Result, d *deid.Scope) {
 			p.Beams[i].Name = d.Scrub(p.Beams[i].Name)
 		}
 	}
+	for i := range r.DoseSums {
+		// The method names the files summed.
+		r.DoseSums[i].Method, r.DoseSums[i].PlanCheck = d.Scrub(r.DoseSums[i].Method), d.Scrub(r.DoseSums[i].PlanCheck)
+	}
+	r.Choices.EvaluatedScaleSource = d.Scrub(r.Choices.EvaluatedScaleSource)
 	r.Run.Started = ""
 	r.Notes = append(r.Notes, DeidentifiedNote, d.Key().Note())
 }

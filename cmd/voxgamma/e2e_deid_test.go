@@ -12,6 +12,7 @@ import (
 	"voxgamma/batch/batchtest"
 	"voxgamma/deid"
 	"voxgamma/dicomio"
+	"voxgamma/phantom"
 )
 
 // Values planted in the inputs of the de-identification test: a patient
@@ -257,4 +258,48 @@ func TestDeidentifyPlantedValues(t *testing.T) {
 			t.Errorf("state file: %v", err)
 		}
 	}
+}
+
+// With --deidentify, a dose summed from beam files (on different grids, so
+// that the method names every file) leaves no planted value in any output,
+// nor does the refusal of a set that holds a beam twice.
+func TestDeidentifySummedBeams(t *testing.T) {
+	in := filepath.Join(t.TempDir(), plantFolder)
+	os.Mkdir(in, 0o755)
+	ids := dicomio.PhantomIdentifiers(plantFamily+"^"+plantGiven, plantID)
+	ids.PatientBirthDate, ids.StudyDate = plantBirth, plantStudy
+	desc := func(o *dicomio.WriteOptions) { o.Description = plantDesc }
+	var beams []string
+	for b, d := range []float64{0.7, 0.8, 0.5} {
+		p := filepath.Join(in, "beam"+string(rune('1'+b))+"_"+plantFile+".dcm")
+		n := [3]int{12 + 2*b, 12, 8}
+		writePartDose(t, p, n, [3]float64{-11 - 2*float64(b), -11, -7}, [3]float64{2, 2, 2}, phantom.Uniform(d), ids, "BEAM", 1, b+1, desc)
+		beams = append(beams, p)
+	}
+	eval := filepath.Join(in, "eval_"+plantFile+".dcm")
+	writePartDose(t, eval, [3]int{22, 22, 18}, [3]float64{-21, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), ids, "PLAN", 0, 0, desc)
+	vals := planted(t, append(beams, eval)...)
+	out := t.TempDir()
+	args := []string{"compare", "--evaluated", eval, "--no-structures", "--deidentify",
+		"--json", filepath.Join(out, "r.json"), "--csv", filepath.Join(out, "r.csv"), "--gamma-map", filepath.Join(out, "g.dcm")}
+	for _, b := range beams {
+		args = append(args, "--reference", b)
+	}
+	r := vgRun(t, args...)
+	if r.code == exitError {
+		t.Fatalf("compare: %s", r)
+	}
+	res := readResultJSON(t, filepath.Join(out, "r.json"))
+	if len(res.DoseSums) != 1 || !res.DoseSums[0].Resampled {
+		t.Fatalf("dose_sums %+v: want a resampled sum (its method names the files)", res.DoseSums)
+	}
+	grepWritten(t, "compare", vals, r, out)
+	// A beam twice: the refusal names the files, by role.
+	again := filepath.Join(in, "beam2again_"+plantFile+".dcm")
+	writePartDose(t, again, [3]int{12, 12, 8}, [3]float64{-11, -11, -7}, [3]float64{2, 2, 2}, phantom.Uniform(0.9), ids, "BEAM", 1, 2, desc)
+	r = vgRun(t, "compare", "--reference", in, "--evaluated", eval, "--no-structures", "--deidentify")
+	if r.code != exitError || !strings.Contains(r.stderr, "beam 2 twice") {
+		t.Fatalf("a beam twice: %s", r)
+	}
+	grepWritten(t, "compare, a beam twice", vals, r)
 }
