@@ -222,6 +222,9 @@ func Load(in Inputs) (*Loaded, error) {
 			return nil, err
 		}
 	}
+	if err := l.checkPlanParts(); err != nil {
+		return nil, err
+	}
 
 	if l.Reference != nil {
 		l.DoseTypeMismatch = dicomio.DoseTypeMismatch(l.ReferenceInfo, l.EvaluatedInfo)

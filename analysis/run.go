@@ -31,6 +31,10 @@ type Settings struct {
 	// NormDoseSource says where Criteria.NormDose came from when it is not
 	// 0: "prescription" or "user". Empty means "user".
 	NormDoseSource string
+	// NormDoseFromPrescription normalises to the RT Plan's prescription
+	// (Loaded.Plan, PrescriptionGy): Run sets Criteria.NormDose to it. The
+	// plan must be the reference dose's (or the dose must name none).
+	NormDoseFromPrescription bool
 	// Method of the gamma search.
 	Method gamma.Method
 	// KindRules classify ROIs by name (see roi.Classify); the first
@@ -266,6 +270,13 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	}
 	if r := s.Criteria.SearchRadius(); r < coarsest {
 		return nil, badInput("search distance %g mm is smaller than the evaluated grid's spacing %g mm: the search could not reach a neighbouring voxel (use --search %g or more)", r, coarsest, coarsest)
+	}
+	if s.NormDoseFromPrescription {
+		rx, err := p.prescription()
+		if err != nil {
+			return nil, err
+		}
+		s.Criteria.NormDose, s.NormDoseSource = rx, "prescription"
 	}
 	if err := p.checkNormDose(s); err != nil {
 		return nil, err
@@ -543,19 +554,29 @@ func (p *Prepared) checkNormDose(s Settings) error {
 		return nil // the engine refuses a reference without positive dose
 	}
 	ratio := norm / m
-	cause := fmt.Sprintf("the normalisation dose %.4g Gy is %.3g × the reference maximum %.4g Gy, outside the plausible %g–%g × (this tool's choice: a plan's maximum normally lies near 100–130 %% of its prescription)",
-		norm, ratio, m, NormDoseBand[0], NormDoseBand[1])
+	what, check := fmt.Sprintf("the normalisation dose %.4g Gy", norm), "check --norm-dose or the protocol's norm_dose_gy"
+	rx := s.NormDoseSource == "prescription"
+	if rx {
+		// A prescription is in Gy by the standard (PS3.3 C.8.8.10): no
+		// cGy mistake, but a per-fraction reference against the course's
+		// prescription, or the plan of another dose.
+		what = fmt.Sprintf("the normalisation dose, the RT Plan's prescription %.4g Gy,", norm)
+		check = "check that the RT Plan is this dose's (a prescription is for the whole course)"
+	}
+	cause := fmt.Sprintf("%s is %.3g × the reference maximum %.4g Gy, outside the plausible %g–%g × (this tool's choice: a plan's maximum normally lies near 100–130 %% of its prescription)",
+		what, ratio, m, NormDoseBand[0], NormDoseBand[1])
 	switch {
-	case ratio >= 30 && ratio <= 300:
+	case !rx && ratio >= 30 && ratio <= 300:
 		cause += fmt.Sprintf("; it looks like a dose in cGy read as Gy: did you mean %.4g Gy?", norm/100)
-	case ratio <= 1/30.0 && ratio >= 1/300.0:
+	case !rx && ratio <= 1/30.0 && ratio >= 1/300.0:
 		cause += fmt.Sprintf("; it looks like a dose in Gy where the reference is in cGy, or %.4g Gy meant as cGy", norm)
 	case ratio > 1 && nearWhole(ratio):
-		cause += fmt.Sprintf("; it is about %.0f × the maximum: a plan total against a per-fraction reference (%.0f fractions)?", math.Round(ratio), math.Round(ratio))
+		k, why := p.likelyFactor(ratio)
+		cause += fmt.Sprintf("; it is about %.0f × the maximum: a plan total against a per-fraction reference (%d fractions: %s)?", math.Round(ratio), k, why)
 	case ratio < 1 && nearWhole(1/ratio):
 		cause += fmt.Sprintf("; the maximum is about %.0f × it: a per-fraction dose against a plan-total reference (%.0f fractions)?", math.Round(1/ratio), math.Round(1/ratio))
 	}
-	return badInput("%s; check --norm-dose or the protocol's norm_dose_gy, or pass --accept-norm-dose to use it as given", cause)
+	return badInput("%s; %s, or pass --accept-norm-dose to use it as given", cause, check)
 }
 
 // nearWhole reports whether v ≥ 2 lies within 5 % of a whole number.

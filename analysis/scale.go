@@ -175,7 +175,7 @@ func (p *Prepared) applyScale(s Scale) error {
 // the plan states one within 5 % of r, else the nearest whole number.
 func (p *Prepared) likelyFactor(r float64) (int, string) {
 	if n, _, err := p.fractionsPlanned(); err == nil && n >= 2 && math.Abs(r-float64(n)) <= 0.05*float64(n) {
-		return n, fmt.Sprintf("the RT Plan plans %d fractions", n)
+		return n, fmt.Sprintf("the RT Plan %q plans %d fractions", p.Plan.Label, n)
 	}
 	return int(math.Round(r)), "the nearest whole number; the plan's number of fractions decides"
 }
@@ -202,12 +202,6 @@ func (p *Prepared) summationEvidence() string {
 		return ""
 	}
 	return "; " + strings.Join(parts, ", ") + " (PS3.3 C.8.8.3)"
-}
-
-// fractionsPlanned is the number of fractions the RT Plan plans, for
-// --scale-evaluated fractions.
-func (p *Prepared) fractionsPlanned() (int, string, error) {
-	return 0, "", badInput("--scale-evaluated fractions takes the number of fractions from the RT Plan, and none was given: give the plan, or the factor (e.g. --scale-evaluated 30)")
 }
 
 // num writes a number in its shortest form.

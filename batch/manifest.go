@@ -41,6 +41,9 @@ type Case struct {
 	// plan, see analysis.Inputs), used instead of Reference or Evaluated;
 	// a watched case sets them, a manifest names a folder instead.
 	ReferenceFiles, EvaluatedFiles []string `json:"-"`
+	// Plan is the case's RT Plan (a watched case's); a manifest's cases
+	// take the plan in the reference folder, as compare does.
+	Plan string `json:"-"`
 	// Index is the case's 0-based position in the manifest (the shard rule
 	// counts it); Row names the row in messages: "row 3 (line 4)" for CSV,
 	// "row 3" for JSON.
@@ -61,7 +64,7 @@ func doses(one string, files []string) []string {
 }
 
 // roleInputs lists the case's inputs by role, in the order reference,
-// evaluated, structures (the structures "" when none).
+// evaluated, structures (the structures "" when none), plan (when one).
 func (c Case) roleInputs() [][2]string {
 	var out [][2]string
 	for _, p := range doses(c.Reference, c.ReferenceFiles) {
@@ -70,7 +73,11 @@ func (c Case) roleInputs() [][2]string {
 	for _, p := range doses(c.Evaluated, c.EvaluatedFiles) {
 		out = append(out, [2]string{"evaluated", p})
 	}
-	return append(out, [2]string{"structures", c.Structures})
+	out = append(out, [2]string{"structures", c.Structures})
+	if c.Plan != "" {
+		out = append(out, [2]string{"plan", c.Plan})
+	}
+	return out
 }
 
 // inputPaths lists every input path of the case.

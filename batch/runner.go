@@ -690,7 +690,7 @@ func compute(ctx context.Context, parent string, w caseWork, inputs []InputHash,
 		s := w.settings
 		s.Choices.NoStructures = s.Choices.NoStructures || c.NoStructures
 		in := analysis.Inputs{Reference: c.Reference, ReferenceFiles: c.ReferenceFiles,
-			Evaluated: c.Evaluated, EvaluatedFiles: c.EvaluatedFiles, Structures: c.Structures,
+			Evaluated: c.Evaluated, EvaluatedFiles: c.EvaluatedFiles, Structures: c.Structures, Plan: c.Plan,
 			AllowFrameMismatch: w.allowFM, NoStructures: s.Choices.NoStructures}
 		if w.scope != nil {
 			in.Seen = w.scope.Seen

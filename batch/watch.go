@@ -186,6 +186,7 @@ const (
 	kindDose          // RT Dose
 	kindStruct        // RT Structure Set
 	kindBroken        // an RT Dose or RT Structure Set that cannot be read
+	kindPlan          // RT Plan
 )
 
 // watchFile is one file of the watched folder with what its header says.
@@ -197,6 +198,7 @@ type watchFile struct {
 	reason          string
 	dose            *dicomio.DoseInfo
 	set             *structure.Set
+	plan            *dicomio.Plan
 	frame           string
 	sha             string
 }
@@ -808,6 +810,16 @@ func (w *Watcher) classify(p string) *watchFile {
 			} else {
 				f.kind, f.frame, f.set = kindStruct, set.FrameOfReferenceUID, set
 			}
+		case me.Got == "RTPLAN":
+			// The case's RT Plan: its beams, fractions and prescription
+			// (an unreadable one is set aside: a plan is context unless an
+			// option asks for its figures, which then says it is missing).
+			plan, err := dicomio.ReadPlan(p)
+			if err != nil {
+				f.kind, f.reason = kindOther, "unreadable RT Plan: "+err.Error()
+			} else {
+				f.kind, f.frame, f.plan = kindPlan, plan.FrameOfReferenceUID, plan
+			}
 		case me.Got == "":
 			f.kind, f.reason = kindOther, "DICOM file without a Modality"
 		default:
@@ -886,6 +898,9 @@ func (w *Watcher) handleUnit(ctx context.Context, unit string, paths []string) (
 		if sc != nil {
 			sc.Dose(f.dose)
 			sc.Structures(f.set)
+			if f.plan != nil {
+				sc.Dose(analysis.PlanSeen(f.plan))
+			}
 			sc.UID(f.frame)
 		}
 		files = append(files, f)
@@ -893,19 +908,35 @@ func (w *Watcher) handleUnit(ctx context.Context, unit string, paths []string) (
 	var cases []*watchCase
 	if unit == "." {
 		groups := map[string]*watchCase{}
+		planOf := map[string]string{} // plan SOP instance → frame of the doses naming it
 		for _, f := range files {
+			if f.kind == kindDose && f.dose.ReferencedRTPlanUID != "" {
+				planOf[f.dose.ReferencedRTPlanUID] = f.frame
+			}
+		}
+		for _, f := range files {
+			frame := f.frame
 			switch f.kind {
 			case kindBroken:
 				stem := strings.TrimSuffix(f.name, filepath.Ext(f.name))
 				cases = append(cases, &watchCase{key: w.brokenKey(stem), unit: unit, broken: []*watchFile{f}})
-			case kindDose, kindStruct:
-				g := groups[f.frame]
-				if g == nil {
-					g = &watchCase{key: w.flatKey(f.frame), unit: unit}
-					groups[f.frame] = g
+				continue
+			case kindPlan:
+				// A plan goes with the doses that name it (the Frame of
+				// Reference module is optional in an RT Plan).
+				if fr, ok := planOf[f.plan.SOPInstanceUID]; ok {
+					frame = fr
 				}
-				g.files = append(g.files, f)
+			case kindDose, kindStruct:
+			default:
+				continue
 			}
+			g := groups[frame]
+			if g == nil {
+				g = &watchCase{key: w.flatKey(frame), unit: unit}
+				groups[frame] = g
+			}
+			g.files = append(g.files, f)
 		}
 		for _, g := range groups {
 			cases = append(cases, g)
@@ -916,7 +947,7 @@ func (w *Watcher) handleUnit(ctx context.Context, unit string, paths []string) (
 			switch f.kind {
 			case kindBroken:
 				c.broken = append(c.broken, f)
-			case kindDose, kindStruct:
+			case kindDose, kindStruct, kindPlan:
 				c.files = append(c.files, f)
 			}
 		}
@@ -1010,7 +1041,7 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 		}
 		bySHA[f.sha] = append(bySHA[f.sha], f)
 	}
-	var refs, evals, sets []*watchFile
+	var refs, evals, sets, plans []*watchFile
 	var notes []string
 	for _, sum := range order {
 		same := bySHA[sum]
@@ -1020,6 +1051,10 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 		}
 		if f.kind == kindStruct {
 			sets = append(sets, f)
+			continue
+		}
+		if f.kind == kindPlan {
+			plans = append(plans, f)
 			continue
 		}
 		isRef, isEval := false, false
@@ -1067,6 +1102,32 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	if len(sets) == 0 && w.opt.RequireStructures {
 		missing = append(missing, "a structure set")
 	}
+	plan := casePlan(plans, refs, &notes)
+	if plan != nil && len(missing) == 0 {
+		// Beam doses arriving one by one: a set that lacks a treatment
+		// beam of the plan waits for it (any other fault is the
+		// comparison's to report).
+		for _, r := range []struct {
+			role  string
+			files []*watchFile
+		}{{"the reference", refs}, {"the evaluated dose", evals}} {
+			if len(r.files) < 2 {
+				continue
+			}
+			var paths []string
+			for _, f := range r.files {
+				paths = append(paths, f.path)
+			}
+			set, err := dicomio.ReadDoseSet(paths)
+			if err != nil {
+				continue
+			}
+			var se *dicomio.DoseSetError
+			if _, err := set.CheckPlan(plan.plan); errors.As(err, &se) && len(se.MissingBeams) > 0 {
+				missing = append(missing, fmt.Sprintf("beams %s of %s (RT Plan %s)", dicomio.FormatNumbers(se.MissingBeams), r.role, plan.rel))
+			}
+		}
+	}
 	if len(missing) > 0 {
 		msg := "waits for " + strings.Join(missing, " and ")
 		if w.waitLogged[c.key] != quick {
@@ -1089,6 +1150,10 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 		if len(sets) == 1 {
 			sc.Path(sets[0].path, "structures")
 			sc.Text(sets[0].rel, "structures")
+		}
+		if plan != nil {
+			sc.Path(plan.path, "plan")
+			sc.Text(plan.rel, "plan")
 		}
 	}
 	if !w.opt.AllowFrameMismatch {
@@ -1123,6 +1188,10 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	if len(sets) == 1 && !w.settings.Choices.NoStructures {
 		cs.Structures = sets[0].path
 		inputs = append(inputs, InputHash{Role: "structures", Path: sets[0].path, SHA256: sets[0].sha})
+	}
+	if plan != nil {
+		cs.Plan = plan.path
+		inputs = append(inputs, InputHash{Role: "plan", Path: plan.path, SHA256: plan.sha})
 	}
 	final := filepath.Join(w.out, c.key)
 	// Finished before the state was saved (a stop in between, even a
@@ -1189,6 +1258,31 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	}
 	w.log.Info("case finished", "case", c.key, "verdict", st.Verdict, "seconds", round3(st.Seconds), "output", final)
 	return &WatchedCase{Key: c.key, Verdict: st.Verdict, Output: final, Seconds: st.Seconds}, false, nil
+}
+
+// casePlan picks a case's RT Plan: its only one, or of several the one the
+// reference dose names (a note says when none can be told).
+func casePlan(plans, refs []*watchFile, notes *[]string) *watchFile {
+	switch {
+	case len(plans) == 1:
+		return plans[0]
+	case len(plans) == 0:
+		return nil
+	}
+	var named []*watchFile
+	for _, p := range plans {
+		for _, r := range refs {
+			if r.dose.ReferencedRTPlanUID != "" && r.dose.ReferencedRTPlanUID == p.plan.SOPInstanceUID {
+				named = append(named, p)
+				break
+			}
+		}
+	}
+	if len(named) == 1 {
+		return named[0]
+	}
+	*notes = append(*notes, fmt.Sprintf("%d RT Plans and the reference dose names none of them (or several): no plan used", len(plans)))
+	return nil
 }
 
 // partsOfOne reports whether several doses of one role are all parts of a

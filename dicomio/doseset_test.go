@@ -453,3 +453,115 @@ func TestDoseSetSameFileAndOne(t *testing.T) {
 		}
 	}
 }
+
+// writeInventedPlan writes an invented RT Plan (dicomio.WritePlan) with
+// the given beams (name "ARC<n>", SETUP for the numbers in setup) and
+// fraction groups (group number → its beams), and reads it back.
+func writeInventedPlan(t *testing.T, dir string, ids dicomio.Identifiers, beams []int, setup map[int]bool, groups map[int][]int, fractions int) *dicomio.Plan {
+	t.Helper()
+	p := &dicomio.Plan{Label: "VG_SUMS", DoseReferences: []dicomio.DoseReference{{Number: 1, Type: "TARGET", Description: "PTV", TargetPrescriptionGy: ptr(60)}}}
+	for _, b := range beams {
+		bm := dicomio.Beam{Number: b, Name: fmt.Sprintf("ARC%d", b), NominalEnergy: ptr(6), GantryAngleDeg: ptr(float64(40 * b))}
+		if setup[b] {
+			bm.DeliveryType = "SETUP"
+		}
+		p.Beams = append(p.Beams, bm)
+	}
+	for g := 1; g <= len(groups); g++ {
+		fg := dicomio.FractionGroup{Number: g, FractionsPlanned: fractions}
+		for _, b := range groups[g] {
+			fg.Beams = append(fg.Beams, dicomio.ReferencedBeam{BeamNumber: b, Meterset: ptr(100)})
+		}
+		p.FractionGroups = append(p.FractionGroups, fg)
+	}
+	path := filepath.Join(dir, "RP_sums.dcm")
+	if _, err := dicomio.WritePlan(path, p, ids); err != nil {
+		t.Fatal(err)
+	}
+	back, err := dicomio.ReadPlan(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return back
+}
+
+// Parts checked against the RT Plan's beam list and fraction groups
+// (issue 18): every treatment beam there (setup beams need not be), none
+// the plan lacks; a complete set stands for the plan's dose (or one
+// fraction group's).
+func TestDoseSetCheckPlan(t *testing.T) {
+	grid := beamSpec{dims: [3]int{4, 4, 3}, origin: [3]float64{0, 0, 0}, spacing: [3]float64{2, 2, 2}, peak: 1}
+	beamFiles := func(t *testing.T, dir string, ids dicomio.Identifiers, sum string, group int, beams ...int) *dicomio.DoseSet {
+		t.Helper()
+		var paths []string
+		for _, b := range beams {
+			s := grid
+			s.name, s.beam, s.centre = fmt.Sprintf("b%d.dcm", b), b, [3]float64{float64(b), 0, 0}
+			s.opt = func(o *dicomio.WriteOptions) { o.DoseSummationType, o.ReferencedFractionGroupNumber = sum, group }
+			paths = append(paths, writeBeam(t, dir, ids, s))
+		}
+		set, err := dicomio.ReadDoseSet(paths)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return set
+	}
+	t.Run("complete, setup beam not needed", func(t *testing.T) {
+		dir := t.TempDir()
+		ids := dicomio.PhantomIdentifiers("PHANTOM^PLAN", "VG-PLAN-001")
+		plan := writeInventedPlan(t, dir, ids, []int{1, 2, 3, 4}, map[int]bool{4: true}, map[int][]int{1: {1, 2, 3, 4}}, 30)
+		c, err := beamFiles(t, dir, ids, "BEAM", 1, 1, 2, 3).CheckPlan(plan)
+		if err != nil || !c.Complete || c.SummationType != "PLAN" || !strings.Contains(c.Text, `every treatment beam of RT Plan "VG_SUMS" (beams 1, 2, 3)`) || len(c.Warnings) != 0 {
+			t.Errorf("%+v %v", c, err)
+		}
+		// One session of every beam of the plan's only group.
+		c, err = beamFiles(t, t.TempDir(), ids, "BEAM_SESSION", 1, 1, 2, 3).CheckPlan(plan)
+		if err != nil || c.SummationType != "FRACTION_SESSION" || c.FractionGroup != 1 {
+			t.Errorf("sessions: %+v %v", c, err)
+		}
+	})
+	t.Run("a beam missing", func(t *testing.T) {
+		dir := t.TempDir()
+		ids := dicomio.PhantomIdentifiers("PHANTOM^PLAN", "VG-PLAN-002")
+		plan := writeInventedPlan(t, dir, ids, []int{1, 2, 3}, nil, map[int][]int{1: {1, 2, 3}}, 30)
+		_, err := beamFiles(t, dir, ids, "BEAM", 1, 1, 3).CheckPlan(plan)
+		var se *dicomio.DoseSetError
+		if !errors.As(err, &se) || dicomio.FormatNumbers(se.MissingBeams) != "2" || !strings.Contains(err.Error(), `beam 2 "ARC2" of RT Plan "VG_SUMS" has no dose among the 2 files summed (beams 1, 3)`) {
+			t.Errorf("error %v", err)
+		}
+	})
+	t.Run("a beam the plan lacks", func(t *testing.T) {
+		dir := t.TempDir()
+		ids := dicomio.PhantomIdentifiers("PHANTOM^PLAN", "VG-PLAN-003")
+		plan := writeInventedPlan(t, dir, ids, []int{1, 2}, nil, map[int][]int{1: {1, 2}}, 30)
+		_, err := beamFiles(t, dir, ids, "BEAM", 1, 1, 2, 7).CheckPlan(plan)
+		var se *dicomio.DoseSetError
+		if !errors.As(err, &se) || filepath.Base(se.Path) != "b7.dcm" || !strings.Contains(err.Error(), `holds beam 7, which RT Plan "VG_SUMS" does not define (beams 1, 2)`) {
+			t.Errorf("error %v", err)
+		}
+	})
+	t.Run("one fraction group of two", func(t *testing.T) {
+		dir := t.TempDir()
+		ids := dicomio.PhantomIdentifiers("PHANTOM^PLAN", "VG-PLAN-004")
+		plan := writeInventedPlan(t, dir, ids, []int{1, 2, 3, 4}, nil, map[int][]int{1: {1, 2}, 2: {3, 4}}, 5)
+		c, err := beamFiles(t, dir, ids, "BEAM", 2, 3, 4).CheckPlan(plan)
+		if err != nil || c.SummationType != "FRACTION" || c.FractionGroup != 2 || !strings.Contains(c.Text, "fraction group 2") {
+			t.Errorf("%+v %v", c, err)
+		}
+		_, err = beamFiles(t, t.TempDir(), ids, "BEAM", 2, 3).CheckPlan(plan)
+		if err == nil || !strings.Contains(err.Error(), `beam 4 "ARC4"`) || !strings.Contains(err.Error(), "not the dose of fraction group 2") {
+			t.Errorf("group 2 lacking beam 4: %v", err)
+		}
+	})
+	t.Run("another plan", func(t *testing.T) {
+		dir := t.TempDir()
+		ids := dicomio.PhantomIdentifiers("PHANTOM^PLAN", "VG-PLAN-005")
+		other := ids
+		other.ReferencedRTPlanUID = dicomio.NewUID()
+		plan := writeInventedPlan(t, dir, other, []int{1, 2}, nil, map[int][]int{1: {1, 2}}, 30)
+		c, err := beamFiles(t, dir, ids, "BEAM", 1, 1, 2).CheckPlan(plan)
+		if err != nil || len(c.Warnings) != 1 || !strings.Contains(c.Warnings[0], "checked against it by number") {
+			t.Errorf("%+v %v", c, err)
+		}
+	})
+}

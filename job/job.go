@@ -55,6 +55,10 @@ type Overrides struct {
 	Local *bool
 	// Threshold in percent, NormDose in Gy, Search in mm.
 	Threshold, NormDose, Search *float64
+	// NormDosePrescription normalises to the RT Plan's prescription dose
+	// (--norm-dose prescription), replacing the protocol's normalisation
+	// dose.
+	NormDosePrescription bool
 	// KindRules in roi.ParseRule's form ("PTV*=target"), applied before
 	// the protocol's.
 	KindRules []string
@@ -84,6 +88,10 @@ type Overrides struct {
 	// Version is recorded in the result.
 	Version string
 }
+
+// NormDosePrescription is the word --norm-dose takes for the RT Plan's
+// prescription dose.
+const NormDosePrescription = "prescription"
 
 // MaxIsodoseROIs bounds the isodose ROIs of one comparison.
 const MaxIsodoseROIs = 20
@@ -136,7 +144,22 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 	if ov.Threshold != nil && c.ThresholdPercent != want.ThresholdPercent {
 		overrides = append(overrides, fmt.Sprintf("threshold %s %% from --threshold (protocol: %s %%)", num(c.ThresholdPercent), num(want.ThresholdPercent)))
 	}
-	if ov.NormDose != nil && c.NormDose != want.NormDose {
+	fromPlan := p.NormDoseFromPlan() && ov.NormDose == nil
+	if ov.NormDosePrescription {
+		c.NormDose = 0
+		if !p.NormDoseFromPlan() {
+			was := "the reference maximum"
+			if want.NormDose > 0 {
+				was = num(want.NormDose) + " Gy"
+			}
+			overrides = append(overrides, fmt.Sprintf("normalisation dose the RT Plan's prescription from --norm-dose prescription (protocol: %s)", was))
+		}
+		fromPlan = true
+	}
+	if ov.NormDose != nil && p.NormDoseFromPlan() {
+		overrides = append(overrides, fmt.Sprintf("normalisation dose %s Gy from --norm-dose (protocol: the RT Plan's prescription)", num(c.NormDose)))
+	}
+	if ov.NormDose != nil && c.NormDose != want.NormDose && !p.NormDoseFromPlan() {
 		was := "the reference maximum"
 		if want.NormDose > 0 {
 			was = num(want.NormDose) + " Gy"
@@ -220,7 +243,7 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 		Criteria: c, KindRules: rules, CLIKindRules: len(cli), IsodosePercents: iso, VDoses: ov.VDoses,
 		SubGridROIs: ov.SubGrid, SubGridStep: step, MinClusterCC: ov.MinClusterCC,
 		Workers: ov.Workers, Checker: p, Protocol: p.Resolved(), Version: ov.Version,
-		AcceptNormDose:     ov.AcceptNormDose,
+		AcceptNormDose: ov.AcceptNormDose, NormDoseFromPrescription: fromPlan,
 		RefuseSwappedDoses: p.RefuseSwappedDoses(), AllowDoseTypeMismatch: !p.RefuseDoseTypeMismatch(),
 	}
 	s.Choices = result.Choices{Overrides: overrides, KindRules: []string{}, NoStructures: ov.NoStructures}

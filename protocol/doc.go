@@ -28,10 +28,12 @@
 //     from 0 to below 100; default 10, after AAPM TG-218),
 //     search_mm (search distance in mm; 0 or absent: 3×DTA),
 //     norm_dose_gy (normalisation dose in Gy; 0 or absent: the reference
-//     maximum) and norm_dose_from ("reference maximum" or "value"; absent:
-//     as norm_dose_gy says). A normalisation dose outside 0.5–1.5 × the
-//     reference maximum is refused when the comparison runs (see the
-//     analysis package's NormDoseBand).
+//     maximum) and norm_dose_from ("reference maximum", "value" or
+//     "prescription": the RT Plan's TargetPrescriptionDose, which the
+//     comparison then needs; absent: as norm_dose_gy says). A normalisation
+//     dose outside 0.5–1.5 × the reference maximum, the prescription's too,
+//     is refused when the comparison runs (see the analysis package's
+//     NormDoseBand).
 //   - coverage: overall_percent (the smallest percentage of the reference
 //     points at or above the threshold that must have been compared; default
 //     99.5; 0 leaves the check out) and roi_percent (the smallest percentage

@@ -333,9 +333,14 @@ func (p *Protocol) CheckCriteria(applied result.Criteria) error {
 	}
 	differ("threshold", applied.ThresholdPercent, want.ThresholdPercent, " %")
 	differ("search distance", applied.SearchMM, want.SearchRadius(), " mm")
-	if want.NormDose > 0 {
+	switch src := strings.TrimSpace(applied.NormDoseSource); {
+	case want.NormDose > 0:
 		differ("normalisation dose", applied.NormDoseGy, want.NormDose, " Gy")
-	} else if src := strings.TrimSpace(applied.NormDoseSource); !strings.EqualFold(src, "reference maximum") {
+	case p.NormDoseFromPlan():
+		if !strings.EqualFold(src, NormDoseFromPrescription) {
+			diffs = append(diffs, fmt.Sprintf("normalisation dose from %q applied, the RT Plan's prescription in the protocol", src))
+		}
+	case !strings.EqualFold(src, "reference maximum"):
 		diffs = append(diffs, fmt.Sprintf("normalisation dose from %q applied, the reference maximum in the protocol", src))
 	}
 	if len(diffs) == 0 {

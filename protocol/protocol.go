@@ -115,6 +115,11 @@ const (
 	NormDoseReferenceMax = "reference maximum"
 	// NormDoseValue: the global normalisation dose is NormDoseGy.
 	NormDoseValue = "value"
+	// NormDoseFromPrescription: the global normalisation dose is the RT
+	// Plan's prescription (the highest TargetPrescriptionDose of its TARGET
+	// dose references, PS3.3 C.8.8.10), as many clinics normalise; the
+	// comparison needs the plan.
+	NormDoseFromPrescription = "prescription"
 )
 
 // Values of [Rule.WhenMissing].
@@ -169,8 +174,9 @@ type Criteria struct {
 	// the reference maximum.
 	NormDoseGy float64 `yaml:"norm_dose_gy,omitempty" json:"norm_dose_gy,omitempty"`
 	// NormDoseFrom says where the normalisation dose comes from:
-	// [NormDoseReferenceMax] or [NormDoseValue] (NormDoseGy). Left out, it
-	// follows NormDoseGy.
+	// [NormDoseReferenceMax], [NormDoseValue] (NormDoseGy) or
+	// [NormDoseFromPrescription] (the RT Plan's). Left out, it follows
+	// NormDoseGy.
 	NormDoseFrom string `yaml:"norm_dose_from,omitempty" json:"norm_dose_from,omitempty"`
 }
 
@@ -380,6 +386,12 @@ func (p *Protocol) GammaCriteria() (gamma.Criteria, error) {
 	return c, nil
 }
 
+// NormDoseFromPlan reports whether the protocol normalises to the RT
+// Plan's prescription (norm_dose_from: prescription).
+func (p *Protocol) NormDoseFromPlan() bool {
+	return strings.EqualFold(strings.TrimSpace(p.Criteria.NormDoseFrom), NormDoseFromPrescription)
+}
+
 // ROIRules returns the protocol's kind rules in the form [roi.Classify]
 // takes, in order.
 func (p *Protocol) ROIRules() ([]roi.Rule, error) {
@@ -484,8 +496,12 @@ func (p *Protocol) check(file string, line func(path ...any) int) []error {
 		if !(c.NormDoseGy > 0) {
 			add(fmt.Errorf("%q needs norm_dose_gy above 0 Gy", c.NormDoseFrom), "criteria", "norm_dose_from")
 		}
+	case NormDoseFromPrescription:
+		if c.NormDoseGy != 0 {
+			add(fmt.Errorf("%q with norm_dose_gy %g: the prescription comes from the RT Plan; leave norm_dose_gy out", c.NormDoseFrom, c.NormDoseGy), "criteria", "norm_dose_from")
+		}
 	default:
-		add(fmt.Errorf("%q: want %q or %q", c.NormDoseFrom, NormDoseReferenceMax, NormDoseValue), "criteria", "norm_dose_from")
+		add(fmt.Errorf("%q: want %q, %q or %q", c.NormDoseFrom, NormDoseReferenceMax, NormDoseValue, NormDoseFromPrescription), "criteria", "norm_dose_from")
 	}
 	for _, f := range []struct {
 		key string

@@ -43,7 +43,7 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 	fl.StringVar(&f.criteria, "criteria", "", "dose-difference and distance criteria for every case, e.g. 2%/1mm (default: each protocol's)")
 	fl.BoolVar(&f.local, "local", false, "local normalisation for every case")
 	fl.Float64Var(&f.threshold, "threshold", 0, "low-dose threshold, percent of the normalisation dose (default: each protocol's)")
-	fl.Float64Var(&f.normDose, "norm-dose", 0, "global normalisation dose in Gy (default: each protocol's, else the reference maximum)")
+	fl.Var(&f.normDose, "norm-dose", "global normalisation dose in Gy, or prescription: each case's RT Plan's (default: each protocol's, else the reference maximum)")
 	fl.Float64Var(&f.search, "search", 0, "maximum search distance in mm (default: each protocol's, else 3 × DTA)")
 	fl.StringArrayVar(&f.kindRules, "kind", nil, `ROI kind rule PATTERN=KIND, e.g. "PTV*=target" (repeatable)`)
 	fl.Float64SliceVar(&f.isodose, "isodose", nil, "isodose ROIs at these percentages of the normalisation dose, e.g. 50,80")

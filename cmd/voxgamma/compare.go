@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"os"
 	"os/signal"
+	"strconv"
 	"strings"
 	"syscall"
 
@@ -38,19 +39,49 @@ type compareFlags struct {
 // protocol, shared by compare, sweep, batch and watch (each registers them
 // with its own wording).
 type comparisonFlags struct {
-	criteria                    string
-	local                       bool
-	threshold, normDose, search float64
-	kindRules                   []string
-	isodose, vDoses             []float64
-	subgrid                     []string
-	subgridStep, minClusterCC   float64
-	exhaustive                  bool
-	workers                     int
-	noStructures                bool
-	acceptNormDose              bool
-	scaleEvaluated              string
+	criteria                  string
+	local                     bool
+	threshold, search         float64
+	normDose                  normDoseFlag
+	kindRules                 []string
+	isodose, vDoses           []float64
+	subgrid                   []string
+	subgridStep, minClusterCC float64
+	exhaustive                bool
+	workers                   int
+	noStructures              bool
+	acceptNormDose            bool
+	scaleEvaluated            string
 }
+
+// normDoseFlag is --norm-dose: a dose in Gy, or the word prescription (the
+// RT Plan's prescription dose).
+type normDoseFlag struct {
+	gy           float64
+	prescription bool
+}
+
+func (v *normDoseFlag) String() string {
+	if v.prescription {
+		return job.NormDosePrescription
+	}
+	return strconv.FormatFloat(v.gy, 'g', -1, 64)
+}
+
+func (v *normDoseFlag) Set(s string) error {
+	if strings.EqualFold(strings.TrimSpace(s), job.NormDosePrescription) {
+		v.prescription, v.gy = true, 0
+		return nil
+	}
+	x, err := strconv.ParseFloat(strings.TrimSpace(s), 64)
+	if err != nil {
+		return fmt.Errorf("want a dose in Gy, or %s (the RT Plan's prescription dose)", job.NormDosePrescription)
+	}
+	v.prescription, v.gy = false, x
+	return nil
+}
+
+func (v *normDoseFlag) Type() string { return "GY|prescription" }
 
 // overrides turns the options given on the command line into job
 // overrides: options not given leave the protocol's values.
@@ -71,7 +102,11 @@ func (f *comparisonFlags) overrides(cmd *cobra.Command) job.Overrides {
 		ov.Threshold = &f.threshold
 	}
 	if changed("norm-dose") {
-		ov.NormDose = &f.normDose
+		if f.normDose.prescription {
+			ov.NormDosePrescription = true
+		} else {
+			ov.NormDose = &f.normDose.gy
+		}
 	}
 	if changed("search") {
 		ov.Search = &f.search
@@ -102,7 +137,7 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 	fl.StringVar(&f.criteria, "criteria", "3%/2mm", "dose-difference and distance criteria, e.g. 3%/2mm, 2%/1mm")
 	fl.BoolVar(&f.local, "local", false, "local normalisation: ΔD is a percentage of the reference dose at each point")
 	fl.Float64Var(&f.threshold, "threshold", 10, "low-dose threshold, percent of the normalisation dose")
-	fl.Float64Var(&f.normDose, "norm-dose", 0, "global normalisation dose in Gy (default: the reference maximum)")
+	fl.Var(&f.normDose, "norm-dose", "global normalisation dose in Gy, or prescription: the RT Plan's (default: the reference maximum)")
 	fl.Float64Var(&f.search, "search", 0, "maximum search distance in mm (default: 3 × DTA)")
 	fl.StringVar(&f.protocol, "protocol", "tg218", "protocol file (YAML or JSON) or built-in preset: "+strings.Join(protocol.PresetNames(), ", "))
 	fl.StringVar(&f.jsonOut, "json", "", "write the result as JSON to this file")
