@@ -278,20 +278,24 @@ func TestDeidentifySummedBeams(t *testing.T) {
 	}
 	eval := filepath.Join(in, "eval_"+plantFile+".dcm")
 	writePartDose(t, eval, [3]int{22, 22, 18}, [3]float64{-21, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), ids, "PLAN", 0, 0, desc)
-	vals := planted(t, append(beams, eval)...)
+	// The RT Plan the beams name, its label planted too, found in the
+	// reference folder and used for the beam check.
+	plan := writeTestPlan(t, filepath.Join(in, "rp_"+plantFile+".dcm"), plantLabel, ids, 3, false, 1, 2)
+	vals := append(planted(t, append(beams, eval)...), plan.SOPInstanceUID, plan.SeriesInstanceUID)
 	out := t.TempDir()
 	args := []string{"compare", "--evaluated", eval, "--no-structures", "--deidentify",
 		"--json", filepath.Join(out, "r.json"), "--csv", filepath.Join(out, "r.csv"), "--gamma-map", filepath.Join(out, "g.dcm")}
 	for _, b := range beams {
 		args = append(args, "--reference", b)
 	}
+	args = append(args, "--plan", plan.Path)
 	r := vgRun(t, args...)
 	if r.code == exitError {
 		t.Fatalf("compare: %s", r)
 	}
 	res := readResultJSON(t, filepath.Join(out, "r.json"))
-	if len(res.DoseSums) != 1 || !res.DoseSums[0].Resampled {
-		t.Fatalf("dose_sums %+v: want a resampled sum (its method names the files)", res.DoseSums)
+	if len(res.DoseSums) != 1 || !res.DoseSums[0].Resampled || !strings.Contains(res.DoseSums[0].PlanCheck, "every treatment beam") || res.Plan == nil {
+		t.Fatalf("dose_sums %+v, plan %+v: want a resampled sum (its method names the files) checked against the plan", res.DoseSums, res.Plan)
 	}
 	grepWritten(t, "compare", vals, r, out)
 	// A beam twice: the refusal names the files, by role.

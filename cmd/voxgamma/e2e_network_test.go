@@ -34,11 +34,13 @@ var networkDocs = filepath.Join("..", "..", "docs", "dicom-network")
 // networkCase is an invented case as a planning system and a recalculation
 // engine would push it: a planning dose (SeriesDescription "... planning
 // dose ..."), a Monte Carlo recalculation (".. recalc ..."), a structure set
-// with a target, all in one study and frame of reference.
+// with a target and the RT Plan the doses name (prescription 2 Gy), all in
+// one study and frame of reference.
 type networkCase struct {
 	ids               dicomio.Identifiers
-	ref, eval, rs     string
+	ref, eval, rs, rp string
 	refInfo, evalInfo *dicomio.DoseInfo
+	plan              *dicomio.Plan
 }
 
 // Uniform 2 Gy against 2.04 Gy: Γ = 0.02·2/(0.03·2) = 0.667 everywhere
@@ -46,12 +48,13 @@ type networkCase struct {
 func newNetworkCase(t *testing.T, dir string) networkCase {
 	t.Helper()
 	c := networkCase{ids: dicomio.PhantomIdentifiers("PHANTOM^NETWORK", "VG-NET-001")}
-	c.ref, c.eval, c.rs = filepath.Join(dir, "plan.dcm"), filepath.Join(dir, "mc.dcm"), filepath.Join(dir, "rs.dcm")
+	c.ref, c.eval, c.rs, c.rp = filepath.Join(dir, "plan.dcm"), filepath.Join(dir, "mc.dcm"), filepath.Join(dir, "rs.dcm"), filepath.Join(dir, "rp.dcm")
 	c.refInfo = writePartDose(t, c.ref, [3]int{12, 12, 8}, [3]float64{-11, -11, -7}, [3]float64{2, 2, 2}, phantom.Uniform(2), c.ids, "PLAN", 0, 0,
 		func(o *dicomio.WriteOptions) { o.Description = "invented planning dose, Gy" }).info
 	c.evalInfo = writePartDose(t, c.eval, [3]int{22, 22, 18}, [3]float64{-21, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), c.ids, "PLAN", 0, 0,
 		func(o *dicomio.WriteOptions) { o.Description = "invented Monte Carlo recalc dose, Gy" }).info
 	writeTestStructures(t, c.rs, c.ids, sphereROI(t, "PTV", "PTV", 1, phantom.Sphere{Radius: 6}, c.ids.FrameOfReferenceUID))
+	c.plan = writeTestPlan(t, c.rp, "VG_NET", c.ids, 2, false, 1, 2)
 	return c
 }
 
@@ -130,10 +133,12 @@ func waitFor(t *testing.T, what string, timeout time.Duration, r *receiver, cond
 
 // The whole path: the shipped script runs storescp (shipped profile,
 // per-study subfolders) and voxgamma watch; the planning system pushes the
-// planning dose and the structure set, the recalculation engine its dose in
-// a second association; the watch compares the case once it has settled,
-// writes RESULTS/study_<StudyInstanceUID>/ with the verdict of the closed
-// form (pass), and sends the gamma and difference maps to the QA node.
+// planning dose, the structure set and the RT Plan, the recalculation
+// engine its dose in a second association; the watch compares the case
+// once it has settled, normalised to the plan's prescription, writes
+// RESULTS/study_<StudyInstanceUID>/ with the verdict of the closed form
+// (pass) and the plan, and sends the gamma and difference maps to the QA
+// node.
 func TestNetworkReceiveWatchAndSendBack(t *testing.T) {
 	storescp := reftool.Program(t, "storescp", scptest.Install)
 	bin := buildBinary(t)
@@ -151,15 +156,15 @@ func TestNetworkReceiveWatchAndSendBack(t *testing.T) {
 		"VOXGAMMA_SCP_CONFIG": cfg, "VOXGAMMA_SETTLE": "1s", "VOXGAMMA_POLL": "300ms", "VOXGAMMA_PROTOCOL": "tg218",
 		"VOXGAMMA_REFERENCE_MATCH": "series:*planning*", "VOXGAMMA_EVALUATED_MATCH": "series:*recalc*;comment:*monte carlo*",
 		"VOXGAMMA_RESULTS_TO": "QA_ARCHIVE@127.0.0.1:" + strconv.Itoa(qa.Port), "VOXGAMMA_RESULTS_AET": "VG_TEST",
-		"VOXGAMMA_WATCH_OPTIONS": "--require-structures", "VOXGAMMA": bin, "STORESCP": storescp,
+		"VOXGAMMA_WATCH_OPTIONS": "--require-structures --norm-dose prescription", "VOXGAMMA": bin, "STORESCP": storescp,
 	})
 	c := newNetworkCase(t, t.TempDir())
-	storescu(t, "TPS", "VG_TEST_SCP", port, c.ref, c.rs)
+	storescu(t, "TPS", "VG_TEST_SCP", port, c.ref, c.rs, c.rp)
 	storescu(t, "MC_ENGINE", "VG_TEST_SCP", port, c.eval)
 
 	study := "study_" + c.ids.StudyInstanceUID
 	// storescp's per-study folder, files named <prefix>.<SOPInstanceUID>.dcm.
-	for _, f := range []string{"RD." + c.refInfo.SOPInstanceUID + ".dcm", "RD." + c.evalInfo.SOPInstanceUID + ".dcm"} {
+	for _, f := range []string{"RD." + c.refInfo.SOPInstanceUID + ".dcm", "RD." + c.evalInfo.SOPInstanceUID + ".dcm", "RP." + c.plan.SOPInstanceUID + ".dcm"} {
 		if _, err := os.Stat(filepath.Join(incoming, study, f)); err != nil {
 			t.Errorf("storescp did not write %s: %v", f, err)
 		}
@@ -181,8 +186,11 @@ func TestNetworkReceiveWatchAndSendBack(t *testing.T) {
 	for _, in := range res.Inputs {
 		roles[in.Role] = in.SOPInstanceUID
 	}
-	if roles["reference"] != c.refInfo.SOPInstanceUID || roles["evaluated"] != c.evalInfo.SOPInstanceUID || roles["structures"] == "" {
-		t.Errorf("inputs %v: want the pushed planning dose as the reference, the recalculation as the evaluated dose, and the structure set", roles)
+	if roles["reference"] != c.refInfo.SOPInstanceUID || roles["evaluated"] != c.evalInfo.SOPInstanceUID || roles["structures"] == "" || roles["plan"] != c.plan.SOPInstanceUID {
+		t.Errorf("inputs %v: want the pushed planning dose as the reference, the recalculation as the evaluated dose, the structure set and the plan", roles)
+	}
+	if res.Plan == nil || res.Plan.Label != "VG_NET" || res.Plan.ReferenceDose != "names this plan" || res.Criteria.NormDoseSource != "prescription" || res.Criteria.NormDoseGy != 2 {
+		t.Errorf("plan %+v, criteria %+v: want the pushed plan, its prescription the normalisation dose", res.Plan, res.Criteria)
 	}
 	checkGammaStats(t, "overall", res.Overall, repeat(0.02/0.03, 12*12*8), 1e-3)
 	// The maps, back at the QA node.
