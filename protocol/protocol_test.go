@@ -942,3 +942,36 @@ func TestParseDefaultsAndRequiredKeys(t *testing.T) {
 		}
 	}
 }
+
+// norm_dose_from: prescription (issue 18): the normalisation dose is the
+// RT Plan's prescription, which the comparison finds; no norm_dose_gy with
+// it; a comparison normalised otherwise says it differs from the protocol.
+func TestNormDoseFromPrescription(t *testing.T) {
+	p, err := Parse([]byte("name: rx\ncriteria: {criteria: 3%/2mm, norm_dose_from: Prescription}\nrules:\n  - {subject: overall, metric: pass_rate, op: \">=\", limit: 95}\n"), "rx.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !p.NormDoseFromPlan() || p.Resolved().Criteria.NormDoseFrom != NormDoseFromPrescription {
+		t.Errorf("norm_dose_from %q, from plan %v", p.Resolved().Criteria.NormDoseFrom, p.NormDoseFromPlan())
+	}
+	c, err := p.GammaCriteria()
+	if err != nil || c.NormDose != 0 {
+		t.Fatalf("criteria %+v %v: the dose is the plan's, found when the comparison runs", c, err)
+	}
+	applied := result.Criteria{DosePercent: 3, DTAmm: 2, Normalisation: "global", NormDoseGy: 60, NormDoseSource: "prescription", ThresholdPercent: 10, SearchMM: 6}
+	if err := p.CheckCriteria(applied); err != nil {
+		t.Errorf("normalised to the prescription as asked: %v", err)
+	}
+	applied.NormDoseSource = "reference maximum"
+	if err := p.CheckCriteria(applied); err == nil || !strings.Contains(err.Error(), "the RT Plan's prescription in the protocol") {
+		t.Errorf("normalised to the reference maximum: %v", err)
+	}
+	_, err = Parse([]byte("name: rx\ncriteria: {criteria: 3%/2mm, norm_dose_from: prescription, norm_dose_gy: 60}\nrules:\n  - {subject: overall, metric: pass_rate, op: \">=\", limit: 95}\n"), "rx2.yaml")
+	if err == nil || !strings.Contains(err.Error(), "leave norm_dose_gy out") {
+		t.Errorf("with norm_dose_gy: %v", err)
+	}
+	_, err = Parse([]byte("name: rx\ncriteria: {criteria: 3%/2mm, norm_dose_from: plan}\nrules:\n  - {subject: overall, metric: pass_rate, op: \">=\", limit: 95}\n"), "rx3.yaml")
+	if err == nil || !strings.Contains(err.Error(), `"prescription"`) {
+		t.Errorf("an unknown source: %v", err)
+	}
+}
