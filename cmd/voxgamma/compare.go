@@ -331,6 +331,7 @@ func (f *compareFlags) deidScope(g *globals) (*deid.Scope, error) {
 		d.Path(p, "evaluated")
 	}
 	d.Path(f.structures, "structures")
+	d.Path(f.plan, "plan")
 	return d, nil
 }
 
