@@ -53,7 +53,7 @@ var partialSummation = map[string]bool{"BEAM": true, "FRACTION": true, "CONTROL_
 //   - a DoseType missing: a warning (different types: see
 //     [DoseTypeMismatch], which the caller applies by its policy);
 //   - the doses reference different RT Plans: a warning;
-//   - summation types differ: a warning (a beam or fraction dose compared
+//   - summation types differ: a warning (a beam, fraction-group or session dose compared
 //     with a plan dose is a classic mistake); the same partial type of
 //     different beams or fraction groups: a warning;
 //   - patient IDs differ: a warning;
@@ -115,7 +115,7 @@ func CheckConsistency(ref *DoseInfo, refGrid *volume.Grid, eval *DoseInfo, evalG
 	case rs == "" || es == "":
 		f.warnf("DoseSummationType missing (reference %s, evaluated %s): cannot check that both are the same kind of dose", orNone(rs), orNone(es))
 	case rs != es && (partialSummation[rs] || partialSummation[es]):
-		f.warnf("DoseSummationType differs: reference (%s) %s, evaluated (%s) %s: comparing a beam or fraction dose with a plan dose is a classic mistake (a fraction dose differs from the plan total by the number of fractions); check that these are the files you mean", rn, rs, en, es)
+		f.warnf("DoseSummationType differs: reference (%s) %s, evaluated (%s) %s: comparing a beam, fraction-group or session dose with a plan dose is a classic mistake (PS3.3 C.8.8.3: FRACTION is the whole delivery of one fraction group, the *_SESSION types one session, which differs from the course total by the number of sessions); check that these are the files you mean", rn, rs, en, es)
 	case rs != es:
 		f.warnf("DoseSummationType differs: reference (%s) %s, evaluated (%s) %s", rn, rs, en, es)
 	case partialSummation[rs] && (ref.ReferencedFractionGroupNumber != eval.ReferencedFractionGroupNumber || ref.ReferencedBeamNumber != eval.ReferencedBeamNumber):

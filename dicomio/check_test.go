@@ -84,7 +84,7 @@ func TestCheckConsistency(t *testing.T) {
 	e = same()
 	e.DoseSummationType = "BEAM"
 	f = dicomio.CheckConsistency(rinfo, ref, e, full, nil, false)
-	if len(f.Errors) != 0 || !contains(f.Warnings, "reference (ref.dcm) PLAN, evaluated (eval.dcm) BEAM: comparing a beam or fraction dose with a plan dose is a classic mistake") {
+	if len(f.Errors) != 0 || !contains(f.Warnings, "reference (ref.dcm) PLAN, evaluated (eval.dcm) BEAM: comparing a beam, fraction-group or session dose with a plan dose is a classic mistake") {
 		t.Errorf("summation differs: %+v", f)
 	}
 

@@ -354,7 +354,7 @@ func (fo *Folder) ChooseFor(opt ChooseOptions) (*Choice, error) {
 		c.Account = append(c.Account, byRole)
 	}
 	if best == 2 {
-		c.Account = append(c.Account, fmt.Sprintf("warning: %s is not a whole-plan dose (%s): comparing a beam or fraction dose with a plan dose is a classic mistake",
+		c.Account = append(c.Account, fmt.Sprintf("warning: %s is not a whole-plan dose (%s): comparing a beam, fraction-group or session dose with a plan dose is a classic mistake",
 			name(d.Path), summationLabel(in.DoseSummationType)))
 	}
 	for _, o := range others {

@@ -113,7 +113,7 @@ func TestChooseOnlyBeamDose(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if !hasLine(c.Account, "warning: beam.dcm is not a whole-plan dose (DoseSummationType BEAM): comparing a beam or fraction dose with a plan dose is a classic mistake") ||
+	if !hasLine(c.Account, "warning: beam.dcm is not a whole-plan dose (DoseSummationType BEAM): comparing a beam, fraction-group or session dose with a plan dose is a classic mistake") ||
 		!hasLine(c.Account, "no RT Structure Set in the folder") || c.StructureSet != nil {
 		t.Errorf("account:\n%s", c.Report())
 	}
