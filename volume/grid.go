@@ -193,6 +193,17 @@ func (g *Grid) Origin() [3]float64 { return g.origin }
 // Axis returns the patient axis and sense of index axis a (0, 1 or 2).
 func (g *Grid) Axis(a int) Axis { return g.axes[a] }
 
+// AxisAlong returns the index axis (0, 1 or 2) that runs along patient
+// axis p (0 = x, 1 = y, 2 = z), in either sense.
+func (g *Grid) AxisAlong(p int) int {
+	for a := 0; a < 3; a++ {
+		if g.axes[a].Patient == p {
+			return a
+		}
+	}
+	panic(fmt.Sprintf("volume: no index axis along patient axis %d", p))
+}
+
 // Direction returns the direction cosines of the three index axes.
 func (g *Grid) Direction() [3][3]float64 {
 	var d [3][3]float64
