@@ -43,7 +43,7 @@ func benchCase(b *testing.B, nx, ny, nz int) (ref, eval *volume.Grid) {
 	return ref, eval
 }
 
-func benchmarkCompare(b *testing.B, dims [3]int, dosePct, dta float64, norm Normalisation) {
+func benchmarkCompare(b *testing.B, dims [3]int, dosePct, dta float64, norm Normalisation, interp Interpolation) {
 	ref, eval := benchCase(b, dims[0], dims[1], dims[2])
 	c := Criteria{DosePercent: dosePct, DTA: dta, Normalisation: norm, ThresholdPercent: 10}
 	var res *Result
@@ -54,7 +54,7 @@ func benchmarkCompare(b *testing.B, dims [3]int, dosePct, dta float64, norm Norm
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
-		res, err = CompareGrids(context.Background(), ref, eval, c, Options{})
+		res, err = CompareGrids(context.Background(), ref, eval, c, Options{Interpolation: interp})
 		if err != nil {
 			b.Fatal(err)
 		}
@@ -74,7 +74,7 @@ func benchmarkCompare(b *testing.B, dims [3]int, dosePct, dta float64, norm Norm
 	b.ReportMetric(pts, "points")
 }
 
-func benchmarkExhaustive(b *testing.B, dims [3]int, dosePct, dta float64, norm Normalisation) {
+func benchmarkExhaustive(b *testing.B, dims [3]int, dosePct, dta float64, norm Normalisation, interp Interpolation) {
 	ref, eval := benchCase(b, dims[0], dims[1], dims[2])
 	c := Criteria{DosePercent: dosePct, DTA: dta, Normalisation: norm, ThresholdPercent: 10}
 	// About 300 evenly spread voxels at or above the threshold keep the
@@ -95,7 +95,7 @@ func benchmarkExhaustive(b *testing.B, dims [3]int, dosePct, dta float64, norm N
 	var err error
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
-		res, err = CompareGrids(context.Background(), ref, eval, c, Options{Only: only, Method: Exhaustive})
+		res, err = CompareGrids(context.Background(), ref, eval, c, Options{Only: only, Method: Exhaustive, Interpolation: interp})
 		if err != nil {
 			b.Fatal(err)
 		}
@@ -107,7 +107,7 @@ func benchmarkExhaustive(b *testing.B, dims [3]int, dosePct, dta float64, norm N
 	b.ReportMetric(pts/(nsPerOp/1e9), "points/s")
 	b.ReportMetric(pts, "points")
 	// Accuracy of the fast method on the same points, against this oracle.
-	fast, err := CompareGrids(context.Background(), ref, eval, c, Options{Only: only})
+	fast, err := CompareGrids(context.Background(), ref, eval, c, Options{Only: only, Interpolation: interp})
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -133,13 +133,18 @@ var benchCriteria = []struct {
 	norm      Normalisation
 }{{3, 2, Global}, {3, 2, Local}, {2, 1, Global}, {2, 1, Local}}
 
-// BenchmarkCompare runs the fast method on every size and criteria set.
+var benchInterps = []Interpolation{CubicBSpline, Trilinear, LinearSimplex}
+
+// BenchmarkCompare runs the fast method on every interpolation, size and
+// criteria set.
 func BenchmarkCompare(b *testing.B) {
-	for _, d := range benchSizes {
-		for _, c := range benchCriteria {
-			b.Run(fmt.Sprintf("%dx%dx%d/%g%%_%gmm_%v", d[0], d[1], d[2], c.dose, c.dta, c.norm), func(b *testing.B) {
-				benchmarkCompare(b, d, c.dose, c.dta, c.norm)
-			})
+	for _, in := range benchInterps {
+		for _, d := range benchSizes {
+			for _, c := range benchCriteria {
+				b.Run(fmt.Sprintf("%v/%dx%dx%d/%g%%_%gmm_%v", in, d[0], d[1], d[2], c.dose, c.dta, c.norm), func(b *testing.B) {
+					benchmarkCompare(b, d, c.dose, c.dta, c.norm, in)
+				})
+			}
 		}
 	}
 }
@@ -147,10 +152,64 @@ func BenchmarkCompare(b *testing.B) {
 // BenchmarkExhaustive runs the exhaustive method on a subset of the same
 // inputs; compare its ns/point with BenchmarkCompare's.
 func BenchmarkExhaustive(b *testing.B) {
-	for _, d := range benchSizes {
-		for _, c := range benchCriteria {
-			b.Run(fmt.Sprintf("%dx%dx%d/%g%%_%gmm_%v", d[0], d[1], d[2], c.dose, c.dta, c.norm), func(b *testing.B) {
-				benchmarkExhaustive(b, d, c.dose, c.dta, c.norm)
+	for _, in := range benchInterps {
+		for _, d := range benchSizes {
+			for _, c := range benchCriteria {
+				b.Run(fmt.Sprintf("%v/%dx%dx%d/%g%%_%gmm_%v", in, d[0], d[1], d[2], c.dose, c.dta, c.norm), func(b *testing.B) {
+					benchmarkExhaustive(b, d, c.dose, c.dta, c.norm, in)
+				})
+			}
+		}
+	}
+}
+
+// benchCoarse is benchCase with the evaluated dose on a 2.5 mm grid
+// (misaligned with the reference's 1 mm grid), as Monte Carlo and planning
+// systems often export it.
+func benchCoarse(b *testing.B, n int) (ref, eval *volume.Grid) {
+	b.Helper()
+	ref, _ = benchCase(b, n, n, n)
+	m := int(float64(n)/2.5) + 3
+	o := -float64(m-1) * 2.5 / 2
+	eval = mustGrid(b, [3]int{m, m, m}, [3]float64{o + 0.3, o - 0.4, o + 0.2}, [3]float64{2.5, 2.5, 2.5}, volume.Identity)
+	half := [3]float64{float64(n) * 0.3, float64(n) * 0.25, float64(n) * 0.3}
+	plan := func(p [3]float64) float64 {
+		v := 60.0
+		for a := 0; a < 3; a++ {
+			v *= 0.5 * (math.Erf((half[a]-p[a])/3) + math.Erf((half[a]+p[a])/3))
+		}
+		r2 := p[0]*p[0] + p[1]*p[1] + p[2]*p[2]
+		return v + 8*math.Exp(-r2/(2*float64(n*n)/9))
+	}
+	rng := rand.New(rand.NewPCG(3, 4))
+	fill(eval, func(p [3]float64) float64 {
+		d := 1.01 * plan([3]float64{p[0] - 0.5, p[1], p[2]})
+		return d + 0.6*math.Sqrt(math.Max(d, 0)/60)*rng.NormFloat64()
+	})
+	return ref, eval
+}
+
+// BenchmarkCompareCoarse runs the fast method with a 2.5 mm evaluated grid
+// against the 1 mm reference of benchCase, 3 %/2 mm global, every
+// interpolation.
+func BenchmarkCompareCoarse(b *testing.B) {
+	for _, in := range benchInterps {
+		for _, n := range []int{64, 128} {
+			b.Run(fmt.Sprintf("%v/%d", in, n), func(b *testing.B) {
+				ref, eval := benchCoarse(b, n)
+				c := Criteria{DosePercent: 3, DTA: 2, Normalisation: Global, ThresholdPercent: 10}
+				var res *Result
+				var err error
+				b.ResetTimer()
+				for i := 0; i < b.N; i++ {
+					if res, err = CompareGrids(context.Background(), ref, eval, c, Options{Interpolation: in}); err != nil {
+						b.Fatal(err)
+					}
+				}
+				b.StopTimer()
+				pts := float64(res.Stats.Evaluated)
+				b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/pts, "ns/point")
+				b.ReportMetric(res.Stats.PassRate, "pass%")
 			})
 		}
 	}

@@ -98,6 +98,9 @@ type Options struct {
 	// means DTA/10 (Wendling et al., Med Phys 34 (2007) 1647: statistics
 	// converge once the step is at most about Δd/10).
 	ExhaustiveStep float64
+	// Interpolation selects the evaluated dose between grid nodes; the
+	// default (zero value) is CubicBSpline.
+	Interpolation Interpolation
 }
 
 // Result is the outcome of one comparison.
@@ -106,6 +109,19 @@ type Result struct {
 	Criteria Criteria
 	// Method used.
 	Method Method
+	// Interpolation of the evaluated dose used.
+	Interpolation Interpolation
+	// WorstTolerance is the largest amount by which a reported Γ may lie
+	// above the interpolant's minimum, as the fast search certified it: 0
+	// for the linear-simplex interpolant (solved exactly), 10⁻⁷ for the
+	// others unless a point's search was cut short (Uncertified); 0 for
+	// the exhaustive method, a sampling with no such certificate (an upper
+	// bound of the minimum).
+	WorstTolerance float64
+	// Uncertified counts the points whose minimum the fast search could
+	// certify only to a looser tolerance than 10⁻⁷ (at most
+	// WorstTolerance).
+	Uncertified int
 	// Gamma holds Γ per reference point, in the reference's order (for a
 	// grid, the order of its Data); NaN where the point was not evaluated.
 	Gamma []float32
@@ -127,8 +143,7 @@ func CompareGrids(ctx context.Context, ref, eval *volume.Grid, c Criteria, opt O
 	if opt.Only != nil && opt.Only.Dims() != ref.Dims() {
 		return nil, fmt.Errorf("gamma: selection mask %v does not match the reference grid %v", opt.Only.Dims(), ref.Dims())
 	}
-	src := newGridSource(ref, eval, c.DTA)
-	return compare(ctx, src, eval, c, opt)
+	return compare(ctx, &gridSource{ref: ref}, eval, c, opt)
 }
 
 // ComparePoints computes Γ for scattered reference points (a detector array)
@@ -147,13 +162,15 @@ func ComparePoints(ctx context.Context, pts []Point, eval *volume.Grid, c Criter
 			return nil, fmt.Errorf("gamma: reference point %d has a non-finite dose", n)
 		}
 	}
-	return compare(ctx, &pointSource{pts: pts, eval: eval, dta: c.DTA}, eval, c, opt)
+	return compare(ctx, &pointSource{pts: pts}, eval, c, opt)
 }
 
-// source yields reference points in the evaluated grid's working frame.
+// source yields reference points in the evaluated field's frame.
 type source interface {
+	// bind prepares positions in field f's canonical frame.
+	bind(f *field, dta float64)
 	len() int
-	// at returns point n's position (DTA units, evaluated local frame) and dose.
+	// at returns point n's position (DTA units, canonical frame) and dose.
 	at(n int) ([3]float64, float64)
 	selected(n int, only *volume.Mask) bool
 	maxDose() float64
@@ -161,32 +178,25 @@ type source interface {
 
 type gridSource struct {
 	ref *volume.Grid
-	// tab[a][m] is the evaluated local coordinate (DTA units) along eval
-	// axis a of reference index m along reference axis from[a].
+	// tab[a][m] is the canonical coordinate (DTA units) along patient axis
+	// a of reference index m along reference axis from[a].
 	tab  [3][]float64
 	from [3]int
 }
 
-func newGridSource(ref, eval *volume.Grid, dta float64) *gridSource {
-	s := &gridSource{ref: ref}
-	ro, eo := ref.Origin(), eval.Origin()
+func (s *gridSource) bind(f *field, dta float64) {
+	ro := s.ref.Origin()
 	for a := 0; a < 3; a++ {
-		ea := eval.Axis(a)
-		for b := 0; b < 3; b++ {
-			rb := ref.Axis(b)
-			if rb.Patient != ea.Patient {
-				continue
-			}
-			s.from[a] = b
-			off := ref.Offsets(b)
-			s.tab[a] = make([]float64, len(off))
-			for m, o := range off {
-				world := ro[ea.Patient] + rb.Sign*o
-				s.tab[a][m] = ea.Sign * (world - eo[ea.Patient]) / dta
-			}
+		b := s.ref.AxisAlong(a)
+		rb := s.ref.Axis(b)
+		s.from[a] = b
+		off := s.ref.Offsets(b)
+		s.tab[a] = make([]float64, len(off))
+		for m, o := range off {
+			world := ro[a] + rb.Sign*o
+			s.tab[a][m] = (world - f.origin[a]) / dta
 		}
 	}
-	return s
 }
 
 func (s *gridSource) len() int { return len(s.ref.Data) }
@@ -208,16 +218,17 @@ func (s *gridSource) maxDose() float64 {
 }
 
 type pointSource struct {
-	pts  []Point
-	eval *volume.Grid
-	dta  float64
+	pts []Point
+	f   *field
+	dta float64
 }
+
+func (s *pointSource) bind(f *field, dta float64) { s.f, s.dta = f, dta }
 
 func (s *pointSource) len() int { return len(s.pts) }
 
 func (s *pointSource) at(n int) ([3]float64, float64) {
-	u := s.eval.WorldToLocal(s.pts[n].Pos)
-	return [3]float64{u[0] / s.dta, u[1] / s.dta, u[2] / s.dta}, s.pts[n].Dose
+	return s.f.local(s.pts[n].Pos, s.dta), s.pts[n].Dose
 }
 
 func (s *pointSource) selected(int, *volume.Mask) bool { return true }
@@ -242,6 +253,9 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 	if err := c.Validate(); err != nil {
 		return nil, fmt.Errorf("gamma: %w", err)
 	}
+	if opt.Interpolation < CubicBSpline || opt.Interpolation > LinearSimplex {
+		return nil, fmt.Errorf("gamma: unknown interpolation %v", opt.Interpolation)
+	}
 	if c.NormDose == 0 {
 		c.NormDose = src.maxDose()
 		if !(c.NormDose > 0) {
@@ -264,15 +278,18 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		workers = runtime.GOMAXPROCS(0)
 	}
 
-	f := newField(eval, c.DTA)
+	f, err := newField(eval, c.DTA, opt.Interpolation, workers)
+	if err != nil {
+		return nil, fmt.Errorf("gamma: %w", err)
+	}
+	src.bind(f, c.DTA)
 	n := src.len()
-	res := &Result{Criteria: c, Method: opt.Method, Gamma: make([]float32, n), Status: make([]Status, n)}
+	res := &Result{Criteria: c, Method: opt.Method, Interpolation: opt.Interpolation, Gamma: make([]float32, n), Status: make([]Status, n)}
 	threshold := c.ThresholdPercent / 100 * c.NormDose
 	wGlobal := 1 / (c.DosePercent / 100 * c.NormDose)
 
-	// classify sets point i's status (Evaluated: still to be searched) and
-	// returns its position and dose.
-	classify := func(i int) ([3]float64, float64, bool) {
+	// classify sets point i's status (Evaluated: still to be searched).
+	classify := func(i int) bool {
 		res.Gamma[i] = float32(math.NaN())
 		q, d := src.at(i)
 		switch {
@@ -284,11 +301,11 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 			res.Status[i] = Outside
 		default:
 			res.Status[i] = Evaluated
-			return q, d, true
+			return true
 		}
-		return q, d, false
+		return false
 	}
-	s := &searcher{f: f, rn: c.Search / c.DTA, treeFrom: treeFrom}
+	s := &searcher{f: f, sp: f.sp, rn: c.Search / c.DTA, treeFrom: treeFrom}
 	weight := func(d float64) float64 {
 		if c.Normalisation == Local {
 			return 1 / (c.DosePercent / 100 * d)
@@ -306,61 +323,89 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		}
 	}
 	p := &pool{ctx: ctx, n: n, workers: workers, progress: opt.Progress}
-	var err error
-	if opt.Method == Exhaustive {
+	p.total, err = p.run(false, func(i int, _ *scratch) bool { return classify(i) })
+	if err == nil && p.total > 0 && opt.Method == Exhaustive {
 		step := opt.ExhaustiveStep
 		if step == 0 {
 			step = c.DTA / 10
 		}
 		s.latStep = step / c.DTA
-		s.grid = eval
+		s.grid = f.canonicalGrid()
 		s.dta = c.DTA
-		p.total, err = p.run(false, func(i int, _ *scratch) bool {
-			_, _, ok := classify(i)
-			return ok
-		})
-		if err == nil && p.total > 0 {
-			_, err = p.run(true, func(i int, sc *scratch) bool {
-				if res.Status[i] != Evaluated {
-					return false
-				}
-				q, d := src.at(i)
-				finish(i, s.exhaustive(q, d, weight(d)))
-				return true
-			})
-		}
-	} else {
-		// Pass 1: classification, and the bound from the cell holding each
-		// point, kept as Γ² in Gamma; points whose bound stays above
-		// treeFrom are marked for the k-d tree.
-		p.total, err = p.run(false, func(i int, sc *scratch) bool {
-			q, d, ok := classify(i)
-			if !ok {
+		_, err = p.run(true, func(i int, sc *scratch) bool {
+			if res.Status[i] != Evaluated {
 				return false
 			}
-			b2 := s.home(q, d, weight(d))
-			res.Gamma[i] = float32(b2)
-			if b2 > s.treeFrom {
-				res.Status[i] = needsTree
-			}
+			q, d := src.at(i)
+			finish(i, s.exhaustive(q, d, weight(d)))
 			return true
 		})
-		if err == nil && p.total > 0 {
+	} else if err == nil && p.total > 0 {
+		// Pass 1: each point from its home (the cell holding it, and for a
+		// tensor-product interpolant the local minimum Newton's method
+		// reaches from it), then, where that bound already passes, the
+		// search that settles the minimum. Points failing at home (their
+		// search ball may hold thousands of cells) keep the bound as Γ² in
+		// Gamma and are marked for the k-d tree.
+		_, err = p.run(true, func(i int, sc *scratch) bool {
+			if res.Status[i] != Evaluated {
+				return false
+			}
+			q, d := src.at(i)
+			w := weight(d)
+			var b2 float64
+			if s.sp != nil {
+				s.tensorHome(&sc.pt, q, d, w)
+				b2 = sc.pt.best2
+			} else {
+				b2 = s.home(q, d, w)
+			}
+			if b2 > s.treeFrom {
+				res.Gamma[i] = float32(b2)
+				res.Status[i] = needsTree
+				return false
+			}
+			if s.sp != nil {
+				s.certify(&sc.pt, &sc.ts)
+				sc.record(&sc.pt)
+				b2 = sc.pt.best2
+			} else {
+				b2 = s.rest(q, d, w, b2, false, sc)
+			}
+			finish(i, b2)
+			return true
+		})
+		if err == nil {
 			// The tree covers the evaluated nodes within the search
 			// distance of the marked points only.
 			s.buildTree(src, res.Status, wGlobal)
-			// Pass 2: the tree where marked, then every other cell that
-			// could beat the bound.
+			// Pass 2: the marked points, from the tree's nearest node and
+			// then every cell that could beat the bound.
 			_, err = p.run(true, func(i int, sc *scratch) bool {
-				st := res.Status[i]
-				if st != Evaluated && st != needsTree {
+				if res.Status[i] != needsTree {
 					return false
 				}
 				q, d := src.at(i)
-				finish(i, s.rest(q, d, weight(d), float64(res.Gamma[i]), st == needsTree, sc))
+				w := weight(d)
+				if s.sp != nil {
+					s.tensorHome(&sc.pt, q, d, w)
+					s.treeSeed(&sc.pt)
+					s.certify(&sc.pt, &sc.ts)
+					sc.record(&sc.pt)
+					finish(i, sc.pt.best2)
+				} else {
+					finish(i, s.rest(q, d, w, float64(res.Gamma[i]), true, sc))
+				}
 				return true
 			})
 		}
+	}
+	for _, sc := range p.scratches {
+		res.Uncertified += sc.uncertified
+		res.WorstTolerance = math.Max(res.WorstTolerance, sc.worstGap)
+	}
+	if s.sp != nil && opt.Method == Fast {
+		res.WorstTolerance = math.Max(res.WorstTolerance, certTol)
 	}
 	if err != nil {
 		return nil, fmt.Errorf("gamma: %w", err)
@@ -385,11 +430,29 @@ type scratch struct {
 	cell    [maxSorted][3]int32
 	corners [maxSorted][8]float64
 	order   [maxSorted]uint8
+
+	// The tensor-product search: the point's state and the worker's
+	// candidate heap and box stack.
+	pt tpoint
+	ts tscratch
+	// uncertified counts the points whose minimum could be certified only
+	// to a looser tolerance than certTol; worstGap is the loosest.
+	uncertified int
+	worstGap    float64
+}
+
+// record adds point pt's certification to the worker's tally.
+func (sc *scratch) record(pt *tpoint) {
+	if pt.gap > certTol {
+		sc.uncertified++
+		sc.worstGap = math.Max(sc.worstGap, pt.gap)
+	}
 }
 
 // searcher holds what the per-point search reads; it is shared read-only.
 type searcher struct {
 	f  *field
+	sp *spline // the tensor-product interpolant; nil for linear-simplex
 	rn float64 // search distance in DTA units
 
 	// Fast method: k-d tree over the evaluated nodes near the points whose
@@ -426,6 +489,10 @@ type pool struct {
 	workers  int
 	progress func(done, total int)
 	total    int
+	// done counts the points evaluated so far by the runs that report.
+	done int
+	// scratches are the worker memories of every run, for their tallies.
+	scratches []*scratch
 }
 
 // run calls fn for every point; fn reports whether it evaluated the point
@@ -436,6 +503,9 @@ func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) (int, error) {
 	var mu sync.Mutex
 	var next atomic.Int64
 	done := 0
+	if report {
+		done = p.done
+	}
 	blocks := (p.n + blockSize - 1) / blockSize
 	g, gctx := errgroup.WithContext(p.ctx)
 	for w := 0; w < min(p.workers, blocks); w++ {
@@ -448,6 +518,9 @@ func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) (int, error) {
 				}
 			}()
 			sc := new(scratch)
+			mu.Lock()
+			p.scratches = append(p.scratches, sc)
+			mu.Unlock()
 			for {
 				b := int(next.Add(1)) - 1
 				if b >= blocks {
@@ -473,6 +546,11 @@ func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) (int, error) {
 		})
 	}
 	err := g.Wait()
+	if report {
+		n := done - p.done
+		p.done = done
+		return n, err
+	}
 	return done, err
 }
 

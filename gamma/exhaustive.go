@@ -1,6 +1,7 @@
 package gamma
 
 import (
+	"fmt"
 	"math"
 	"sort"
 
@@ -18,8 +19,8 @@ const exhaustiveCandidates = 64
 // few lattice positions, lattices of 7³ positions spanning ±1.5 of the
 // previous step, each round's step half the last, zoom in until the step is
 // below 1e-5 DTA, removing the first lattice's own error. The evaluated
-// dose is interpolated with volume.Grid.SampleLocal, a code path separate
-// from the fast search's cells. Returns a value ≥ rn² when nothing within
+// dose is interpolated by sampleDirect, a code path separate from the fast
+// search's cells and patches. Returns a value ≥ rn² when nothing within
 // the search distance is below rn.
 func (s *searcher) exhaustive(q [3]float64, dr, w float64) float64 {
 	rn, h := s.rn, s.latStep
@@ -40,8 +41,7 @@ func (s *searcher) exhaustive(q [3]float64, dr, w float64) float64 {
 		if o[0]*o[0]+o[1]*o[1]+o[2]*o[2] > rn*rn {
 			return math.Inf(1)
 		}
-		u := [3]float64{(q[0] + o[0]) * s.dta, (q[1] + o[1]) * s.dta, (q[2] + o[2]) * s.dta}
-		e, ok := kuhnSample(s.grid, u)
+		e, ok := s.sampleDirect([3]float64{q[0] + o[0], q[1] + o[1], q[2] + o[2]})
 		if !ok {
 			return math.Inf(1)
 		}
@@ -135,4 +135,95 @@ func kuhnSample(g *volume.Grid, u [3]float64) (float64, bool) {
 	v[order[2]] = 1
 	value += t[order[2]] * at(v)
 	return value, true
+}
+
+// canonicalGrid returns the field's samples as a volume.Grid in the
+// canonical frame (patient axes, increasing), sharing the samples.
+func (f *field) canonicalGrid() *volume.Grid {
+	g, err := volume.New(f.n, f.origin, volume.Identity, f.offMM)
+	if err != nil {
+		panic(fmt.Sprintf("gamma: canonical grid: %v", err))
+	}
+	g.Data = f.data
+	return g
+}
+
+// sampleDirect evaluates the interpolant at canonical position p (DTA
+// units) point by point, with code separate from the fast search's: the
+// simplex interpolant from the tetrahedron holding p, trilinear through
+// volume.Grid.SampleLocal, the cubic B-spline from the recursive
+// definition of its basis functions. It reports false outside the grid.
+func (s *searcher) sampleDirect(p [3]float64) (float64, bool) {
+	u := [3]float64{p[0] * s.dta, p[1] * s.dta, p[2] * s.dta}
+	switch s.f.interp {
+	case LinearSimplex:
+		return kuhnSample(s.grid, u)
+	case Trilinear:
+		return s.grid.SampleLocal(u)
+	}
+	var c [3]int
+	for a := 0; a < 3; a++ {
+		var ok bool
+		if c[a], _, ok = s.grid.Cell(a, u[a]); !ok {
+			return 0, false
+		}
+	}
+	var w [3][4]float64
+	for a := 0; a < 3; a++ {
+		w[a] = s.sp.ax[a].directBasis(c[a], math.Max(0, math.Min(p[a], s.f.off[a][s.f.n[a]-1])))
+	}
+	sp := s.sp
+	v := 0.0
+	for k := 0; k < 4; k++ {
+		for j := 0; j < 4; j++ {
+			for i := 0; i < 4; i++ {
+				idx := (c[0]+i)*sp.cs[0] + (c[1]+j)*sp.cs[1] + (c[2]+k)*sp.cs[2]
+				v += w[0][i] * w[1][j] * w[2][k] * float64(sp.coef[idx])
+			}
+		}
+	}
+	return v, true
+}
+
+// directBasis returns the weights of the padded coefficients c … c+3 at x
+// in cell c by the recursive definition of the B-splines (Cox-de Boor):
+// N_{m,0} is 1 on the knot span of cell c only, and N_{m,d} =
+// (x − τ_m)/(τ_{m+d} − τ_m)·N_{m,d-1} + (τ_{m+d+1} − x)/(τ_{m+d+1} −
+// τ_{m+1})·N_{m+1,d-1}.
+func (ax *axisSpline) directBasis(c int, x float64) [4]float64 {
+	if ax.kind == axisConst {
+		return [4]float64{0, 1, 0, 0}
+	}
+	// Knots τ_{c-3} … τ_{c+4}; the outermost two only ever multiply zero.
+	var t [8]float64
+	for m := 0; m < 8; m++ {
+		i := c - 3 + m
+		switch {
+		case i < -2:
+			t[m] = 2*ax.tau[0] - ax.tau[1]
+		case i > ax.n+1:
+			t[m] = 2*ax.tau[ax.n+3] - ax.tau[ax.n+2]
+		default:
+			t[m] = ax.tau[i+2]
+		}
+	}
+	// n[m] holds N_{c-3+m, d}.
+	var nb [8]float64
+	nb[3] = 1 // the span of cell c is [τ_c, τ_{c+1}] = [t[3], t[4]]
+	for d := 1; d <= 3; d++ {
+		var next [8]float64
+		for m := 0; m+d+1 < 8; m++ {
+			v := 0.0
+			if den := t[m+d] - t[m]; den > 0 {
+				v += (x - t[m]) / den * nb[m]
+			}
+			if den := t[m+d+1] - t[m+1]; den > 0 {
+				v += (t[m+d+1] - x) / den * nb[m+1]
+			}
+			next[m] = v
+		}
+		nb = next
+	}
+	// N_{c-3+m,3} is our N_{c-1+m} (padded c+m), m = 0 … 3.
+	return [4]float64{nb[0], nb[1], nb[2], nb[3]}
 }

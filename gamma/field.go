@@ -1,34 +1,61 @@
 package gamma
 
 import (
+	"fmt"
 	"math"
 	"sort"
 
 	"voxgamma/volume"
 )
 
-// field is the evaluated grid in the engine's working units: positions in
-// DTA units (mm / Δd) along the evaluated grid's local axes, doses in Gy.
-// It is read-only during a comparison and shared by all workers.
+// field is the evaluated grid in the engine's working units and frame:
+// the canonical frame, whose axes run along increasing patient x, y and z
+// from the grid's corner of lowest coordinates, positions in DTA units (mm
+// / Δd), doses in Gy. Laying the grid out this way first makes every
+// interpolant a function of patient position alone: a flipped or
+// transposed grid gives the same field, cell for cell. It is read-only
+// during a comparison and shared by all workers.
 type field struct {
 	n      [3]int
 	off    [3][]float64 // sample positions in DTA units, increasing, off[a][0] = 0
 	step   [3]float64   // uniform step in DTA units, 0 when not uniform or single-sample
 	stride [3]int       // index stride of each axis; 0 on a single-sample axis
 	invH   [3][]float64 // 1 / cell size along each axis, per cell (DTA units)
-	data   []float32
+	data   []float32    // samples in canonical order
+
+	// origin is the patient position (mm) of canonical sample (0, 0, 0);
+	// offMM the sample positions in mm from it.
+	origin [3]float64
+	offMM  [3][]float64
+
+	interp Interpolation
+	// sp is the tensor-product interpolant (cubic B-spline or trilinear);
+	// nil for the piecewise-linear simplex interpolant.
+	sp *spline
 }
 
-func newField(g *volume.Grid, dta float64) *field {
-	f := &field{n: g.Dims(), data: g.Data}
+// newField lays g out in the canonical frame and builds the interpolant.
+// It refuses a grid with a sample that is not a finite number: every
+// interpolant would carry it into its neighbours (the cubic B-spline along
+// whole lines), and no Γ near it could be trusted.
+func newField(g *volume.Grid, dta float64, interp Interpolation, workers int) (*field, error) {
+	if interp < CubicBSpline || interp > LinearSimplex {
+		return nil, fmt.Errorf("unknown interpolation %v", interp)
+	}
+	lay := canonicalLayout(g)
+	f := &field{n: lay.n, data: lay.data, origin: lay.origin, offMM: lay.off, interp: interp}
+	if n, bad := firstNonFinite(g.Data); bad {
+		i, j, k := g.IJK(n)
+		return nil, fmt.Errorf("the evaluated dose has a sample that is not a finite number (%v) at voxel (%d, %d, %d): refusing to interpolate it", g.Data[n], i, j, k)
+	}
 	strides := [3]int{1, f.n[0], f.n[0] * f.n[1]}
 	for a := 0; a < 3; a++ {
-		src := g.Offsets(a)
+		src := lay.off[a]
 		f.off[a] = make([]float64, len(src))
 		for i, v := range src {
 			f.off[a][i] = v / dta
 		}
-		if s, uniform := g.Spacing(a); uniform && s > 0 {
+		if s, uniform := g.Spacing(g.AxisAlong(a)); uniform && s > 0 {
 			f.step[a] = s / dta
 		}
 		if f.n[a] > 1 {
@@ -39,7 +66,88 @@ func newField(g *volume.Grid, dta float64) *field {
 			}
 		}
 	}
-	return f
+	if interp != LinearSimplex {
+		f.sp = newSpline(f, interp, workers)
+	}
+	return f, nil
+}
+
+// firstNonFinite returns the index of the first NaN or infinite sample.
+func firstNonFinite(d []float32) (int, bool) {
+	for n, v := range d {
+		if v-v != 0 { // NaN or ±Inf
+			return n, true
+		}
+	}
+	return 0, false
+}
+
+// layout is a grid laid out along increasing patient x, y and z.
+type layout struct {
+	n      [3]int
+	origin [3]float64   // patient position (mm) of sample (0, 0, 0)
+	off    [3][]float64 // increasing offsets (mm) from origin
+	data   []float32    // samples, index i + n0·(j + n1·k)
+}
+
+// canonicalLayout returns g's samples along increasing patient x, y, z.
+// The grid's own slices are reused when it is already laid out so
+// (head-first supine); otherwise the samples are copied.
+func canonicalLayout(g *volume.Grid) layout {
+	var lay layout
+	dims := g.Dims()
+	gs := [3]int{1, dims[0], dims[0] * dims[1]}
+	var srcStride [3]int
+	start := 0
+	same := true
+	for p := 0; p < 3; p++ {
+		a := g.AxisAlong(p)
+		ax := g.Axis(a)
+		n := dims[a]
+		lay.n[p] = n
+		off := g.Offsets(a)
+		if a != p || ax.Sign < 0 {
+			same = false
+		}
+		if ax.Sign > 0 {
+			lay.off[p] = off
+			lay.origin[p] = g.Origin()[p]
+			srcStride[p] = gs[a]
+		} else {
+			last := off[n-1]
+			lay.origin[p] = g.Origin()[p] - last
+			lay.off[p] = make([]float64, n)
+			for j := range lay.off[p] {
+				lay.off[p][j] = last - off[n-1-j]
+			}
+			lay.off[p][0] = 0
+			srcStride[p] = -gs[a]
+			start += (n - 1) * gs[a]
+		}
+	}
+	if same {
+		lay.data = g.Data
+		return lay
+	}
+	lay.data = make([]float32, len(g.Data))
+	d := 0
+	for k := 0; k < lay.n[2]; k++ {
+		for j := 0; j < lay.n[1]; j++ {
+			s := start + j*srcStride[1] + k*srcStride[2]
+			for i := 0; i < lay.n[0]; i++ {
+				lay.data[d] = g.Data[s]
+				d++
+				s += srcStride[0]
+			}
+		}
+	}
+	return lay
+}
+
+// local returns the canonical position (DTA units) of patient position p
+// (mm).
+func (f *field) local(p [3]float64, dta float64) [3]float64 {
+	return [3]float64{(p[0] - f.origin[0]) / dta, (p[1] - f.origin[1]) / dta, (p[2] - f.origin[2]) / dta}
 }
 
 // insideTol is the relative tolerance with which a point on the grid's
