@@ -37,6 +37,8 @@ type Settings struct {
 	NormDoseFromPrescription bool
 	// Method of the gamma search.
 	Method gamma.Method
+	// Interpolation of the evaluated dose between its grid nodes.
+	Interpolation gamma.Interpolation
 	// KindRules classify ROIs by name (see roi.Classify); the first
 	// CLIKindRules of them were given on the command line.
 	KindRules    []roi.Rule
@@ -290,7 +292,7 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	if p.scaleSource != "" {
 		res.Choices.EvaluatedScale, res.Choices.EvaluatedScaleSource = result.Ptr(p.scale), p.scaleSource
 	}
-	opt := gamma.Options{Workers: s.Workers, Progress: s.Progress, Method: s.Method}
+	opt := gamma.Options{Workers: s.Workers, Progress: s.Progress, Method: s.Method, Interpolation: s.Interpolation}
 	t0 := time.Now()
 	var gres *gamma.Result
 	var err error
@@ -315,7 +317,13 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	res.Criteria = result.Criteria{
 		DosePercent: c.DosePercent, DTAmm: c.DTA, Normalisation: c.Normalisation.String(),
 		NormDoseGy: c.NormDose, NormDoseSource: source, ThresholdPercent: c.ThresholdPercent,
-		SearchMM: c.Search, Method: gres.Method.String(), Label: c.Label(),
+		SearchMM: c.Search, Method: gres.Method.String(), Interpolation: gres.Interpolation.String(), Label: c.Label(),
+	}
+	if w := coarseGridWarning(p.Evaluated, c.DTA, gres.Interpolation); w != "" {
+		res.Warnings = append(res.Warnings, w)
+	}
+	if gres.Uncertified > 0 {
+		res.Warnings = append(res.Warnings, fmt.Sprintf("%d points: the search could prove their Γ only to within %.2g of the interpolated dose's minimum (its bound on work per point was reached)", gres.Uncertified, gres.WorstTolerance))
 	}
 	res.Overall = toGammaStats(gres.Stats)
 	if gres.Stats.Evaluated == 0 {
@@ -845,7 +853,7 @@ func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, 
 	if len(pts) == 0 {
 		return gamma.Stats{}, 0, fmt.Errorf("%w: ROI %q has no sub-grid point inside the reference grid", ErrBadInput, src.Name)
 	}
-	gr, err := gamma.ComparePoints(ctx, pts, p.Evaluated, c, gamma.Options{Workers: s.Workers, Method: s.Method})
+	gr, err := gamma.ComparePoints(ctx, pts, p.Evaluated, c, gamma.Options{Workers: s.Workers, Method: s.Method, Interpolation: s.Interpolation})
 	if err != nil {
 		return gamma.Stats{}, 0, err
 	}

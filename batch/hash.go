@@ -133,6 +133,7 @@ type settingsKey struct {
 	ThresholdPercent   float64            `json:"threshold_percent"`
 	Search             float64            `json:"search_mm"`
 	Method             string             `json:"method"`
+	Interpolation      string             `json:"interpolation"`
 	KindRules          []string           `json:"kind_rules"`
 	Isodose            []float64          `json:"isodose"`
 	VDoses             []float64          `json:"v_doses"`
@@ -163,7 +164,7 @@ func SettingsHash(p *protocol.Protocol, s analysis.Settings, o Outputs, allowFra
 		Format: "voxgamma-batch-settings/1", Version: s.Version, Protocol: p,
 		DosePercent: s.Criteria.DosePercent, DTA: s.Criteria.DTA, Normalisation: s.Criteria.Normalisation.String(),
 		NormDose: s.Criteria.NormDose, NormDoseSource: s.NormDoseSource, ThresholdPercent: s.Criteria.ThresholdPercent,
-		Search: s.Criteria.Search, Method: s.Method.String(), Isodose: s.IsodosePercents, VDoses: s.VDoses,
+		Search: s.Criteria.Search, Method: s.Method.String(), Interpolation: s.Interpolation.String(), Isodose: s.IsodosePercents, VDoses: s.VDoses,
 		SubGrid: s.SubGridROIs, SubGridStep: s.SubGridStep, MinClusterCC: s.MinClusterCC,
 		GammaMap: o.GammaMap, DifferenceMap: o.DifferenceMap, Report: o.Report, ReportPDF: o.ReportPDF, Deidentify: o.Deidentify,
 		AllowFrameMismatch: allowFrameMismatch, NoStructures: s.Choices.NoStructures, AcceptNormDose: s.AcceptNormDose,

@@ -85,6 +85,9 @@ type Overrides struct {
 	// "fractions", a factor or "1/N" (see analysis.ParseScale); "" leaves
 	// it as read.
 	ScaleEvaluated string
+	// Interpolation names the evaluated dose's interpolation
+	// (gamma.ParseInterpolation); empty means the default.
+	Interpolation string
 	// Version is recorded in the result.
 	Version string
 }
@@ -264,6 +267,11 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 	if ov.Exhaustive {
 		s.Method = gamma.Exhaustive
 		s.Choices.Method = s.Method.String()
+	}
+	if ov.Interpolation != "" {
+		if s.Interpolation, err = gamma.ParseInterpolation(ov.Interpolation); err != nil {
+			return s, fmt.Errorf("--interpolation: %w", err)
+		}
 	}
 	return s, nil
 }

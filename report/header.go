@@ -54,6 +54,7 @@ func fillHeader(m *model, r *result.Result) {
 		"low-dose threshold " + exact(c.ThresholdPercent) + " % of the normalisation dose",
 		"search distance " + exact(c.SearchMM) + " mm",
 		"search method: " + nonBlank(c.Method, "not stated"),
+		"evaluated dose between its grid nodes: " + interpolationText(c.Interpolation),
 	}
 
 	m.Title = "voxgamma dose comparison"

@@ -632,3 +632,18 @@ func capitalise(s string) string {
 	}
 	return strings.ToUpper(s[:1]) + s[1:]
 }
+
+// interpolationText describes the interpolation a result names.
+func interpolationText(name string) string {
+	switch name {
+	case "cubic-bspline":
+		return "cubic B-spline (cubic-bspline)"
+	case "trilinear":
+		return "trilinear (trilinear)"
+	case "linear-simplex":
+		return "piecewise linear on six tetrahedra per cell (linear-simplex)"
+	case "":
+		return "not stated"
+	}
+	return name
+}

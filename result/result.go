@@ -77,6 +77,9 @@ type Criteria struct {
 	SearchMM         float64 `json:"search_mm"`
 	// Method is "fast" or "exhaustive".
 	Method string `json:"method"`
+	// Interpolation names the evaluated dose between its grid nodes:
+	// "cubic-bspline", "trilinear" or "linear-simplex".
+	Interpolation string `json:"interpolation"`
 	// Label is the criteria in the trade's notation, e.g. "3%/2mm global".
 	Label string `json:"label"`
 }

@@ -1014,6 +1014,7 @@ func TestBadInputOptions(t *testing.T) {
 		{"kind_unknown", []string{"--kind", "PTV*=tumour"}, []string{"--kind", "PTV*=tumour"}},
 		{"protocol_unknown", []string{"--protocol", "no-such-protocol"}, []string{"--protocol", "no-such-protocol"}},
 		{"option_unknown", []string{"--tolerance", "3"}, []string{"--tolerance"}},
+		{"interpolation_unknown", []string{"--interpolation", "bicubic"}, []string{"--interpolation", `"bicubic"`, "cubic-bspline, trilinear, linear-simplex"}},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			refused(t, append(append([]string{}, base...), tc.opts...), tc.cause...)

@@ -16,6 +16,7 @@ import (
 	"voxgamma/batch"
 	"voxgamma/deid"
 	"voxgamma/dicomsend"
+	"voxgamma/gamma"
 	"voxgamma/job"
 	"voxgamma/protocol"
 	"voxgamma/result"
@@ -48,6 +49,7 @@ type comparisonFlags struct {
 	subgrid                   []string
 	subgridStep, minClusterCC float64
 	exhaustive                bool
+	interpolation             string
 	workers                   int
 	noStructures              bool
 	acceptNormDose            bool
@@ -94,6 +96,9 @@ func (f *comparisonFlags) overrides(cmd *cobra.Command) job.Overrides {
 	}
 	if changed("criteria") {
 		ov.Criteria = f.criteria
+	}
+	if changed("interpolation") {
+		ov.Interpolation = f.interpolation
 	}
 	if changed("local") {
 		ov.Local = &f.local
@@ -153,6 +158,7 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 	fl.StringSliceVar(&f.subgrid, "subgrid", nil, "evaluate these ROIs on a finer sub-grid of reference points (small targets)")
 	fl.Float64Var(&f.subgridStep, "subgrid-step", 0.5, "step of the --subgrid reference points, mm")
 	fl.BoolVar(&f.exhaustive, "exhaustive", false, "use the exhaustive search (slow; for audits)")
+	registerInterpolation(cmd, &f.interpolation)
 	fl.BoolVar(&f.allowFrameMismatch, "allow-frame-mismatch", false, "compare doses and structures of different frames of reference (you vouch that their coordinates agree)")
 	fl.BoolVar(&f.force, "force", false, "overwrite existing output files")
 	fl.BoolVar(&f.deidentify, "deidentify", false, "de-identify every output and message (DICOM PS3.15 Annex E intent): patient names and IDs become keyed pseudonyms, UIDs are remapped, dates, descriptions and file paths are left out (docs/patient-data.md)")
@@ -491,4 +497,10 @@ func truncate(s string, n int) string {
 		return s
 	}
 	return string(r[:n-1]) + "…"
+}
+
+// registerInterpolation registers --interpolation, shared by every command
+// that runs comparisons.
+func registerInterpolation(cmd *cobra.Command, v *string) {
+	cmd.Flags().StringVar(v, "interpolation", gamma.CubicBSpline.String(), "evaluated dose between its grid nodes: "+strings.Join(gamma.InterpolationNames(), ", ")+" (recorded in the result)")
 }
