@@ -263,6 +263,13 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		}
 	}
 	c.Search = c.SearchRadius()
+	// Every interpolant would carry a sample that is not a number into its
+	// neighbours (the cubic spline's prefilter along whole lines), and no Γ
+	// near it could be trusted: refuse the grid.
+	if n, bad := firstNonFinite(eval.Data); bad {
+		i, j, k := eval.IJK(n)
+		return nil, fmt.Errorf("gamma: the evaluated dose has a sample that is not a finite number (%v) at voxel (%d, %d, %d): refusing to interpolate it", eval.Data[n], i, j, k)
+	}
 	// Γ's dose term is (D_e − D_r)/ΔD. A ΔD so small against the doses
 	// that this term overflows float64 when squared (a normalisation dose of
 	// 1e-300 Gy, say) gives no number at all: refuse it.

@@ -35,19 +35,13 @@ type field struct {
 }
 
 // newField lays g out in the canonical frame and builds the interpolant.
-// It refuses a grid with a sample that is not a finite number: every
-// interpolant would carry it into its neighbours (the cubic B-spline along
-// whole lines), and no Γ near it could be trusted.
+// g's samples must be finite numbers (compare checks).
 func newField(g *volume.Grid, dta float64, interp Interpolation, workers int) (*field, error) {
 	if interp < CubicBSpline || interp > LinearSimplex {
 		return nil, fmt.Errorf("unknown interpolation %v", interp)
 	}
 	lay := canonicalLayout(g)
 	f := &field{n: lay.n, data: lay.data, origin: lay.origin, offMM: lay.off, interp: interp}
-	if n, bad := firstNonFinite(g.Data); bad {
-		i, j, k := g.IJK(n)
-		return nil, fmt.Errorf("the evaluated dose has a sample that is not a finite number (%v) at voxel (%d, %d, %d): refusing to interpolate it", g.Data[n], i, j, k)
-	}
 	strides := [3]int{1, f.n[0], f.n[0] * f.n[1]}
 	for a := 0; a < 3; a++ {
 		src := lay.off[a]

@@ -272,6 +272,7 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 		if s.Interpolation, err = gamma.ParseInterpolation(ov.Interpolation); err != nil {
 			return s, fmt.Errorf("--interpolation: %w", err)
 		}
+		s.Choices.Interpolation = s.Interpolation.String()
 	}
 	return s, nil
 }

@@ -187,10 +187,11 @@ func Key(r *result.Result) (string, error) {
 		Thresh   float64 `json:"threshold_percent"`
 		Search   float64 `json:"search_mm"`
 		Method   string  `json:"method"`
+		Interp   string  `json:"interpolation"`
 		Protocol string  `json:"protocol_sha256"`
-	}{Format: "voxgamma-record-key/1", Inputs: []in{}, Dose: r.Criteria.DosePercent, DTA: r.Criteria.DTAmm,
+	}{Format: "voxgamma-record-key/2", Inputs: []in{}, Dose: r.Criteria.DosePercent, DTA: r.Criteria.DTAmm,
 		Norm: r.Criteria.Normalisation, NormDose: r.Criteria.NormDoseGy, Thresh: r.Criteria.ThresholdPercent,
-		Search: r.Criteria.SearchMM, Method: r.Criteria.Method, Protocol: hex.EncodeToString(ps[:])}
+		Search: r.Criteria.SearchMM, Method: r.Criteria.Method, Interp: r.Criteria.Interpolation, Protocol: hex.EncodeToString(ps[:])}
 	for _, i := range r.Inputs {
 		k.Inputs = append(k.Inputs, in{i.Role, i.SHA256})
 	}

@@ -289,6 +289,9 @@ type Choices struct {
 	// where the factor came from.
 	EvaluatedScale       *float64 `json:"evaluated_scale"`
 	EvaluatedScaleSource string   `json:"evaluated_scale_source,omitempty"`
+	// Interpolation is set when the evaluated dose's interpolation was
+	// chosen on the command line.
+	Interpolation string `json:"interpolation,omitempty"`
 }
 
 // RuleOutcome is one protocol rule and whether it was met.

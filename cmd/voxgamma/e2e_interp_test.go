@@ -56,6 +56,10 @@ func TestInterpolationOption(t *testing.T) {
 			if res.Criteria.Interpolation != wantName {
 				t.Errorf("criteria.interpolation %q, want %q", res.Criteria.Interpolation, wantName)
 			}
+			// Given on the command line, it is a choice beside the protocol.
+			if res.Choices.Interpolation != name {
+				t.Errorf("choices.interpolation %q, want %q", res.Choices.Interpolation, name)
+			}
 			g, err := metaimage.Read(gm)
 			if err != nil {
 				t.Fatal(err)
