@@ -60,8 +60,12 @@ func Python(t testing.TB, install string, modules ...string) string {
 		}
 		cands = append(cands, "/usr/bin/python3")
 		py.err = fmt.Errorf("no python3 found")
+		check := "import sys" // python3 alone: any interpreter that starts
+		if key != "" {
+			check = "import " + key
+		}
 		for _, c := range cands {
-			out, err := exec.Command(c, "-c", "import "+key).CombinedOutput()
+			out, err := exec.Command(c, "-c", check).CombinedOutput()
 			if err == nil {
 				py.path, py.err = c, nil
 				return
@@ -70,7 +74,11 @@ func Python(t testing.TB, install string, modules ...string) string {
 		}
 	})
 	if py.err != nil {
-		Missing(t, "python3 with "+strings.Join(modules, " and "), py.err, install)
+		what := "python3"
+		if len(modules) > 0 {
+			what += " with " + strings.Join(modules, " and ")
+		}
+		Missing(t, what, py.err, install)
 	}
 	return py.path
 }
