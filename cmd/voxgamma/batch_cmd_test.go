@@ -57,6 +57,7 @@ func btWriteManifest(t *testing.T, dir string, cases []btCase) string {
 func btRun(args ...string) (status int, stdout, stderr string) {
 	var o, e bytes.Buffer
 	status = run(args, &o, &e)
+	captureJSON(nil, args)
 	return status, o.String(), e.String()
 }
 

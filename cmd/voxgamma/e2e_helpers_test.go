@@ -13,6 +13,7 @@ import (
 	"path/filepath"
 	"sort"
 	"strings"
+	"sync"
 	"testing"
 
 	"voxgamma/dicomio"
@@ -40,6 +41,7 @@ func vgRun(t *testing.T, args ...string) invocation {
 	t.Helper()
 	var o, e bytes.Buffer
 	code := run(args, &o, &e)
+	captureJSON(t, args)
 	return invocation{args: args, code: code, stdout: o.String(), stderr: e.String()}
 }
 
@@ -343,3 +345,57 @@ func reftoolProgram(t *testing.T, name string) string {
 	t.Helper()
 	return reftool.Program(t, name, "apt-get install dcmtk dicom3tools")
 }
+
+// captureJSON copies every JSON file an in-process invocation wrote (a
+// --json FILE, or the *.json under a folder it was given, such as batch's
+// and watch's --out) under $VOXGAMMA_E2E_JSON/<test>/<invocation>/, when
+// that variable is set. scripts/e2e-json-diff compares two such captures
+// (ignoring the run timing object and the temporary paths): a refactoring
+// that changes no behaviour leaves every one byte-identical. t may be nil
+// (the invocation is filed under "untitled").
+func captureJSON(t testing.TB, args []string) {
+	root := os.Getenv("VOXGAMMA_E2E_JSON")
+	if root == "" {
+		return
+	}
+	name := "untitled"
+	if t != nil {
+		name = t.Name()
+	}
+	captureMu.Lock()
+	captureN[name]++
+	n := captureN[name]
+	captureMu.Unlock()
+	dir := filepath.Join(root, strings.NewReplacer("/", "__", " ", "_").Replace(name), fmt.Sprintf("%03d", n))
+	copyOne := func(src, rel string) {
+		b, err := os.ReadFile(src)
+		if err != nil {
+			return
+		}
+		dst := filepath.Join(dir, strings.ReplaceAll(rel, string(filepath.Separator), "__"))
+		if os.MkdirAll(dir, 0o755) == nil {
+			_ = os.WriteFile(dst, b, 0o644)
+		}
+	}
+	for i, a := range args {
+		st, err := os.Stat(a)
+		switch {
+		case err != nil:
+		case st.Mode().IsRegular() && strings.HasSuffix(a, ".json") && i > 0 && strings.HasPrefix(args[i-1], "--"):
+			copyOne(a, fmt.Sprintf("arg%02d_%s", i, filepath.Base(a)))
+		case st.IsDir():
+			_ = filepath.WalkDir(a, func(p string, d os.DirEntry, err error) error {
+				if err == nil && d.Type().IsRegular() && strings.HasSuffix(p, ".json") {
+					rel, _ := filepath.Rel(a, p)
+					copyOne(p, fmt.Sprintf("arg%02d_%s", i, rel))
+				}
+				return nil
+			})
+		}
+	}
+}
+
+var (
+	captureMu sync.Mutex
+	captureN  = map[string]int{}
+)
