@@ -12,9 +12,9 @@ import (
 
 	"voxgamma/analysis"
 	"voxgamma/demo"
+	"voxgamma/internal/browsercheck"
 	"voxgamma/job"
 	"voxgamma/protocol"
-	"voxgamma/report/browsercheck"
 	"voxgamma/result"
 )
 

@@ -12,7 +12,7 @@ import (
 	"testing"
 	"time"
 
-	"voxgamma/report/browsercheck"
+	"voxgamma/internal/browsercheck"
 )
 
 // chromiumOrSkip returns the browser, skips the test when there is none,

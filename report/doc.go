@@ -58,7 +58,8 @@
 // Person names are shown "Family, Given"; file paths break only at
 // separators.
 //
-// The headless-browser checks live in report/browsercheck: a static check
+// The headless-browser checks of its tests live in internal/browsercheck,
+// a test tool rather than part of what the package offers: a static check
 // of a page (figures, console, requests, with and without scripts) and a
 // Session that drives a page over the DevTools protocol.
 package report

@@ -11,7 +11,7 @@ import (
 	"testing"
 	"time"
 
-	"voxgamma/report/browsercheck"
+	"voxgamma/internal/browsercheck"
 	"voxgamma/result"
 )
 

@@ -17,7 +17,7 @@ import (
 	"testing"
 	"time"
 
-	"voxgamma/report/browsercheck"
+	"voxgamma/internal/browsercheck"
 	"voxgamma/result"
 	"voxgamma/volume"
 )

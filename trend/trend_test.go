@@ -10,9 +10,9 @@ import (
 	"testing"
 	"time"
 
+	"voxgamma/internal/browsercheck"
 	"voxgamma/protocol"
 	"voxgamma/record"
-	"voxgamma/report/browsercheck"
 	"voxgamma/spc"
 )
 

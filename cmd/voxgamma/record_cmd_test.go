@@ -14,10 +14,10 @@ import (
 	"time"
 
 	"voxgamma/batch/batchtest"
+	"voxgamma/internal/browsercheck"
 	"voxgamma/internal/pgtest"
 	"voxgamma/protocol"
 	"voxgamma/record"
-	"voxgamma/report/browsercheck"
 	"voxgamma/result"
 	"voxgamma/trend"
 )
