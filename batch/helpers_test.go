@@ -8,8 +8,8 @@ import (
 	"strings"
 	"testing"
 
-	"voxgamma/batch/batchtest"
 	"voxgamma/dicomio"
+	"voxgamma/internal/batchtest"
 )
 
 // studyCase is one invented case of a test study.

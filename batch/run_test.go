@@ -11,7 +11,7 @@ import (
 	"testing"
 	"time"
 
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 	"voxgamma/job"
 	"voxgamma/result"
 )

@@ -8,7 +8,7 @@ import (
 	"testing"
 	"time"
 
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 	"voxgamma/job"
 )
 

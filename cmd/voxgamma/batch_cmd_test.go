@@ -14,7 +14,7 @@ import (
 	"time"
 
 	"voxgamma/batch"
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 )
 
 // btCase is one invented case of a command test study.

@@ -17,7 +17,7 @@ import (
 	"testing"
 
 	"voxgamma/batch"
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 	"voxgamma/internal/fault"
 )
 

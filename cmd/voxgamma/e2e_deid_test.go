@@ -9,9 +9,9 @@ import (
 	"testing"
 
 	"voxgamma/batch"
-	"voxgamma/batch/batchtest"
 	"voxgamma/deid"
 	"voxgamma/dicomio"
+	"voxgamma/internal/batchtest"
 	"voxgamma/phantom"
 )
 

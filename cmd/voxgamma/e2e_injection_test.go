@@ -13,7 +13,7 @@ import (
 	"unicode/utf8"
 
 	"voxgamma/batch"
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 )
 
 // formulaLead reports whether a CSV cell would be read as a formula by a

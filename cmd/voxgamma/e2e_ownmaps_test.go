@@ -16,8 +16,8 @@ import (
 	"strings"
 	"testing"
 
-	"voxgamma/batch/batchtest"
 	"voxgamma/dicomio"
+	"voxgamma/internal/batchtest"
 	"voxgamma/phantom"
 )
 

@@ -16,7 +16,7 @@ import (
 	"testing"
 
 	"voxgamma/batch"
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 	"voxgamma/phantom"
 	"voxgamma/result"
 )

@@ -13,7 +13,7 @@ import (
 	"testing"
 	"time"
 
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 	"voxgamma/internal/browsercheck"
 	"voxgamma/internal/pgtest"
 	"voxgamma/protocol"

@@ -13,7 +13,7 @@ import (
 	"time"
 
 	"voxgamma/batch"
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 )
 
 // btSettleAll sets every file under dir an hour into the past: files that

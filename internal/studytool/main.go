@@ -42,7 +42,7 @@ import (
 	"strings"
 
 	"voxgamma/batch"
-	"voxgamma/batch/batchtest"
+	"voxgamma/internal/batchtest"
 )
 
 func main() {
