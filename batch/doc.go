@@ -41,7 +41,7 @@
 //
 // Before a case is loaded its need is estimated from the grid sizes in the
 // dose headers (dicomio.ReadDoseInfo: Rows × Columns × NumberOfFrames), see
-// [EstimateBytes]:
+// [job.EstimateBytes]:
 //
 //	need = 57·Nref + 13·Neval + 16 MiB
 //
@@ -53,7 +53,7 @@
 // margin. Cases run at once while the sum of their needs fits the budget
 // (a weighted semaphore, first come first served); a case needing more than
 // the whole budget is an error naming its need and the budget. The default
-// budget ([DefaultBudget]) is 70 % of MemAvailable from /proc/meminfo, or
+// budget ([job.DefaultBudget]) is 70 % of MemAvailable from /proc/meminfo, or
 // of the room under the process's cgroup memory limit when that is less
 // (the limit a Slurm job or a Kubernetes container runs under), and 2 GiB
 // when /proc/meminfo cannot be read.

@@ -369,7 +369,7 @@ func TestBatchMemoryBudget(t *testing.T) {
 	if r[0].Verdict != VerdictPass || r[1].Verdict != VerdictError {
 		t.Fatalf("verdicts %s %s", r[0].Verdict, r[1].Verdict)
 	}
-	for _, w := range []string{FormatBytes(need2), FormatBytes(budget), "--max-memory"} {
+	for _, w := range []string{job.FormatBytes(need2), job.FormatBytes(budget), "--max-memory"} {
 		if !strings.Contains(r[1].Error, w) {
 			t.Errorf("error %q does not name %q", r[1].Error, w)
 		}

@@ -87,7 +87,7 @@ type Options struct {
 	// AllowFrameMismatch compares doses and structures of different
 	// frames of reference (see analysis.Inputs).
 	AllowFrameMismatch bool
-	// MaxMemory is the memory budget in bytes; 0 means [DefaultBudget].
+	// MaxMemory is the memory budget in bytes; 0 means [job.DefaultBudget].
 	// MemorySource says where it came from, for the log ("--max-memory").
 	MaxMemory    int64
 	MemorySource string
@@ -266,7 +266,7 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 		rep.BudgetSource = "given"
 	}
 	if rep.Budget <= 0 {
-		rep.Budget, rep.BudgetSource = DefaultBudget()
+		rep.Budget, rep.BudgetSource = job.DefaultBudget()
 	}
 	seen := map[string]bool{}
 	for _, c := range cases {
@@ -281,12 +281,12 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 	mine := shard.Select(cases)
 	rep.Jobs = opt.Jobs
 	if rep.Jobs <= 0 {
-		rep.Jobs = AvailableCPUs()
+		rep.Jobs = job.AvailableCPUs()
 	}
 	rep.Jobs = max(1, min(rep.Jobs, len(mine)))
 	rep.Workers = opt.Overrides.Workers
 	if rep.Workers <= 0 {
-		rep.Workers = max(1, AvailableCPUs()/rep.Jobs)
+		rep.Workers = max(1, job.AvailableCPUs()/rep.Jobs)
 	}
 
 	if err := CheckOut(opt.Out, opt.Manifest, cases); err != nil {
@@ -346,7 +346,7 @@ func Run(ctx context.Context, cases []Case, opt Options) (*Report, error) {
 		log.Info("de-identifying", "note", opt.Deid.Key.Note())
 	}
 	log.Info("batch started", "cases", len(mine), "manifest_cases", len(cases), "shard", shard.String(),
-		"jobs", rep.Jobs, "workers_per_case", rep.Workers, "memory_budget", FormatBytes(rep.Budget), "budget_source", rep.BudgetSource)
+		"jobs", rep.Jobs, "workers_per_case", rep.Workers, "memory_budget", job.FormatBytes(rep.Budget), "budget_source", rep.BudgetSource)
 
 	mem := semaphore.NewWeighted(rep.Budget)
 	work := make(chan Case)
@@ -554,13 +554,13 @@ func runOne(ctx context.Context, casesDir string, w caseWork, protoErr error, re
 		return fail(err)
 	}
 	if need > budget {
-		return fail(fmt.Errorf("needs about %s of memory (estimated from its dose grids), more than the whole memory budget of %s: give more with --max-memory, or run it on a larger machine", FormatBytes(need), FormatBytes(budget)))
+		return fail(fmt.Errorf("needs about %s of memory (estimated from its dose grids), more than the whole memory budget of %s: give more with --max-memory, or run it on a larger machine", job.FormatBytes(need), job.FormatBytes(budget)))
 	}
 	if err := mem.Acquire(ctx, need); err != nil {
 		return outcomeInterrupted, ""
 	}
 	defer mem.Release(need)
-	log.Info("case started", "id", c.ID, "memory_estimate", FormatBytes(need))
+	log.Info("case started", "id", c.ID, "memory_estimate", job.FormatBytes(need))
 	st, _, err := compute(ctx, casesDir, w, inputs, prev)
 	if err != nil {
 		if ctx.Err() != nil {

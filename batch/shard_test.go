@@ -96,37 +96,3 @@ func TestShardFromEnv(t *testing.T) {
 		})
 	}
 }
-
-func TestParseBytes(t *testing.T) {
-	for s, want := range map[string]int64{"8GiB": 8 << 30, "512MiB": 512 << 20, "4G": 4 << 30, "1.5GiB": 3 << 29,
-		"1000": 1000, "2 GB": 2e9, "64kib": 64 << 10} {
-		got, err := ParseBytes(s)
-		if err != nil || got != want {
-			t.Errorf("%q: %d, %v; want %d", s, got, err, want)
-		}
-	}
-	for _, bad := range []string{"", "GiB", "-1GiB", "0", "8 parsecs", "1e30TiB"} {
-		if _, err := ParseBytes(bad); err == nil {
-			t.Errorf("%q accepted", bad)
-		}
-	}
-	if s := FormatBytes(3 << 29); s != "1.5 GiB" {
-		t.Errorf("FormatBytes: %q", s)
-	}
-}
-
-func TestMemAvailable(t *testing.T) {
-	dir := t.TempDir()
-	path := dir + "/meminfo"
-	writeFile(t, path, "MemTotal:       24000000 kB\nMemFree:  100 kB\nMemAvailable:   20000000 kB\n")
-	if v, ok := memAvailable(path); !ok || v != 20000000<<10 {
-		t.Errorf("memAvailable: %d %v", v, ok)
-	}
-	writeFile(t, path, "MemTotal: 5 kB\n")
-	if _, ok := memAvailable(path); ok {
-		t.Error("a meminfo without MemAvailable was read")
-	}
-	if b, src := DefaultBudget(); b <= 0 || src == "" {
-		t.Errorf("DefaultBudget: %d %q", b, src)
-	}
-}

@@ -98,8 +98,8 @@ type WatchOptions struct {
 	// whose record fails is tried again at a later poll (and recorded
 	// then, idempotently), never lost.
 	Record RecordFunc
-	// MaxMemory is the memory budget in bytes; 0 means [DefaultBudget]. A
-	// case estimated to need more (see [EstimateBytes]) is not loaded: it
+	// MaxMemory is the memory budget in bytes; 0 means [job.DefaultBudget]. A
+	// case estimated to need more (see [job.EstimateBytes]) is not loaded: it
 	// is moved aside with the reason.
 	MaxMemory int64
 	// Deid is the de-identification of the run when Outputs.Deidentify
@@ -299,7 +299,7 @@ func NewWatcher(opt WatchOptions) (*Watcher, error) {
 	}
 	w.budget = opt.MaxMemory
 	if w.budget <= 0 {
-		w.budget, _ = DefaultBudget()
+		w.budget, _ = job.DefaultBudget()
 	}
 	if w.dir, err = filepath.Abs(opt.Dir); err != nil {
 		return nil, fmt.Errorf("watch: %w", err)
@@ -1223,10 +1223,10 @@ func (w *Watcher) handleCase(ctx context.Context, c *watchCase) (*WatchedCase, b
 	}
 	if need > w.budget {
 		return w.moveAside(c, all, quick, full, fmt.Sprintf("needs about %s of memory (estimated from its dose grids), more than the memory budget of %s: raise --max-memory (or run it on a larger machine) and put the files back",
-			FormatBytes(need), FormatBytes(w.budget)))
+			job.FormatBytes(need), job.FormatBytes(w.budget)))
 	}
 	w.log.Info("case started", "case", c.key, "reference", scrub(ref.rel), "evaluated", scrub(eval.rel), "structures", scrub(cs.Structures),
-		"memory_estimate", FormatBytes(need))
+		"memory_estimate", job.FormatBytes(need))
 	work := caseWork{c: cs, protocolName: w.protocolName, settings: w.settings, settingsHash: w.settingsHash,
 		outs: w.opt.Outputs, allowFM: w.opt.AllowFrameMismatch, watchKey: full, deid: w.deid, scope: w.scope(c.unit, nil)}
 	st, caseErr, err := compute(ctx, w.out, work, inputs, prev)

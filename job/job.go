@@ -1,10 +1,3 @@
-// Package job runs one voxgamma comparison from a protocol and settings to
-// written output files: the unit of work that the compare command, the demo
-// and batch runs share. It resolves a protocol (file or preset) and the
-// caller's overrides into analysis settings, checks the requested outputs
-// before any computation (never over an input, never over an existing file
-// unless forced, directories that exist and are writable), runs the
-// comparison and writes every output atomically, de-identified on request.
 package job
 
 import (

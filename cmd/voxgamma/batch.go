@@ -266,12 +266,12 @@ last line on stderr gives the counts.`,
 			}
 			var budgetSource string
 			if maxMemory != "" {
-				if opt.MaxMemory, err = batch.ParseBytes(maxMemory); err != nil {
+				if opt.MaxMemory, err = job.ParseBytes(maxMemory); err != nil {
 					return fmt.Errorf("--max-memory: %w", err)
 				}
 				budgetSource = "--max-memory"
 			} else {
-				opt.MaxMemory, budgetSource = batch.DefaultBudget()
+				opt.MaxMemory, budgetSource = job.DefaultBudget()
 			}
 			if shardFlag != "" {
 				if opt.Shard, err = batch.ParseShard(shardFlag); err != nil {

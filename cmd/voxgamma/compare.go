@@ -13,7 +13,6 @@ import (
 	"github.com/spf13/cobra"
 
 	"voxgamma/analysis"
-	"voxgamma/batch"
 	"voxgamma/deid"
 	"voxgamma/dicomsend"
 	"voxgamma/gamma"
@@ -172,9 +171,9 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 // checkMemory refuses, before anything is loaded, a comparison whose grids
 // (read from the dose headers) need more memory than the budget.
 func checkMemory(f *compareFlags) error {
-	budget, source := batch.DefaultBudget()
+	budget, source := job.DefaultBudget()
 	if f.maxMemory != "" {
-		b, err := batch.ParseBytes(f.maxMemory)
+		b, err := job.ParseBytes(f.maxMemory)
 		if err != nil {
 			return fmt.Errorf("--max-memory: %w", err)
 		}
@@ -182,20 +181,20 @@ func checkMemory(f *compareFlags) error {
 	}
 	var nr int64
 	if len(f.reference) > 0 {
-		n, err := batch.DoseSetVoxels(f.reference)
+		n, err := job.DoseSetVoxels(f.reference)
 		if err != nil {
 			return fmt.Errorf("reference %s: %w", strings.Join(f.reference, ", "), err)
 		}
 		nr = n
 	}
-	ne, err := batch.DoseSetVoxels(f.evaluated)
+	ne, err := job.DoseSetVoxels(f.evaluated)
 	if err != nil {
 		return fmt.Errorf("evaluated dose %s: %w", strings.Join(f.evaluated, ", "), err)
 	}
-	need := batch.EstimateBytes(nr, ne)
+	need := job.EstimateBytes(nr, ne)
 	if need > budget {
 		return fmt.Errorf("the comparison needs about %s of memory (estimated from the dose grids' sizes); the budget is %s (%s): raise --max-memory or use coarser grids",
-			batch.FormatBytes(need), batch.FormatBytes(budget), source)
+			job.FormatBytes(need), job.FormatBytes(budget), source)
 	}
 	return nil
 }

@@ -19,6 +19,7 @@ import (
 	"voxgamma/batch"
 	"voxgamma/internal/batchtest"
 	"voxgamma/internal/fault"
+	"voxgamma/job"
 )
 
 // noCrash fails the test when the output shows a Go runtime failure.
@@ -245,7 +246,7 @@ func TestCrashCodesMemoryLimit(t *testing.T) {
 	vgExit(t, exitPass, "inspect", f.ref)
 	// The default budget follows MemAvailable, which moves between two
 	// readings on a busy machine: within 5 % is the same budget.
-	want, _ := batch.DefaultBudget()
+	want, _ := job.DefaultBudget()
 	if d := during.Load() - want; d > want/20 || d < -want/20 {
 		t.Errorf("memory limit during inspect: %d, want the default budget %d (within 5 %%)", during.Load(), want)
 	}

@@ -9,8 +9,8 @@ import (
 	"github.com/spf13/cobra"
 
 	"voxgamma/analysis"
-	"voxgamma/batch"
 	"voxgamma/dicomio"
+	"voxgamma/job"
 	"voxgamma/roi"
 	"voxgamma/structure"
 )
@@ -160,17 +160,17 @@ func inspectPath(g *globals, path string, rules []roi.Rule, values bool, maxMemo
 		g.seen("", path, info, nil)
 		var max *float32
 		if values {
-			budget, source := batch.DefaultBudget()
+			budget, source := job.DefaultBudget()
 			if maxMemory != "" {
-				if budget, err = batch.ParseBytes(maxMemory); err != nil {
+				if budget, err = job.ParseBytes(maxMemory); err != nil {
 					return fmt.Errorf("--max-memory: %w", err)
 				}
 				source = "--max-memory"
 			}
 			n := int64(info.Rows) * int64(info.Columns) * int64(max1(info.NumberOfFrames))
-			if need := int64(4)*n + batch.FixedBytesPerCase; need > budget {
+			if need := int64(4)*n + job.FixedBytesPerCase; need > budget {
 				return fmt.Errorf("reading the values of %d×%d×%d voxels needs about %s; the memory budget is %s (%s): inspect it without --values, or raise --max-memory",
-					info.Columns, info.Rows, info.NumberOfFrames, batch.FormatBytes(need), batch.FormatBytes(budget), source)
+					info.Columns, info.Rows, info.NumberOfFrames, job.FormatBytes(need), job.FormatBytes(budget), source)
 			}
 			grid, _, err := dicomio.ReadDose(path)
 			if err != nil {

@@ -20,10 +20,10 @@ import (
 
 	"github.com/spf13/cobra"
 
-	"voxgamma/batch"
 	"voxgamma/deid"
 	"voxgamma/internal/fault"
 	"voxgamma/internal/safetext"
+	"voxgamma/job"
 )
 
 // version is the voxgamma version recorded in every result.
@@ -82,17 +82,17 @@ func run(args []string, stdout, stderr io.Writer) (status int) {
 
 // commandBudget is the memory budget of a command: its --max-memory when
 // given and valid (the command itself reports an invalid one), else
-// batch.DefaultBudget. The Go runtime's soft memory limit is set to it
+// job.DefaultBudget. The Go runtime's soft memory limit is set to it
 // (runtime/debug.SetMemoryLimit) for every command, so that the collector
 // works harder as the heap nears the budget instead of the process growing
 // until the system kills it.
 func commandBudget(cmd *cobra.Command) int64 {
 	if fl := cmd.Flags().Lookup("max-memory"); fl != nil && fl.Changed {
-		if b, err := batch.ParseBytes(fl.Value.String()); err == nil {
+		if b, err := job.ParseBytes(fl.Value.String()); err == nil {
 			return b
 		}
 	}
-	b, _ := batch.DefaultBudget()
+	b, _ := job.DefaultBudget()
 	return b
 }
 

@@ -4,7 +4,7 @@ import (
 	"path/filepath"
 	"testing"
 
-	"voxgamma/batch"
+	"voxgamma/job"
 	"voxgamma/phantom"
 )
 
@@ -20,10 +20,10 @@ func TestMemoryBudget(t *testing.T) {
 	eval := filepath.Join(dir, "eval.dcm")
 	writeTestDose(t, ref, [3]int{20, 20, 10}, [3]float64{-19, -19, -9}, [3]float64{2, 2, 2}, phantom.Uniform(2), ids)
 	writeTestDose(t, eval, [3]int{24, 24, 12}, [3]float64{-23, -23, -11}, [3]float64{2, 2, 2}, phantom.Uniform(2), ids)
-	need := batch.EstimateBytes(20*20*10, 24*24*12)
+	need := job.EstimateBytes(20*20*10, 24*24*12)
 	out := filepath.Join(dir, "r.json")
 	r := vgExit(t, 1, "compare", "--reference", ref, "--evaluated", eval, "--json", out, "--max-memory", "1MiB")
-	oneErrorLine(t, r, batch.FormatBytes(need), "--max-memory")
+	oneErrorLine(t, r, job.FormatBytes(need), "--max-memory")
 	if names := testDirNames(t, dir); len(names) != 2 {
 		t.Fatalf("a refused comparison left files: %v", names)
 	}

@@ -12,6 +12,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"voxgamma/batch"
+	"voxgamma/job"
 )
 
 func newWatch(g *globals) *cobra.Command {
@@ -81,9 +82,9 @@ failed its rules, 1 when one could not be evaluated.`,
 			if err != nil {
 				return err
 			}
-			budget, _ := batch.DefaultBudget()
+			budget, _ := job.DefaultBudget()
 			if maxMemory != "" {
-				if budget, err = batch.ParseBytes(maxMemory); err != nil {
+				if budget, err = job.ParseBytes(maxMemory); err != nil {
 					return fmt.Errorf("--max-memory: %w", err)
 				}
 			}

@@ -217,7 +217,7 @@ func TestWatchCmdKeysCannotCollide(t *testing.T) {
 
 // TestWatchCmdMemoryBudget: watch has the batch memory budget. A case
 // whose dose grids are estimated to need more than --max-memory (24×24×16
-// voxels each: 57 + 13 bytes per voxel and 16 MiB, batch.EstimateBytes,
+// voxels each: 57 + 13 bytes per voxel and 16 MiB, job.EstimateBytes,
 // about 16.6 MiB, against 1 MiB) is not loaded: it is moved aside with the
 // estimate and the budget, exit 1; with the default budget it passes.
 func TestWatchCmdMemoryBudget(t *testing.T) {

@@ -1,4 +1,4 @@
-package batch
+package job
 
 import (
 	"bufio"
@@ -111,21 +111,6 @@ func DoseSetVoxels(paths []string) (int64, error) {
 		best = max(best, set.Voxels())
 	}
 	return best, nil
-}
-
-// EstimateCase estimates the peak memory of case c from its dose headers
-// (see [EstimateBytes]); errors name the file.
-func EstimateCase(c Case) (int64, error) {
-	refs, evals := doses(c.Reference, c.ReferenceFiles), doses(c.Evaluated, c.EvaluatedFiles)
-	nr, err := DoseSetVoxels(refs)
-	if err != nil {
-		return 0, fmt.Errorf("case %s: estimating memory from the reference %s: %w", c.ID, strings.Join(refs, ", "), err)
-	}
-	ne, err := DoseSetVoxels(evals)
-	if err != nil {
-		return 0, fmt.Errorf("case %s: estimating memory from the evaluated dose %s: %w", c.ID, strings.Join(evals, ", "), err)
-	}
-	return EstimateBytes(nr, ne), nil
 }
 
 // ParseBytes parses a memory size: a number with an optional unit B, KB,
