@@ -38,6 +38,7 @@ import (
 	"time"
 
 	"voxgamma/dicomio"
+	"voxgamma/internal/fixture"
 	"voxgamma/structure"
 	"voxgamma/volume"
 )
@@ -66,6 +67,30 @@ func addPydicomSeeds(f *testing.F) {
 			continue
 		}
 		f.Add(b)
+	}
+}
+
+// addFixtureSeeds adds the shared fixtures matching the patterns (relative
+// to the top-level testdata, testdata/README.md) as seeds: files pydicom
+// wrote, and the bad-input corpus's damaged ones.
+func addFixtureSeeds(f *testing.F, patterns ...string) {
+	n := 0
+	for _, pat := range patterns {
+		paths, err := filepath.Glob(filepath.Join(fixture.Dir(), filepath.FromSlash(pat)))
+		if err != nil {
+			f.Fatal(err)
+		}
+		for _, p := range paths {
+			b, err := os.ReadFile(p)
+			if err != nil {
+				f.Fatal(err)
+			}
+			f.Add(b)
+			n++
+		}
+	}
+	if n == 0 {
+		f.Fatalf("no shared fixture matches %q", patterns)
 	}
 }
 
@@ -125,6 +150,7 @@ func checkReadError(t *testing.T, path string, err error) {
 
 func FuzzReadDose(f *testing.F) {
 	addPydicomSeeds(f)
+	addFixtureSeeds(f, "dicom/*/RD_*.dcm", "bad-input/*.dcm")
 	f.Add(encodeFile(baseDose(), explicitLE, true))
 	f.Add(encodeFile(baseDose(), implicitLE, false))
 	f.Add(encodeFile(baseDose(), "", false))
@@ -232,6 +258,7 @@ func checkDoseAgainstHeader(t *testing.T, g *volume.Grid, info *dicomio.DoseInfo
 
 func FuzzReadStructureSet(f *testing.F) {
 	addPydicomSeeds(f)
+	addFixtureSeeds(f, "dicom/*/RS*.dcm", "bad-input/*.dcm")
 	f.Add(encodeFile(baseStruct(), explicitLE, true))
 	f.Add(encodeFile(baseStruct(), implicitLE, false))
 	f.Add(encodeFile(baseStruct(), "", true))
@@ -477,6 +504,7 @@ func TestFuzzCorpus(t *testing.T) {
 // fraction group's referenced beams defined, counts and doses not
 // negative and finite).
 func FuzzReadPlan(f *testing.F) {
+	addFixtureSeeds(f, "dicom/*/RP*.dcm")
 	f.Add(encodeFile(baseRTPlan(), explicitLE, true))
 	f.Add(encodeFile(baseRTPlan(), implicitLE, false))
 	f.Add(encodeFile(baseRTPlan(), "", true))

@@ -11,104 +11,16 @@ import (
 	"testing"
 
 	"voxgamma/dicomio"
+	"voxgamma/internal/fixture"
 )
 
-// planScript is the reference for RT Plans. "make KIND PATH" writes a plan
-// with pydicom (KIND "photon": two prescription levels, two fraction
-// groups, three beams; "ion": an RT Ion Plan with two proton beams); "dump
-// PATH" reads a plan with pydicom and prints, as one JSON line, every value
+// planScript is the reference reader for RT Plans: "dump PATH..." reads
+// plans with pydicom and prints, one JSON line each, every value
 // dicomio.ReadPlan reads.
 const planScript = `
 import json, sys
 import pydicom
-from pydicom.dataset import Dataset, FileMetaDataset
-from pydicom.sequence import Sequence
-from pydicom.uid import ExplicitVRLittleEndian
-
-def item(**kw):
-    d = Dataset()
-    for k, v in kw.items():
-        setattr(d, k, v)
-    return d
-
-def make(kind, path):
-    ion = kind == "ion"
-    sop_class = "1.2.840.10008.5.1.4.1.1.481.8" if ion else "1.2.840.10008.5.1.4.1.1.481.5"
-    ds = Dataset()
-    ds.file_meta = FileMetaDataset()
-    ds.file_meta.MediaStorageSOPClassUID = sop_class
-    ds.file_meta.MediaStorageSOPInstanceUID = "2.25.4242" + ("2" if ion else "1")
-    ds.file_meta.TransferSyntaxUID = ExplicitVRLittleEndian
-    ds.SOPClassUID = sop_class
-    ds.SOPInstanceUID = ds.file_meta.MediaStorageSOPInstanceUID
-    ds.Modality = "RTPLAN"
-    ds.PatientName = "PHANTOM^PELVIS"
-    ds.PatientID = "VG-PLAN-001"
-    ds.StudyInstanceUID = "2.25.4243"
-    ds.SeriesInstanceUID = "2.25.4244"
-    ds.FrameOfReferenceUID = "2.25.4245"
-    ds.RTPlanLabel = "PROST_SIB" if not ion else "PROTON_2F"
-    ds.RTPlanName = "Prostate and nodes, SIB" if not ion else "Two proton fields"
-    ds.RTPlanDescription = "invented plan for tests"
-    ds.RTPlanDate = "20240102"
-    ds.RTPlanTime = "101112"
-    ds.PlanIntent = "CURATIVE"
-    ds.RTPlanGeometry = "PATIENT"
-    ds.ReferencedStructureSetSequence = Sequence([item(ReferencedSOPClassUID="1.2.840.10008.5.1.4.1.1.481.3", ReferencedSOPInstanceUID="2.25.4246")])
-    ds.ApprovalStatus = "APPROVED"
-    ds.DoseReferenceSequence = Sequence([
-        item(DoseReferenceNumber=1, DoseReferenceUID="2.25.4247", DoseReferenceStructureType="VOLUME", ReferencedROINumber=3,
-             DoseReferenceDescription="PTV_70", DoseReferenceType="TARGET", TargetPrescriptionDose="70.0", DeliveryMaximumDose="74.9"),
-        item(DoseReferenceNumber=2, DoseReferenceStructureType="VOLUME", ReferencedROINumber=4,
-             DoseReferenceDescription="PTV_56", DoseReferenceType="TARGET", TargetPrescriptionDose="56.0"),
-        item(DoseReferenceNumber=3, DoseReferenceStructureType="SITE", DoseReferenceDescription="Rectum",
-             DoseReferenceType="ORGAN_AT_RISK", DeliveryMaximumDose="72.5"),
-    ])
-    if ion:
-        beams = [(1, "RAO", 270.0, 160.5, "1.25e9"), (2, "LAO", 90.0, 150.25, "1.5e9")]
-        groups = [(1, 39, [(1, "1.25e9", "0.9"), (2, "1.5e9", "0.9")])]
-    else:
-        beams = [(1, "Arc CW", 181.0, 6.0, None), (2, "Arc CCW", 179.0, 6.0, None), (3, "Boost", 0.0, 10.0, None)]
-        groups = [(1, 28, [(1, "312.4", "1.0"), (2, "298.75", "1.0")]), (2, 5, [(3, "150.5", None)])]
-    bs = []
-    for num, name, gantry, energy, _ in beams:
-        cp0 = item(ControlPointIndex=0, NominalBeamEnergy=energy, GantryAngle=gantry,
-                   IsocenterPosition=[1.5, -20.25, 30.0 + num], CumulativeMetersetWeight=0.0)
-        cp1 = item(ControlPointIndex=1, CumulativeMetersetWeight=1.0)
-        b = item(BeamNumber=num, BeamName=name, BeamDescription="beam " + str(num),
-                 BeamType="STATIC" if ion else "DYNAMIC", RadiationType="PROTON" if ion else "PHOTON",
-                 TreatmentMachineName="MACHINE_" + str(num), PrimaryDosimeterUnit="NP" if ion else "MU",
-                 TreatmentDeliveryType="TREATMENT", NumberOfControlPoints=2, FinalCumulativeMetersetWeight=1.0)
-        if ion:
-            b.IonControlPointSequence = Sequence([cp0, cp1])
-        else:
-            b.ControlPointSequence = Sequence([cp0, cp1])
-        bs.append(b)
-    setup = item(ControlPointIndex=0, NominalBeamEnergy=6.0, GantryAngle=0.0, CumulativeMetersetWeight=0.0)
-    setup_beam = item(BeamNumber=99, BeamName="kV setup", BeamType="STATIC", RadiationType="PHOTON",
-                      TreatmentDeliveryType="SETUP", NumberOfControlPoints=1, ControlPointSequence=Sequence([setup]))
-    if not ion:
-        bs.append(setup_beam)
-    if ion:
-        ds.IonBeamSequence = Sequence(bs)
-    else:
-        ds.BeamSequence = Sequence(bs)
-    fgs = []
-    for num, fx, refs in groups:
-        rb = []
-        for bn, ms, dose in refs:
-            r = item(ReferencedBeamNumber=bn, BeamMeterset=ms)
-            if dose is not None:
-                r.BeamDose = dose
-            rb.append(r)
-        fgs.append(item(FractionGroupNumber=num, FractionGroupDescription="group " + str(num), NumberOfFractionsPlanned=fx,
-                        NumberOfBeams=len(refs), NumberOfBrachyApplicationSetups=0, ReferencedBeamSequence=Sequence(rb)))
-    ds.FractionGroupSequence = Sequence(fgs)
-    try:
-        pydicom.dcmwrite(path, ds, enforce_file_format=True)
-    except TypeError:
-        ds.is_little_endian, ds.is_implicit_VR = True, False
-        pydicom.dcmwrite(path, ds, write_like_original=False)
+from pydicom.dataset import Dataset
 
 def num(v):
     return None if v is None or v == "" else float(v)
@@ -154,12 +66,8 @@ def dump(path):
         "structure_set": str(rs[0].ReferencedSOPInstanceUID) if rs else "",
         "refs": refs, "groups": groups, "beams": beams}))
 
-args = sys.argv[1:]
-if args[0] == "make":
-    make(args[1], args[2])
-else:
-    for p in args[1:]:
-        dump(p)
+for p in sys.argv[2:]:
+    dump(p)
 `
 
 // refPlan is what pydicom read from an RT Plan.
@@ -359,17 +267,11 @@ func TestReadPlanPydicomTestFile(t *testing.T) {
 	}
 }
 
-// Source: plans written by pydicom (a photon plan with two prescription
-// levels, two fraction groups and a setup beam; an RT Ion Plan), read back
-// by pydicom.
+// Source: plans written by pydicom (testdata/dicom/plans, from
+// testdata/generate.py: a photon plan with two prescription levels, two
+// fraction groups and a setup beam; an RT Ion Plan), read back by pydicom.
 func TestReadPlanWrittenByPydicom(t *testing.T) {
-	dir := t.TempDir()
-	var paths []string
-	for _, kind := range []string{"photon", "ion"} {
-		p := filepath.Join(dir, kind+".dcm")
-		planPython(t, "make", kind, p)
-		paths = append(paths, p)
-	}
+	paths := []string{fixture.Path(t, "dicom/plans/RP_photon.dcm"), fixture.Path(t, "dicom/plans/RP_ion.dcm")}
 	refs := pydicomPlans(t, paths...)
 	for i, path := range paths {
 		p, err := dicomio.ReadPlan(path)
