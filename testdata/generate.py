@@ -91,7 +91,7 @@ def common(ds, case, modality, series, description):
 
 
 def rtdose(path, case, name, values, ipp, ps, frame_offsets, iop=HFS, units="GY", dose_type="PHYSICAL",
-           summation="PLAN", plan=None, comment=None):
+           summation="PLAN", plan=None, fraction_group=None, comment=None):
     """An RT Dose of the dose values [frame][row][column] (Gy, float64).
 
     Positions follow PS3.3 C.7.6.2.1.1 and C.8.8.3.2: voxel (i, j, k) lies at
@@ -130,7 +130,10 @@ def rtdose(path, case, name, values, ipp, ps, frame_offsets, iop=HFS, units="GY"
     ds.GridFrameOffsetVector = [ds_str(v) for v in frame_offsets]
     ds.DoseGridScaling = scaling_str
     if plan:
-        ds.ReferencedRTPlanSequence = Sequence([item(ReferencedSOPClassUID=RTPLAN, ReferencedSOPInstanceUID=plan)])
+        ref = item(ReferencedSOPClassUID=RTPLAN, ReferencedSOPInstanceUID=plan)
+        if fraction_group:
+            ref.ReferencedFractionGroupSequence = Sequence([item(ReferencedFractionGroupNumber=str(fraction_group))])
+        ds.ReferencedRTPlanSequence = Sequence([ref])
     ds.PixelData = codes.astype("<i2" if signed else "<u2").tobytes()
     write(path, ds, RTDOSE, uid(case + "/dose/" + name))
     return {"file": os.path.basename(path), "dims": [cols, rows, frames], "dose_grid_scaling": scaling,
@@ -216,7 +219,8 @@ def uniform(out):
     case = "uniform"
     d = os.path.join(out, "dicom", case)
     plan = uid(case + "/plan")
-    info = {"case": case, "closed_form": "flat reference D = 2 Gy; evaluated k·D; global 3 %/2 mm: Γ = |k − 1|/0.03 everywhere"}
+    info = {"case": case, "closed_form": "flat reference D = 2 Gy; evaluated k·D; global 3 %/2 mm: Γ = |k − 1|/0.03 everywhere",
+            "frame_of_reference_uid": uid(case + "/frame"), "other_frame_of_reference_uid": uid(case + "/other-frame")}
     info["reference"] = rtdose(os.path.join(d, "RD_reference.dcm"), case, "reference", flat(UNIFORM_REF["dims"], 2),
                                UNIFORM_REF["ipp"], (2, 2), offsets(8, 0, 2), plan=plan)
     info["evaluated"] = rtdose(os.path.join(d, "RD_evaluated.dcm"), case, "evaluated", flat(UNIFORM_EVAL["dims"], 2.04),
@@ -225,6 +229,12 @@ def uniform(out):
     info["evaluated_fail"] = rtdose(os.path.join(d, "RD_evaluated_fail.dcm"), case, "evaluated-fail",
                                     flat(UNIFORM_EVAL["dims"], 1.9), UNIFORM_EVAL["ipp"], (2, 2), offsets(18, 0, 2))
     info["evaluated_fail"]["k"] = 0.95
+    # The reference as a fraction group's dose (DoseSummationType FRACTION,
+    # the plan's fraction group 1), and naming no plan.
+    rtdose(os.path.join(d, "RD_reference_fraction.dcm"), case, "reference-fraction", flat(UNIFORM_REF["dims"], 2),
+           UNIFORM_REF["ipp"], (2, 2), offsets(8, 0, 2), summation="FRACTION", plan=plan, fraction_group=1)
+    rtdose(os.path.join(d, "RD_reference_no_plan.dcm"), case, "reference-no-plan", flat(UNIFORM_REF["dims"], 2),
+           UNIFORM_REF["ipp"], (2, 2), offsets(8, 0, 2))
     rtstruct(os.path.join(d, "RS.dcm"), case, "structures", uniform_structures())
     info["structures"] = {"file": "RS.dcm", "rois": [{"name": "PTV_1", "type": "PTV", "sphere_centre_mm": [0, 0, 0], "radius_mm": 5,
                                                       "planes_mm": [-3, -1, 1, 3], "points_per_contour": 32}]}
@@ -486,6 +496,16 @@ def set_length(data, tag, vl, nth=0):
     return bytes(b)
 
 
+def insert(data, tag, vr, value):
+    """A top-level text element (explicit VR, short header: PS3.5 7.1.2)
+    inserted where its tag belongs in ascending order."""
+    v = text(value)
+    for t, evr, hdr, _, _, _, _, parents in walk(data):
+        if t >> 16 != 2 and not parents and evr is not None and t > tag:
+            return data[:hdr] + struct.pack("<HH2sH", tag >> 16, tag & 0xFFFF, vr.encode("ascii"), len(v)) + v + data[hdr:]
+    raise KeyError("no element after %08X" % tag)
+
+
 def drop(data, tag):
     """The first top-level element with the tag removed."""
     t, vr, hdr, _, _, val, vl, parents = find(data, tag)
@@ -503,7 +523,8 @@ def contour_value(data, contour, index, new):
 
 
 # Tags (PS3.6) of the elements damaged.
-MODALITY, STUDY_UID, IPP, IOP, FRAME_UID = 0x00080060, 0x0020000D, 0x00200032, 0x00200037, 0x00200052
+MODALITY, MANUFACTURER, STUDY_UID, IPP, IOP, FRAME_UID = 0x00080060, 0x00080070, 0x0020000D, 0x00200032, 0x00200037, 0x00200052
+RESCALE_INTERCEPT, RESCALE_SLOPE = 0x00281052, 0x00281053
 FRAMES, ROWS, COLUMNS, PIXEL_SPACING = 0x00280008, 0x00280010, 0x00280011, 0x00280030
 DOSE_UNITS, DOSE_TYPE, GFOV, SCALING = 0x30040002, 0x30040004, 0x3004000C, 0x3004000E
 ROI_NUMBER, REF_ROI_NUMBER, RT_PLAN_SEQ, PIXEL_DATA = 0x30060022, 0x30060084, 0x300C0002, 0x7FE00010
@@ -515,6 +536,7 @@ def bad_input(out):
     os.makedirs(d, exist_ok=True)
     base = os.path.join(out, "dicom", case)
     ref = open(os.path.join(base, "RD_reference.dcm"), "rb").read()
+    ev = open(os.path.join(base, "RD_evaluated.dcm"), "rb").read()
     rs = open(os.path.join(base, "RS.dcm"), "rb").read()
 
     def put(name, data):
@@ -529,6 +551,8 @@ def bad_input(out):
         x = (x * 1664525 + 1013904223) & 0xFFFFFFFF
         junk[i] = x >> 24
     put("noise.dcm", bytes(junk))
+    os.makedirs(os.path.join(d, "folder_without_dose"), exist_ok=True)
+    put("folder_without_dose/notes.txt", b"no dose here\n")
 
     # Of another kind (PS3.3 C.8.8.1 Modality).
     put("Modality_CT.dcm", set_text(ref, MODALITY, "CT"))
@@ -590,8 +614,22 @@ def bad_input(out):
     os.remove(tmp)
     put("negative_PHYSICAL_dose.dcm", set_text(signed, DOSE_TYPE, "PHYSICAL"))
     put("negative_dose_no_DoseType.dcm", drop(signed, DOSE_TYPE))
-    rtdose(os.path.join(d, "RELATIVE_evaluated.dcm"), case, "relative", flat(UNIFORM_EVAL["dims"], 2.04), UNIFORM_EVAL["ipp"],
-           (2, 2), offsets(18, 0, 2), units="RELATIVE")
+    put("RELATIVE_evaluated.dcm", set_text(ev, DOSE_UNITS, "RELATIVE"))
+
+    # What the values mean (PS3.3 C.8.8.3; the RT Dose IOD, A.18.3, has no
+    # Modality LUT: DoseGridScaling alone scales).
+    put("DoseType_EFFECTIVE_evaluated.dcm", set_text(ev, DOSE_TYPE, "EFFECTIVE"))
+    put("DoseType_EFFECTIVE_reference.dcm", set_text(ref, DOSE_TYPE, "EFFECTIVE"))
+    put("DoseType_ERROR_other_system.dcm", set_text(set_text(ev, DOSE_TYPE, "ERROR"), MANUFACTURER, "Other System"))
+    put("DoseType_missing.dcm", drop(ref, DOSE_TYPE))
+    put("RELATIVE_reference.dcm", set_text(ref, DOSE_UNITS, "RELATIVE"))
+    put("RescaleSlope_2.dcm", insert(ref, RESCALE_SLOPE, "DS", "2"))
+    put("RescaleIntercept_0.5.dcm", insert(ev, RESCALE_INTERCEPT, "DS", "0.5"))
+    scaling = ref[find(ref, SCALING)[5]:][:find(ref, SCALING)[6]].decode("ascii").strip(" \0")
+    put("RescaleSlope_equals_DoseGridScaling.dcm", insert(insert(ref, RESCALE_SLOPE, "DS", scaling), RESCALE_INTERCEPT, "DS", "0"))
+    put("RescaleSlope_identity.dcm", insert(ref, RESCALE_SLOPE, "DS", "1"))
+    rtdose(os.path.join(d, "different_RT_Plan_evaluated.dcm"), case, "evaluated-other-plan", flat(UNIFORM_EVAL["dims"], 2.04),
+           UNIFORM_EVAL["ipp"], (2, 2), offsets(18, 0, 2), plan=uid(case + "/other-plan"))
 
     # Structure sets (PS3.3 C.8.8.5, C.8.8.6). Contour 2 of PTV_1 is its
     # plane z = −1 mm; values are x, y, z triplets.
@@ -629,6 +667,20 @@ def bad_input(out):
         rois = uniform_structures()
         rois[0]["contours"] = rois[0]["contours"] + [("CLOSED_PLANAR", contour)]
         rtstruct(os.path.join(d, name + ".dcm"), case, name, rois)
+
+    # The same contour twice on every plane (Cord), and a target drawn as
+    # two boxes overlapping on x in [−2, 2] mm (PTV_2), each beside the ROI
+    # drawn once: a sphere of radius 5 mm; the box [−6, 6] × [−4, 4] ×
+    # [−5, 5] mm on the planes z = −5, −3, ..., 5.
+    def box(x0, x1, y0, y1):
+        return [("CLOSED_PLANAR", [(x0, y0, z), (x1, y0, z), (x1, y1, z), (x0, y1, z)]) for z in (-5, -3, -1, 1, 3, 5)]
+    sphere = sphere_contours((0, 0, 0), 5, [-3, -1, 1, 3], 32)
+    rtstruct(os.path.join(d, "contours_twice_and_overlapping.dcm"), case, "contours-twice", [
+        {"number": 2, "name": "Cord", "type": "ORGAN", "contours": sphere + sphere},
+        {"number": 3, "name": "Cord_single", "type": "ORGAN", "contours": sphere},
+        {"number": 4, "name": "PTV_2", "type": "PTV", "contours": box(-6, 2, -4, 4) + box(-2, 6, -4, 4)},
+        {"number": 5, "name": "PTV_2_single", "type": "PTV", "contours": box(-6, 6, -4, 4)},
+    ])
 
     # Nothing to compare; identifiers missing.
     rtdose(os.path.join(d, "evaluated_grid_elsewhere.dcm"), case, "far", flat(UNIFORM_EVAL["dims"], 2.04), (179, -21, -17), (2, 2),

@@ -8,15 +8,16 @@ package main
 // and no output file. A verification tool that reports on input it misread
 // is a hazard; one that refuses it is an annoyance.
 //
-// The inputs are invented phantoms written with dicomio's writers and then
-// damaged: cut short, or with one element's value replaced in place (the
-// element walk below follows DICOM PS3.5 section 7.1: explicit VR little
-// endian element headers, 2-byte lengths for short VRs, 2 reserved bytes
-// and a 4-byte length for OB, OW, SQ, UN, UT, ...; sequences and items of
-// undefined length closed by delimitation items, PS3.5 section 7.5).
-// Changing a value's length is safe in these files: the file meta group
-// (PS3.10 section 7.1) is left alone, and every sequence the writer emits
-// has undefined length, so no enclosing length needs fixing.
+// The inputs are the bad-input corpus of the shared fixtures
+// (testdata/bad-input, written by testdata/generate.py with pydicom): the
+// uniform case's files (testdata/dicom/uniform) damaged in one place each,
+// and valid encodings of what voxgamma must refuse or flag. Each file is
+// named after its test case. The truncation tests cut the uniform case's
+// files at every element (the walk below follows DICOM PS3.5 section 7.1:
+// explicit VR little endian element headers, 2-byte lengths for short VRs,
+// 2 reserved bytes and a 4-byte length for OB, OW, SQ, UN, UT, ...;
+// sequences and items of explicit length, or of undefined length closed by
+// delimitation items, PS3.5 section 7.5).
 
 import (
 	"bytes"
@@ -30,9 +31,7 @@ import (
 	"syscall"
 	"testing"
 
-	"voxgamma/dicomio"
-	"voxgamma/phantom"
-	"voxgamma/structure"
+	"voxgamma/internal/fixture"
 )
 
 // ---------------------------------------------------------------------------
@@ -190,103 +189,10 @@ func findElem(t *testing.T, data []byte, tag uint32, nth int) dcmElem {
 	return dcmElem{}
 }
 
-// setValue returns a copy of data with the value of the nth element of the
-// tag replaced by v (its length field rewritten); v must have even length
-// (PS3.5 section 7.1.1).
-func setValue(t *testing.T, data []byte, tag uint32, nth int, v []byte) []byte {
-	t.Helper()
-	if len(v)%2 == 1 {
-		t.Fatalf("odd value length %d", len(v))
-	}
-	e := findElem(t, data, tag, nth)
-	if e.vl == undefinedVL {
-		t.Fatalf("setValue on %v of undefined length", e)
-	}
-	out := append([]byte(nil), data[:e.val]...)
-	if e.lenSz == 2 {
-		if len(v) > 0xFFFF {
-			t.Fatalf("value too long for %v", e)
-		}
-		binary.LittleEndian.PutUint16(out[e.lenAt:], uint16(len(v)))
-	} else {
-		binary.LittleEndian.PutUint32(out[e.lenAt:], uint32(len(v)))
-	}
-	out = append(out, v...)
-	return append(out, data[e.end():]...)
-}
-
-// setText sets a text value (DS, IS, CS, ...), padded with a space to even
-// length as PS3.5 section 6.2 prescribes.
-func setText(t *testing.T, data []byte, tag uint32, s string) []byte {
-	t.Helper()
-	if len(s)%2 == 1 {
-		s += " "
-	}
-	return setValue(t, data, tag, 0, []byte(s))
-}
-
-// setUS sets a US value (PS3.5 section 6.2: 16-bit unsigned, little endian).
-func setUS(t *testing.T, data []byte, tag uint32, v uint16) []byte {
-	t.Helper()
-	b := make([]byte, 2)
-	binary.LittleEndian.PutUint16(b, v)
-	return setValue(t, data, tag, 0, b)
-}
-
-// setLength rewrites only the value length field of the first element with
-// the tag: a length that lies about the value.
-func setLength(t *testing.T, data []byte, tag uint32, vl uint32) []byte {
-	t.Helper()
-	e := findElem(t, data, tag, 0)
-	out := append([]byte(nil), data...)
-	if e.lenSz == 2 {
-		binary.LittleEndian.PutUint16(out[e.lenAt:], uint16(vl))
-	} else {
-		binary.LittleEndian.PutUint32(out[e.lenAt:], vl)
-	}
-	return out
-}
-
-// dropElem returns data without the first top-level element with the tag.
-func dropElem(t *testing.T, data []byte, tag uint32) []byte {
-	t.Helper()
-	e := findElem(t, data, tag, 0)
-	if e.depth != 0 || e.vr == "SQ" {
-		t.Fatalf("dropElem on %v", e)
-	}
-	return append(append([]byte(nil), data[:e.hdr]...), data[e.end():]...)
-}
-
-// replaceOnce replaces the single occurrence of old by new (same length):
-// for values inside sequences, found by a marker value written on purpose.
-func replaceOnce(t *testing.T, data []byte, old, new string) []byte {
-	t.Helper()
-	if len(old) != len(new) {
-		t.Fatalf("replaceOnce: %q and %q differ in length", old, new)
-	}
-	if n := bytes.Count(data, []byte(old)); n != 1 {
-		t.Fatalf("replaceOnce: %q occurs %d times", old, n)
-	}
-	return bytes.Replace(data, []byte(old), []byte(new), 1)
-}
-
-// Tags (PS3.6) of the elements the tests damage.
+// Tags (PS3.6) of the elements the tests look for.
 const (
-	tgModality      = 0x00080060
-	tgStudyUID      = 0x0020000D
-	tgIPP           = 0x00200032
-	tgIOP           = 0x00200037
-	tgFrameOfRef    = 0x00200052
-	tgFrames        = 0x00280008
-	tgRows          = 0x00280010
-	tgColumns       = 0x00280011
-	tgPixelSpacing  = 0x00280030
-	tgDoseUnits     = 0x30040002
-	tgDoseType      = 0x30040004
 	tgGFOV          = 0x3004000C
 	tgScaling       = 0x3004000E
-	tgROINumber     = 0x30060022
-	tgRefROINumber  = 0x30060084
 	tgRTPlanSeq     = 0x300C0002
 	tgPixelData     = 0x7FE00010
 	tgROIContourSeq = 0x30060039
@@ -295,29 +201,37 @@ const (
 // ---------------------------------------------------------------------------
 // The fixture and the contract.
 
-// badFixture is a valid case (the uniform case of the exit-status tests: a
-// flat 2 Gy reference, 12×12×8 voxels of 2 mm, inside a 22×22×18 evaluated
-// grid holding 2.04 Gy, so Γ = 0.667 everywhere and TG-218's rules are met)
-// with a structure set (PTV_1, a sphere of radius 5 mm at the origin), and
-// the bytes of each file, to be damaged.
+// badFixture is the valid case the corpus damages (testdata/dicom/uniform:
+// a flat 2 Gy reference, 12×12×8 voxels of 2 mm, inside a 22×22×18
+// evaluated grid holding 2.04 Gy, so Γ = 0.667 everywhere and TG-218's
+// rules are met; a structure set with PTV_1, a sphere of radius 5 mm at the
+// origin), copied into a folder of the test (some tests name outputs
+// beside it), and the bytes of each file, to be cut.
 type badFixture struct {
-	uniformCase
-	rs                           string
+	dir, ref, eval, rs           string
 	refBytes, evalBytes, rsBytes []byte
+	c                            *fixture.Case
 }
 
 func newBadFixture(t *testing.T) *badFixture {
 	t.Helper()
-	f := &badFixture{uniformCase: newUniformCase(t, 2, 1.02)}
-	f.rs = filepath.Join(f.dir, "RS.dcm")
-	writeTestStructures(t, f.rs, f.ids, sphereROI(t, "PTV_1", "PTV", 1, phantom.Sphere{Radius: 5}, f.ids.FrameOfReferenceUID))
+	f := &badFixture{dir: t.TempDir(), c: fixture.LoadCase(t, "uniform")}
+	p := fixture.Copy(t, f.dir, "dicom/uniform/RD_reference.dcm", "dicom/uniform/RD_evaluated.dcm", "dicom/uniform/RS.dcm")
+	f.ref, f.eval, f.rs = p[0], p[1], p[2]
 	f.refBytes, f.evalBytes, f.rsBytes = mustReadFile(t, f.ref), mustReadFile(t, f.eval), mustReadFile(t, f.rs)
 	// The fixture itself must pass, or the refusals below prove nothing.
 	vgExit(t, exitPass, "compare", "--reference", f.ref, "--evaluated", f.eval, "--structures", f.rs, "--quiet")
 	return f
 }
 
-// file writes data as a new file of the fixture and returns its path.
+// corpus returns the path of a file of the bad-input corpus
+// (testdata/bad-input), read in place: a test never writes there.
+func corpus(t *testing.T, name string) string {
+	t.Helper()
+	return fixture.Path(t, "bad-input/"+name)
+}
+
+// file writes data as a new file of the test and returns its path.
 func (f *badFixture) file(t *testing.T, name string, data []byte) string {
 	t.Helper()
 	p := filepath.Join(t.TempDir(), name)
@@ -381,17 +295,10 @@ func tagName(tag uint32) string { return fmt.Sprintf("(%04X,%04X)", tag>>16, tag
 // data set when its encoding is unambiguous, doc.go), in each role.
 func TestBadInputNotDICOM(t *testing.T) {
 	f := newBadFixture(t)
-	text := f.file(t, "notes.dcm", []byte("plan notes, not a DICOM file\n"))
-	empty := f.file(t, "empty.dcm", nil)
-	// 4 KiB of a fixed pseudo-random sequence (a linear congruential
-	// generator): binary junk that is no data set.
-	junk := make([]byte, 4096)
-	x := uint32(12345)
-	for i := range junk {
-		x = x*1664525 + 1013904223
-		junk[i] = byte(x >> 24)
-	}
-	noise := f.file(t, "noise.dcm", junk)
+	// A line of text; an empty file; 4 KiB of a fixed pseudo-random
+	// sequence (a linear congruential generator): binary junk that is no
+	// data set.
+	text, empty, noise := corpus(t, "text.dcm"), corpus(t, "empty.dcm"), corpus(t, "noise.dcm")
 	for _, tc := range []struct {
 		name string
 		args []string
@@ -409,10 +316,7 @@ func TestBadInputNotDICOM(t *testing.T) {
 		})
 	}
 	t.Run("folder_without_dose", func(t *testing.T) {
-		dir := t.TempDir()
-		if err := os.WriteFile(filepath.Join(dir, "notes.txt"), []byte("no dose here\n"), 0o644); err != nil {
-			t.Fatal(err)
-		}
+		dir := corpus(t, "folder_without_dose")
 		refused(t, compareArgs(dir, f.eval, ""), dir)
 	})
 }
@@ -453,7 +357,7 @@ func cutPoints(t *testing.T, data []byte) []cutPoint {
 	return cuts
 }
 
-// TestBadInputTruncatedDose: an RT Dose written by dicomio.WriteDose, cut
+// TestBadInputTruncatedDose: the uniform case's RT Dose (pydicom's), cut
 // at every structural boundary and inside every header and value. Every cut
 // is refused naming the file; a cut inside a top-level value names that
 // element's tag (its length claims more bytes than the file holds, PS3.5
@@ -562,7 +466,7 @@ func TestBadInputWrongModality(t *testing.T) {
 	f := newBadFixture(t)
 	// An image: the dose file with Modality CT (PS3.3 C.7.3.1.1.1 defined
 	// term for computed tomography).
-	ct := f.file(t, "CT_like.dcm", setText(t, f.refBytes, tgModality, "CT"))
+	ct := corpus(t, "Modality_CT.dcm")
 	t.Run("CT_as_reference", func(t *testing.T) {
 		refused(t, compareArgs(ct, f.eval, ""), ct, "Modality (0008,0060): is CT, want RTDOSE")
 	})
@@ -573,7 +477,7 @@ func TestBadInputWrongModality(t *testing.T) {
 		refused(t, compareArgs(f.ref, f.eval, f.eval), f.eval, "Modality (0008,0060): is RTDOSE, want RTSTRUCT")
 	})
 	t.Run("no_Modality", func(t *testing.T) {
-		p := f.file(t, "RD_nomod.dcm", dropElem(t, f.refBytes, tgModality))
+		p := corpus(t, "Modality_missing.dcm")
 		refused(t, compareArgs(p, f.eval, ""), p, "Modality (0008,0060): missing")
 	})
 	t.Run("pydicom_rtplan_as_reference", func(t *testing.T) {
@@ -596,58 +500,43 @@ func TestBadInputWrongModality(t *testing.T) {
 // length, only for SQ, items and OB/OW/UN, PS3.5 section 7.1.2 and 7.5).
 func TestBadInputLengths(t *testing.T) {
 	f := newBadFixture(t)
-	refuseReferences(t, f, "RD_len.dcm", []patchedFile{
+	refuseReferences(t, f, []corpusFile{
 		// A 4-byte length (OW) beyond the end of the file.
-		{"PixelData_length_beyond_file", setLength(t, f.refBytes, tgPixelData, 0xFFFFFFF0), []string{"PixelData (7FE0,0010): claims 4294967280 bytes"}},
+		{"PixelData_length_beyond_file", []string{"PixelData (7FE0,0010): claims 4294967280 bytes"}},
 		// A 2-byte length (DS) running past the element after it, into
 		// the pixel data: the following "element" is garbage.
-		{"DS_length_overruns", setLength(t, f.refBytes, tgPixelSpacing, 0xFFF0), []string{"offset"}},
+		{"DS_length_overruns", []string{"offset"}},
 		// The item of ReferencedRTPlanSequence claims more than the file.
-		{"item_length_beyond_file", func() []byte {
-			e := findElem(t, f.refBytes, tgRTPlanSeq, 0)
-			b := append([]byte(nil), f.refBytes...)
-			binary.LittleEndian.PutUint32(b[e.val+4:], 0x7FFFFFF0) // the first item's length
-			return b
-		}(), []string{"ReferencedRTPlanSequence (300C,0002)", "claims 2147483632 bytes"}},
+		{"item_length_beyond_file", []string{"ReferencedRTPlanSequence (300C,0002)", "claims 2147483632 bytes"}},
 		// A file meta element claims more than the file.
-		{"meta_length_beyond_file", func() []byte {
-			b := append([]byte(nil), f.refBytes...)
-			for _, e := range walkDICOM(t, b) {
-				if e.tag == 0x00020003 {
-					binary.LittleEndian.PutUint16(b[e.lenAt:], 0xFFF0)
-				}
-			}
-			return b
-		}(), []string{"(0002,0003)", "claims 65520 bytes"}},
+		{"meta_length_beyond_file", []string{"(0002,0003)", "claims 65520 bytes"}},
 		// Rows × Columns × NumberOfFrames = 65535 × 65535 × 99999 voxels
 		// of 2 bytes in a file of a few kB: refused before allocating.
-		{"voxel_count_beyond_file", setText(t, setUS(t, setUS(t, f.refBytes, tgRows, 65535), tgColumns, 65535), tgFrames, "99999"),
-			[]string{"Rows (0028,0010) × Columns (0028,0011) × NumberOfFrames (0028,0008) = 65535 × 65535 × 99999 voxels", "cannot fit in the"}},
+		{"voxel_count_beyond_file", []string{"Rows (0028,0010) × Columns (0028,0011) × NumberOfFrames (0028,0008) = 65535 × 65535 × 99999 voxels", "cannot fit in the"}},
 		// NumberOfFrames beyond a 32-bit integer.
-		{"NumberOfFrames_overflow", setText(t, f.refBytes, tgFrames, "99999999999999999999"), []string{"NumberOfFrames (0028,0008)"}},
-		{"NumberOfFrames_negative", setText(t, f.refBytes, tgFrames, "-8"), []string{"NumberOfFrames (0028,0008): is -8"}},
+		{"NumberOfFrames_overflow", []string{"NumberOfFrames (0028,0008)"}},
+		{"NumberOfFrames_negative", []string{"NumberOfFrames (0028,0008): is -8"}},
 	})
 }
 
 // ---------------------------------------------------------------------------
 // Geometry, dose values and units.
 
-// patchedFile is a damaged copy of the fixture's reference dose and the
-// causes its refusal must name.
-type patchedFile struct {
+// corpusFile is a file of the corpus (testdata/bad-input/NAME.dcm, the
+// uniform reference dose damaged in one place) and the causes its refusal
+// must name.
+type corpusFile struct {
 	name  string
-	data  []byte
 	cause []string
 }
 
-// refuseReferences gives each patched file as the reference dose (under the
-// file name given) and checks that compare refuses it, naming the file and
-// each cause.
-func refuseReferences(t *testing.T, f *badFixture, file string, cases []patchedFile) {
+// refuseReferences gives each file as the reference dose and checks that
+// compare refuses it, naming the file and each cause.
+func refuseReferences(t *testing.T, f *badFixture, cases []corpusFile) {
 	t.Helper()
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
-			p := f.file(t, file, tc.data)
+			p := corpus(t, tc.name+".dcm")
 			refused(t, compareArgs(p, f.eval, ""), append([]string{"reading " + p + ": "}, tc.cause...)...)
 		})
 	}
@@ -672,28 +561,28 @@ func TestBadInputGeometry(t *testing.T) {
 	if got := string(ref[findElem(t, ref, tgGFOV, 0).val:findElem(t, ref, tgGFOV, 0).end()]); strings.TrimSpace(got) != `0\2\4\6\8\10\12\14` {
 		t.Fatalf("GridFrameOffsetVector %q: the fixture changed", got)
 	}
-	refuseReferences(t, f, "RD_geom.dcm", []patchedFile{
-		{"PixelSpacing_zero", setText(t, ref, tgPixelSpacing, `0\2`), []string{"PixelSpacing (0028,0030): value 1 is 0 mm, want a positive finite spacing"}},
-		{"PixelSpacing_negative", setText(t, ref, tgPixelSpacing, `2\-2`), []string{"PixelSpacing (0028,0030): value 2 is -2 mm"}},
-		{"PixelSpacing_NaN", setText(t, ref, tgPixelSpacing, `NaN\2`), []string{"PixelSpacing (0028,0030): value 1 is NaN mm"}},
-		{"PixelSpacing_Inf", setText(t, ref, tgPixelSpacing, `2\Inf`), []string{"PixelSpacing (0028,0030): value 2 is +Inf mm"}},
-		{"PixelSpacing_one_value", setText(t, ref, tgPixelSpacing, `2`), []string{"PixelSpacing (0028,0030): has 1 values, want 2"}},
-		{"ImagePositionPatient_NaN", setText(t, ref, tgIPP, `-11\NaN\-7`), []string{"ImagePositionPatient (0020,0032): value 2 is NaN, want a finite number"}},
-		{"ImagePositionPatient_Inf", setText(t, ref, tgIPP, `-Inf\-11\-7`), []string{"ImagePositionPatient (0020,0032): value 1 is -Inf, want a finite number"}},
-		{"ImagePositionPatient_two_values", setText(t, ref, tgIPP, `-11\-11`), []string{"ImagePositionPatient (0020,0032): has 2 values, want 3"}},
-		{"ImageOrientationPatient_oblique", setText(t, ref, tgIOP, `0.8660254\0.5\0\-0.5\0.8660254\0`), []string{"ImageOrientationPatient (0020,0037)", "is oblique"}},
-		{"ImageOrientationPatient_not_orthogonal", setText(t, ref, tgIOP, `1\0\0\0.6\0.8\0`), []string{"ImageOrientationPatient (0020,0037)"}},
-		{"ImageOrientationPatient_parallel", setText(t, ref, tgIOP, `1\0\0\1\0\0`), []string{"ImageOrientationPatient (0020,0037)", "parallel"}},
-		{"ImageOrientationPatient_not_unit", setText(t, ref, tgIOP, `2\0\0\0\1\0`), []string{"ImageOrientationPatient (0020,0037)"}},
-		{"ImageOrientationPatient_NaN", setText(t, ref, tgIOP, `1\0\0\0\NaN\0`), []string{"ImageOrientationPatient (0020,0037): value 5 is NaN"}},
-		{"GridFrameOffsetVector_not_monotonic", setText(t, ref, tgGFOV, `0\2\4\6\10\8\12\14`), []string{"GridFrameOffsetVector (3004,000C): not strictly monotonic at frame 5"}},
-		{"GridFrameOffsetVector_repeated", setText(t, ref, tgGFOV, `0\2\4\6\6\10\12\14`), []string{"GridFrameOffsetVector (3004,000C): not strictly monotonic at frame 4"}},
-		{"GridFrameOffsetVector_wrong_count", setText(t, ref, tgGFOV, `0\2\4\6\8\10\12`), []string{"GridFrameOffsetVector (3004,000C): has 7 values but NumberOfFrames (0028,0008) is 8"}},
-		{"GridFrameOffsetVector_NaN", setText(t, ref, tgGFOV, `0\2\4\NaN\8\10\12\14`), []string{"GridFrameOffsetVector (3004,000C): value 4 is NaN"}},
-		{"Rows_too_many", setUS(t, ref, tgRows, 13), []string{"Rows (0028,0010) × Columns (0028,0011) × NumberOfFrames (0028,0008) = 13 × 12 × 8 voxels of 16 bits need 2496 bytes but PixelData (7FE0,0010) holds 2304"}},
-		{"Columns_too_few", setUS(t, ref, tgColumns, 11), []string{"= 12 × 11 × 8 voxels of 16 bits need 2112 bytes but PixelData (7FE0,0010) holds 2304"}},
-		{"NumberOfFrames_too_few", setText(t, ref, tgFrames, "7"), []string{"= 12 × 12 × 7 voxels of 16 bits need 2016 bytes but PixelData (7FE0,0010) holds 2304"}},
-		{"Rows_zero", setUS(t, ref, tgRows, 0), []string{"Rows (0028,0010): is 0, want at least 1"}},
+	refuseReferences(t, f, []corpusFile{
+		{"PixelSpacing_zero", []string{"PixelSpacing (0028,0030): value 1 is 0 mm, want a positive finite spacing"}},
+		{"PixelSpacing_negative", []string{"PixelSpacing (0028,0030): value 2 is -2 mm"}},
+		{"PixelSpacing_NaN", []string{"PixelSpacing (0028,0030): value 1 is NaN mm"}},
+		{"PixelSpacing_Inf", []string{"PixelSpacing (0028,0030): value 2 is +Inf mm"}},
+		{"PixelSpacing_one_value", []string{"PixelSpacing (0028,0030): has 1 values, want 2"}},
+		{"ImagePositionPatient_NaN", []string{"ImagePositionPatient (0020,0032): value 2 is NaN, want a finite number"}},
+		{"ImagePositionPatient_Inf", []string{"ImagePositionPatient (0020,0032): value 1 is -Inf, want a finite number"}},
+		{"ImagePositionPatient_two_values", []string{"ImagePositionPatient (0020,0032): has 2 values, want 3"}},
+		{"ImageOrientationPatient_oblique", []string{"ImageOrientationPatient (0020,0037)", "is oblique"}},
+		{"ImageOrientationPatient_not_orthogonal", []string{"ImageOrientationPatient (0020,0037)"}},
+		{"ImageOrientationPatient_parallel", []string{"ImageOrientationPatient (0020,0037)", "parallel"}},
+		{"ImageOrientationPatient_not_unit", []string{"ImageOrientationPatient (0020,0037)"}},
+		{"ImageOrientationPatient_NaN", []string{"ImageOrientationPatient (0020,0037): value 5 is NaN"}},
+		{"GridFrameOffsetVector_not_monotonic", []string{"GridFrameOffsetVector (3004,000C): not strictly monotonic at frame 5"}},
+		{"GridFrameOffsetVector_repeated", []string{"GridFrameOffsetVector (3004,000C): not strictly monotonic at frame 4"}},
+		{"GridFrameOffsetVector_wrong_count", []string{"GridFrameOffsetVector (3004,000C): has 7 values but NumberOfFrames (0028,0008) is 8"}},
+		{"GridFrameOffsetVector_NaN", []string{"GridFrameOffsetVector (3004,000C): value 4 is NaN"}},
+		{"Rows_too_many", []string{"Rows (0028,0010) × Columns (0028,0011) × NumberOfFrames (0028,0008) = 13 × 12 × 8 voxels of 16 bits need 2496 bytes but PixelData (7FE0,0010) holds 2304"}},
+		{"Columns_too_few", []string{"= 12 × 11 × 8 voxels of 16 bits need 2112 bytes but PixelData (7FE0,0010) holds 2304"}},
+		{"NumberOfFrames_too_few", []string{"= 12 × 12 × 7 voxels of 16 bits need 2016 bytes but PixelData (7FE0,0010) holds 2304"}},
+		{"Rows_zero", []string{"Rows (0028,0010): is 0, want at least 1"}},
 	})
 }
 
@@ -708,41 +597,25 @@ func TestBadInputGeometry(t *testing.T) {
 // (C.8.8.3) and an absolute dose cannot be compared with a relative one.
 func TestBadInputDose(t *testing.T) {
 	f := newBadFixture(t)
-	ref := f.refBytes
-	// A signed dose holding negative values, written legally (DoseType
-	// ERROR), then relabelled PHYSICAL.
-	signed := filepath.Join(t.TempDir(), "RD_signed.dcm")
-	g := testGrid(t, [3]int{12, 12, 8}, [3]float64{-11, -11, -7}, [3]float64{2, 2, 2})
-	if err := phantom.Fill(g, phantom.Uniform(2)); err != nil {
-		t.Fatal(err)
-	}
-	g.Set(3, 4, 5, -0.5)
-	opt := dicomio.DifferenceOptions("signed test dose, Gy")
-	if _, err := dicomio.WriteDose(signed, g, f.ids, opt); err != nil {
-		t.Fatal(err)
-	}
-	signedBytes := mustReadFile(t, signed)
-	relative := filepath.Join(t.TempDir(), "RD_relative.dcm")
-	writeRelative := dicomio.DoseOptions("relative test dose")
-	writeRelative.DoseUnits = "RELATIVE"
-	if _, err := dicomio.WriteDose(relative, f.evalFile.grid, f.ids, writeRelative); err != nil {
-		t.Fatal(err)
-	}
-	refuseReferences(t, f, "RD_dose.dcm", []patchedFile{
-		{"DoseGridScaling_NaN", setText(t, ref, tgScaling, "NaN"), []string{"DoseGridScaling (3004,000E): is NaN, want a positive finite number"}},
-		{"DoseGridScaling_Inf", setText(t, ref, tgScaling, "Inf"), []string{"DoseGridScaling (3004,000E): is +Inf, want a positive finite number"}},
-		{"DoseGridScaling_zero", setText(t, ref, tgScaling, "0"), []string{"DoseGridScaling (3004,000E): is 0, want a positive finite number"}},
-		{"DoseGridScaling_negative", setText(t, ref, tgScaling, "-3.1e-05"), []string{"DoseGridScaling (3004,000E): is -3.1e-05"}},
-		{"DoseGridScaling_missing", dropElem(t, ref, tgScaling), []string{"DoseGridScaling (3004,000E): missing"}},
-		{"DoseGridScaling_empty", setText(t, ref, tgScaling, ""), []string{"DoseGridScaling (3004,000E): missing"}},
-		{"DoseGridScaling_not_a_number", setText(t, ref, tgScaling, "0,001"), []string{"DoseGridScaling (3004,000E): value 1 (\"0,001\") is not a decimal number"}},
+	// negative_*: a signed dose holding −0.5 Gy at voxel (3,4,5), written
+	// legally as DoseType ERROR, then relabelled PHYSICAL or left without
+	// a DoseType; RELATIVE_evaluated: the evaluated dose in RELATIVE units.
+	relative := corpus(t, "RELATIVE_evaluated.dcm")
+	refuseReferences(t, f, []corpusFile{
+		{"DoseGridScaling_NaN", []string{"DoseGridScaling (3004,000E): is NaN, want a positive finite number"}},
+		{"DoseGridScaling_Inf", []string{"DoseGridScaling (3004,000E): is +Inf, want a positive finite number"}},
+		{"DoseGridScaling_zero", []string{"DoseGridScaling (3004,000E): is 0, want a positive finite number"}},
+		{"DoseGridScaling_negative", []string{"DoseGridScaling (3004,000E): is -3.1e-05"}},
+		{"DoseGridScaling_missing", []string{"DoseGridScaling (3004,000E): missing"}},
+		{"DoseGridScaling_empty", []string{"DoseGridScaling (3004,000E): missing"}},
+		{"DoseGridScaling_not_a_number", []string{"DoseGridScaling (3004,000E): value 1 (\"0,001\") is not a decimal number"}},
 		// 1e300 Gy per code: the dose overflows float32 (values are kept
 		// as float32, volume.Grid).
-		{"dose_overflows", setText(t, ref, tgScaling, "1e300"), []string{"is not a finite dose", "DoseGridScaling (3004,000E)"}},
-		{"negative_PHYSICAL_dose", setText(t, signedBytes, tgDoseType, "PHYSICAL"), []string{"has dose -0.5", "DoseType (3004,0004) is \"PHYSICAL\": negative doses are allowed only for DoseType ERROR"}},
-		{"negative_dose_no_DoseType", dropElem(t, signedBytes, tgDoseType), []string{"has dose -0.5", "DoseType (3004,0004) is \"\""}},
-		{"DoseUnits_CGY", setText(t, ref, tgDoseUnits, "CGY"), []string{"DoseUnits (3004,0002): is CGY, want GY or RELATIVE"}},
-		{"DoseUnits_missing", dropElem(t, ref, tgDoseUnits), []string{"DoseUnits (3004,0002): missing"}},
+		{"dose_overflows", []string{"is not a finite dose", "DoseGridScaling (3004,000E)"}},
+		{"negative_PHYSICAL_dose", []string{"has dose -0.5", "DoseType (3004,0004) is \"PHYSICAL\": negative doses are allowed only for DoseType ERROR"}},
+		{"negative_dose_no_DoseType", []string{"has dose -0.5", "DoseType (3004,0004) is \"\""}},
+		{"DoseUnits_CGY", []string{"DoseUnits (3004,0002): is CGY, want GY or RELATIVE"}},
+		{"DoseUnits_missing", []string{"DoseUnits (3004,0002): missing"}},
 	})
 	t.Run("RELATIVE_against_GY", func(t *testing.T) {
 		refused(t, compareArgs(f.ref, relative, ""), "dose units differ", filepath.Base(f.ref), "GY", filepath.Base(relative), "RELATIVE")
@@ -798,94 +671,43 @@ func skippedContourReported(t *testing.T, f *badFixture, rs, roiName, reason str
 // errors (dicomio/doc.go).
 func TestBadInputStructures(t *testing.T) {
 	f := newBadFixture(t)
-	frame := f.ids.FrameOfReferenceUID
-	ptv := sphereROI(t, "PTV_1", "PTV", 1, phantom.Sphere{Radius: 5}, frame)
-	write := func(t *testing.T, ids dicomio.Identifiers, rois ...structure.ROI) (string, []byte) {
-		t.Helper()
-		p := filepath.Join(t.TempDir(), "RS_bad.dcm")
-		writeTestStructures(t, p, ids, rois...)
-		return p, mustReadFile(t, p)
-	}
-
-	t.Run("NaN_coordinate", func(t *testing.T) {
-		bad := ptv
-		bad.Contours = append([]structure.Contour{}, ptv.Contours...)
-		c := bad.Contours[1]
-		c.Points = append([][3]float64{}, c.Points...)
-		c.Points[2][0] = 4.56789 // a marker written once, replaced below
-		bad.Contours[1] = c
-		_, b := write(t, f.ids, bad)
-		p := f.file(t, "RS_nan.dcm", replaceOnce(t, b, "4.56789", "NaN    "))
-		refused(t, compareArgs(f.ref, f.eval, p), "reading "+p+": ", `ROI 1 "PTV_1", contour 2`, "ContourData (3006,0050): point 3 has coordinate NaN, want a finite number")
-	})
-	t.Run("Inf_coordinate", func(t *testing.T) {
-		bad := ptv
-		bad.Contours = append([]structure.Contour{}, ptv.Contours...)
-		c := bad.Contours[0]
-		c.Points = append([][3]float64{}, c.Points...)
-		c.Points[0][1] = 4.56789
-		bad.Contours[0] = c
-		_, b := write(t, f.ids, bad)
-		p := f.file(t, "RS_inf.dcm", replaceOnce(t, b, "4.56789", "-Inf   "))
-		refused(t, compareArgs(f.ref, f.eval, p), "reading "+p+": ", `ROI 1 "PTV_1", contour 1`, "ContourData (3006,0050): point 1 has coordinate -Inf")
-	})
-	t.Run("coordinate_not_a_number", func(t *testing.T) {
-		bad := ptv
-		bad.Contours = append([]structure.Contour{}, ptv.Contours...)
-		c := bad.Contours[0]
-		c.Points = append([][3]float64{}, c.Points...)
-		c.Points[0][1] = 4.56789
-		bad.Contours[0] = c
-		_, b := write(t, f.ids, bad)
-		p := f.file(t, "RS_x.dcm", replaceOnce(t, b, "4.56789", "4,56789"))
-		refused(t, compareArgs(f.ref, f.eval, p), "reading "+p+": ", "ContourData (3006,0050)", `"4,56789"`, "is not a decimal number")
-	})
-	t.Run("ContourData_not_triplets", func(t *testing.T) {
-		bad := ptv
-		bad.Contours = append([]structure.Contour{}, ptv.Contours...)
-		c := bad.Contours[0]
-		c.Points = append([][3]float64{}, c.Points...)
-		c.Points[0][1] = 4.56789
-		bad.Contours[0] = c
-		_, b := write(t, f.ids, bad)
-		// "4.56789" becomes "1\2\3": two values more, 194 in all.
-		p := f.file(t, "RS_trip.dcm", replaceOnce(t, b, "4.56789", `1\2\3  `))
-		refused(t, compareArgs(f.ref, f.eval, p), "reading "+p+": ", `ROI 1 "PTV_1", contour 1`, "ContourData (3006,0050): has 194 values, not a multiple of 3")
-	})
-	t.Run("NumberOfContourPoints_disagrees", func(t *testing.T) {
-		bad := ptv
-		bad.Contours = append([]structure.Contour{}, ptv.Contours...)
-		c := bad.Contours[0]
-		c.Points = append([][3]float64{}, c.Points...)
-		c.Points[0][1] = 4.56789
-		bad.Contours[0] = c
-		_, b := write(t, f.ids, bad)
-		// "4.56789" becomes "1\2\3\4": one point more than the 64
+	frame, other := f.c.FrameOfReferenceUID, f.c.OtherFrameOfReferenceUID
+	// The corpus's structure sets (testdata/generate.py): PTV_1 of the
+	// uniform case with one value of a contour's ContourData replaced
+	// (contour 2 is the plane z = −1 mm; 32 points per contour), with a
+	// ReferencedROINumber or ROINumber changed, or with a second ROI
+	// (Eye_L, a sphere of radius 3 mm at (6, 6, 0); Cord, one unusable
+	// contour), or in another frame of reference.
+	for _, tc := range []struct {
+		name  string
+		cause []string
+	}{
+		{"NaN_coordinate", []string{`ROI 1 "PTV_1", contour 2`, "ContourData (3006,0050): point 3 has coordinate NaN, want a finite number"}},
+		{"Inf_coordinate", []string{`ROI 1 "PTV_1", contour 1`, "ContourData (3006,0050): point 1 has coordinate -Inf"}},
+		{"coordinate_not_a_number", []string{"ContourData (3006,0050)", `"4,56789"`, "is not a decimal number"}},
+		// One value replaced by "1\2\3": two values more, 98 in all.
+		{"ContourData_not_triplets", []string{`ROI 1 "PTV_1", contour 1`, "ContourData (3006,0050): has 98 values, not a multiple of 3"}},
+		// One value replaced by "1\2\3\4": one point more than the 32
 		// NumberOfContourPoints (3006,0046) says (C.8.8.6: the number of
 		// points in ContourData).
-		p := f.file(t, "RS_count.dcm", replaceOnce(t, b, "4.56789", `1\2\3\4`))
-		refused(t, compareArgs(f.ref, f.eval, p), "reading "+p+": ", `ROI 1 "PTV_1", contour 1`, "NumberOfContourPoints (3006,0046): is 64 but ContourData (3006,0050) holds 65 points")
-	})
-	t.Run("ROI_referenced_not_defined", func(t *testing.T) {
-		_, b := write(t, f.ids, ptv)
+		{"NumberOfContourPoints_disagrees", []string{`ROI 1 "PTV_1", contour 1`, "NumberOfContourPoints (3006,0046): is 32 but ContourData (3006,0050) holds 33 points"}},
 		// The first ReferencedROINumber is the ROIContourSequence item's
-		// (tags ascend: (3006,0039) before (3006,0080)).
-		p := f.file(t, "RS_undef.dcm", setValue(t, b, tgRefROINumber, 0, []byte("7 ")))
-		refused(t, compareArgs(f.ref, f.eval, p), "reading "+p+": ", "ReferencedROINumber (3006,0084)", "refers to ROI 7", "StructureSetROISequence (3006,0020) does not define")
-	})
-	t.Run("ROI_number_defined_twice", func(t *testing.T) {
-		oar := sphereROI(t, "Eye_L", "ORGAN", 2, phantom.Sphere{Centre: [3]float64{6, 6, 0}, Radius: 3}, frame)
-		_, b := write(t, f.ids, ptv, oar)
-		p := f.file(t, "RS_dup.dcm", setValue(t, b, tgROINumber, 1, []byte("1 ")))
-		refused(t, compareArgs(f.ref, f.eval, p), "reading "+p+": ", "ROINumber (3006,0022): 1 is defined twice")
-	})
+		// (tags ascend: (3006,0039) before (3006,0080)): 7.
+		{"ROI_referenced_not_defined", []string{"ReferencedROINumber (3006,0084)", "refers to ROI 7", "StructureSetROISequence (3006,0020) does not define"}},
+		// Eye_L's ROINumber made 1.
+		{"ROI_number_defined_twice", []string{"ROINumber (3006,0022): 1 is defined twice"}},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			p := corpus(t, tc.name+".dcm")
+			refused(t, compareArgs(f.ref, f.eval, p), append([]string{"reading " + p + ": "}, tc.cause...)...)
+		})
+	}
 	t.Run("observation_of_undefined_ROI", func(t *testing.T) {
 		// An RTROIObservationsSequence item about ROI 7, which does not
 		// exist: it says nothing about any ROI and is ignored
 		// (dicomio/structureset.go); PTV_1 then has no interpreted type
 		// and its kind comes from the name rules.
-		_, b := write(t, f.ids, ptv)
-		p := f.file(t, "RS_obs.dcm", setValue(t, b, tgRefROINumber, 1, []byte("7 ")))
+		p := corpus(t, "observation_of_undefined_ROI.dcm")
 		out := filepath.Join(t.TempDir(), "r.json")
 		vgExit(t, exitPass, compareArgs(f.ref, f.eval, p, "--json", out, "--kind", "PTV*=target", "--quiet")...)
 		roi := resultROI(t, readResultJSON(t, out), "PTV_1")
@@ -894,20 +716,15 @@ func TestBadInputStructures(t *testing.T) {
 		}
 	})
 	t.Run("structure_set_in_other_frame", func(t *testing.T) {
-		other := f.ids
-		other.FrameOfReferenceUID = dicomio.NewUID()
-		p, _ := write(t, other, sphereROI(t, "PTV_1", "PTV", 1, phantom.Sphere{Radius: 5}, other.FrameOfReferenceUID))
-		refused(t, compareArgs(f.ref, f.eval, p), "different frames of reference", frame, other.FrameOfReferenceUID, filepath.Base(p))
+		p := corpus(t, "structure_set_in_other_frame.dcm")
+		refused(t, compareArgs(f.ref, f.eval, p), "different frames of reference", frame, other, filepath.Base(p))
 	})
 	t.Run("ROI_in_other_frame", func(t *testing.T) {
-		odd := sphereROI(t, "Eye_L", "ORGAN", 2, phantom.Sphere{Centre: [3]float64{6, 6, 0}, Radius: 3}, dicomio.NewUID())
-		p, _ := write(t, f.ids, ptv, odd)
-		refused(t, compareArgs(f.ref, f.eval, p), "different frames of reference", `ROI 2 "Eye_L"`, odd.FrameOfReferenceUID)
+		p := corpus(t, "ROI_in_other_frame.dcm")
+		refused(t, compareArgs(f.ref, f.eval, p), "different frames of reference", `ROI 2 "Eye_L"`, other)
 	})
 	t.Run("other_frame_allowed", func(t *testing.T) {
-		other := f.ids
-		other.FrameOfReferenceUID = dicomio.NewUID()
-		p, _ := write(t, other, sphereROI(t, "PTV_1", "PTV", 1, phantom.Sphere{Radius: 5}, other.FrameOfReferenceUID))
+		p := corpus(t, "structure_set_in_other_frame.dcm")
 		out := filepath.Join(t.TempDir(), "r.json")
 		r := vgExit(t, exitPass, compareArgs(f.ref, f.eval, p, "--allow-frame-mismatch", "--json", out)...)
 		if !strings.Contains(r.stderr, "warning: ") || !strings.Contains(r.stderr, "different frames of reference") {
@@ -923,17 +740,14 @@ func TestBadInputStructures(t *testing.T) {
 	})
 
 	// Contours the rasteriser skips (roi/doc.go): an ROI made only of
-	// them is "not evaluated", with a status saying why.
-	for _, tc := range []struct {
-		name, reason string
-		contour      structure.Contour
-	}{
-		{"only_contour_has_2_points", "fewer than 3 points", structure.Contour{Type: structure.ClosedPlanar, Points: [][3]float64{{-3, -3, 1}, {3, 3, 1}}}},
-		{"only_contour_not_planar", "not in an axial plane", structure.Contour{Type: structure.ClosedPlanar, Points: [][3]float64{{-4, -4, -1}, {4, -4, 1}, {4, 4, 3}, {-4, 4, 1}}}},
+	// one of them (Cord: 2 points at z = 1 mm; 4 points with z from −1 to
+	// 3 mm) is "not evaluated", with a status saying why.
+	for _, tc := range []struct{ name, reason string }{
+		{"only_contour_has_2_points", "fewer than 3 points"},
+		{"only_contour_not_planar", "not in an axial plane"},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			oar := structure.ROI{Number: 2, Name: "Cord", InterpretedType: "ORGAN", FrameOfReferenceUID: frame, Contours: []structure.Contour{tc.contour}}
-			p, _ := write(t, f.ids, ptv, oar)
+			p := corpus(t, tc.name+".dcm")
 			out := filepath.Join(t.TempDir(), "r.json")
 			vgExit(t, exitPass, compareArgs(f.ref, f.eval, p, "--json", out, "--quiet")...)
 			roi := resultROI(t, readResultJSON(t, out), "Cord")
@@ -948,20 +762,16 @@ func TestBadInputStructures(t *testing.T) {
 			skippedContourReported(t, f, p, "Cord", tc.reason)
 		})
 	}
-	// A target that keeps its other contours: the skipped contour changes
-	// its volume and voxels, and must not vanish in silence.
-	for _, tc := range []struct {
-		name, reason string
-		contour      structure.Contour
-	}{
-		{"target_contour_has_2_points", "fewer than 3 points", structure.Contour{Type: structure.ClosedPlanar, Points: [][3]float64{{-3, -3, 5}, {3, 3, 5}}}},
-		{"target_contour_not_planar", "not in an axial plane", structure.Contour{Type: structure.ClosedPlanar, Points: [][3]float64{{-3, -3, 5}, {3, -3, 5}, {3, 3, 7}, {-3, 3, 5}}}},
+	// A target that keeps its other contours (PTV_1 and a fifth contour
+	// at z = 5 mm: 2 points, or 4 points with z from 5 to 7 mm): the
+	// skipped contour changes its volume and voxels, and must not vanish
+	// in silence.
+	for _, tc := range []struct{ name, reason string }{
+		{"target_contour_has_2_points", "fewer than 3 points"},
+		{"target_contour_not_planar", "not in an axial plane"},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			target := ptv
-			target.Contours = append(append([]structure.Contour{}, ptv.Contours...), tc.contour)
-			p, _ := write(t, f.ids, target)
-			skippedContourReported(t, f, p, "PTV_1", tc.reason)
+			skippedContourReported(t, f, corpus(t, tc.name+".dcm"), "PTV_1", tc.reason)
 		})
 	}
 }
@@ -1076,14 +886,14 @@ func TestBadInputOutputs(t *testing.T) {
 	if err := os.Symlink(f.ref, link); err != nil {
 		t.Fatal(err)
 	}
-	dotted := filepath.Join(f.dir, "..", filepath.Base(f.dir), "eval.dcm")
+	dotted := filepath.Join(f.dir, "..", filepath.Base(f.dir), filepath.Base(f.eval))
 	for _, tc := range []struct {
 		name, flag, path string
 	}{
 		{"json_is_reference", "--json", f.ref},
 		{"gamma_map_is_evaluated", "--gamma-map", f.eval},
 		{"csv_is_structures", "--csv", f.rs},
-		{"difference_map_is_reference_via_dotdot", "--difference-map", filepath.Join(f.dir, "..", filepath.Base(f.dir), "ref.dcm")},
+		{"difference_map_is_reference_via_dotdot", "--difference-map", filepath.Join(f.dir, "..", filepath.Base(f.dir), filepath.Base(f.ref))},
 		{"report_is_symlink_to_reference", "--report", link},
 		{"json_is_evaluated_via_dotdot", "--json", dotted},
 	} {
@@ -1149,8 +959,7 @@ func TestBadInputNothingToCompare(t *testing.T) {
 	t.Run("evaluated_grid_elsewhere", func(t *testing.T) {
 		// The evaluated grid 22×22×18 voxels of 2 mm at x from 179 to 221
 		// mm: 168 mm from the reference grid (x from −11 to 11 mm).
-		far := filepath.Join(t.TempDir(), "RD_far.dcm")
-		writeTestDose(t, far, [3]int{22, 22, 18}, [3]float64{179, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), f.ids)
+		far := corpus(t, "evaluated_grid_elsewhere.dcm")
 		refused(t, compareArgs(f.ref, far, ""), "the evaluated grid covers none of the reference high-dose region", filepath.Base(far))
 	})
 	t.Run("evaluated_grid_partly_outside", func(t *testing.T) {
@@ -1159,8 +968,7 @@ func TestBadInputNothingToCompare(t *testing.T) {
 		// outside it. Not bad input: evaluated, with a warning and the
 		// count of points outside (gamma/doc.go: "counted separately,
 		// never passed").
-		half := filepath.Join(t.TempDir(), "RD_half.dcm")
-		writeTestDose(t, half, [3]int{12, 22, 18}, [3]float64{-21, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), f.ids)
+		half := corpus(t, "evaluated_grid_partly_outside.dcm")
 		out := filepath.Join(t.TempDir(), "r.json")
 		r := vgRun(t, compareArgs(f.ref, half, "", "--no-structures", "--json", out)...)
 		// Every evaluated point passes (Γ = 0.667), but 5 of 12 columns
@@ -1190,8 +998,7 @@ func TestBadInputNothingToCompare(t *testing.T) {
 			r.code, res.Overall.OutsideEvaluated, res.Overall.OutsideEvaluated+res.Overall.Evaluated, res.Verdict)
 	})
 	t.Run("all_zero_reference", func(t *testing.T) {
-		zero := filepath.Join(t.TempDir(), "RD_zero.dcm")
-		writeTestDose(t, zero, [3]int{12, 12, 8}, [3]float64{-11, -11, -7}, [3]float64{2, 2, 2}, phantom.Uniform(0), f.ids)
+		zero := corpus(t, "all_zero_reference.dcm")
 		refused(t, compareArgs(zero, f.eval, ""), "no positive value", filepath.Base(zero))
 	})
 }
@@ -1323,8 +1130,7 @@ func TestBadInputSearchFalsePass(t *testing.T) {
 // C.7.4.1 FrameOfReferenceUID), which dicomio.WriteDose refuses.
 func TestBadInputPartialOutput(t *testing.T) {
 	f := newBadFixture(t)
-	noIDs := dropElem(t, dropElem(t, f.refBytes, tgStudyUID), tgFrameOfRef)
-	ref := f.file(t, "RD_noids.dcm", noIDs)
+	ref := corpus(t, "no_StudyInstanceUID_no_FrameOfReferenceUID.dcm")
 	out := t.TempDir()
 	r := vgRun(t, withOutputs(compareArgs(ref, f.eval, "", "--quiet", "--no-structures"), out)...)
 	switch r.code {
@@ -1417,16 +1223,10 @@ func TestBadInputReferencePoints(t *testing.T) {
 func TestBadInputBinary(t *testing.T) {
 	bin := buildBinary(t)
 	f := newBadFixture(t)
-	pixel := findElem(t, f.refBytes, tgPixelData, 0)
-	cut := f.file(t, "RD_cut.dcm", f.refBytes[:pixel.val+int(pixel.vl)/2])
-	nanScale := f.file(t, "RD_nan.dcm", setText(t, f.refBytes, tgScaling, "NaN"))
-	far := filepath.Join(t.TempDir(), "RD_far.dcm")
-	writeTestDose(t, far, [3]int{22, 22, 18}, [3]float64{179, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), f.ids)
-	ptv := sphereROI(t, "PTV_1", "PTV", 1, phantom.Sphere{Radius: 5}, f.ids.FrameOfReferenceUID)
-	ptv.Contours[0].Points[0][0] = 4.56789
-	rsMarked := filepath.Join(t.TempDir(), "RS_marked.dcm")
-	writeTestStructures(t, rsMarked, f.ids, ptv)
-	rsNaN := f.file(t, "RS_nan.dcm", replaceOnce(t, mustReadFile(t, rsMarked), "4.56789", "NaN    "))
+	cut := corpus(t, "truncated_in_PixelData.dcm")
+	nanScale := corpus(t, "DoseGridScaling_NaN.dcm")
+	far := corpus(t, "evaluated_grid_elsewhere.dcm")
+	rsNaN := corpus(t, "NaN_coordinate.dcm")
 	for _, tc := range []struct {
 		name  string
 		args  []string

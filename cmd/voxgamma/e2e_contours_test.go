@@ -15,20 +15,7 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
-
-	"voxgamma/phantom"
-	"voxgamma/structure"
 )
-
-func boxROI(t *testing.T, name, typ string, number int, b phantom.Box, frame string) structure.ROI {
-	t.Helper()
-	r, err := phantom.NewROI(b, phantom.ROISpec{Name: name, Number: number, InterpretedType: typ,
-		Color: [3]uint8{50, 120, 200}, FrameOfReferenceUID: frame, PlaneSpacing: 2, PlanePhase: 1})
-	if err != nil {
-		t.Fatal(err)
-	}
-	return r
-}
 
 // TestContoursThatCancel: in the uniform case (Γ = 0.667 everywhere, so
 // every ROI evaluated passes), an organ at risk drawn twice on each plane
@@ -37,18 +24,11 @@ func boxROI(t *testing.T, name, typ string, number int, b phantom.Box, frame str
 // same voxels and volume.
 func TestContoursThatCancel(t *testing.T) {
 	f := newBadFixture(t)
-	frame := f.ids.FrameOfReferenceUID
-	cord := sphereROI(t, "Cord", "ORGAN", 2, phantom.Sphere{Radius: 5}, frame)
-	cordSingle := sphereROI(t, "Cord_single", "ORGAN", 3, phantom.Sphere{Radius: 5}, frame)
-	cord.Contours = append(cord.Contours, cord.Contours...) // every contour twice
-	// PTV_2: the box [-6, 6] × [-4, 4] × [-5, 5] drawn on each plane as two
-	// boxes overlapping on [-2, 2]; PTV_2_single drawn as one box.
-	left := boxROI(t, "PTV_2", "PTV", 4, phantom.Box{Min: [3]float64{-6, -4, -5}, Max: [3]float64{2, 4, 5}}, frame)
-	right := boxROI(t, "x", "PTV", 99, phantom.Box{Min: [3]float64{-2, -4, -5}, Max: [3]float64{6, 4, 5}}, frame)
-	left.Contours = append(left.Contours, right.Contours...)
-	single := boxROI(t, "PTV_2_single", "PTV", 5, phantom.Box{Min: [3]float64{-6, -4, -5}, Max: [3]float64{6, 4, 5}}, frame)
-	rs := filepath.Join(t.TempDir(), "RS_overlap.dcm")
-	writeTestStructures(t, rs, f.ids, cord, cordSingle, left, single)
+	// Cord a sphere of radius 5 mm with every contour twice, Cord_single
+	// the same drawn once; PTV_2 the box [-6, 6] × [-4, 4] × [-5, 5] drawn
+	// on each plane as two boxes overlapping on [-2, 2], PTV_2_single drawn
+	// as one box (testdata/bad-input, testdata/generate.py).
+	rs := corpus(t, "contours_twice_and_overlapping.dcm")
 
 	for _, proto := range []string{"tg218", "stereotactic"} {
 		t.Run(proto, func(t *testing.T) {

@@ -23,7 +23,6 @@ package main
 //     DoseGridScaling.
 
 import (
-	"encoding/binary"
 	"math"
 	"os"
 	"os/exec"
@@ -31,47 +30,7 @@ import (
 	"strconv"
 	"strings"
 	"testing"
-
-	"voxgamma/dicomio"
-	"voxgamma/phantom"
 )
-
-// insertText returns data with a top-level text element (explicit VR, short
-// header: PS3.5 7.1.2) inserted where its tag belongs in ascending order.
-func insertText(t *testing.T, data []byte, tag uint32, vr, value string) []byte {
-	t.Helper()
-	if len(value)%2 == 1 {
-		value += " "
-	}
-	for _, e := range walkDICOM(t, data) {
-		if e.meta || e.depth != 0 || e.vr == "" || e.tag <= tag {
-			continue
-		}
-		h := make([]byte, 8)
-		binary.LittleEndian.PutUint16(h, uint16(tag>>16))
-		binary.LittleEndian.PutUint16(h[2:], uint16(tag))
-		copy(h[4:], vr)
-		binary.LittleEndian.PutUint16(h[6:], uint16(len(value)))
-		out := append(append([]byte(nil), data[:e.hdr]...), h...)
-		out = append(out, value...)
-		return append(out, data[e.hdr:]...)
-	}
-	t.Fatalf("no element after (%04X,%04X)", tag>>16, tag&0xFFFF)
-	return nil
-}
-
-const (
-	tgManufacturer     = 0x00080070
-	tgRescaleIntercept = 0x00281052
-	tgRescaleSlope     = 0x00281053
-)
-
-// valueOf returns the value bytes of the first element with the tag.
-func valueOf(t *testing.T, data []byte, tag uint32) []byte {
-	t.Helper()
-	e := findElem(t, data, tag, 0)
-	return data[e.val:e.end()]
-}
 
 // near reports whether the decimal text s is within tol (relative) of v.
 func near(v float64, s string, tol float64) bool {
@@ -91,11 +50,11 @@ rules:
 `), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	effective := f.file(t, "eval_effective.dcm", setText(t, f.evalBytes, tgDoseType, "EFFECTIVE"))
-	refEffective := f.file(t, "ref_effective.dcm", setText(t, f.refBytes, tgDoseType, "EFFECTIVE"))
+	// The uniform case's doses with DoseType changed (testdata/bad-input).
+	effective := corpus(t, "DoseType_EFFECTIVE_evaluated.dcm")
+	refEffective := corpus(t, "DoseType_EFFECTIVE_reference.dcm")
 	// An ERROR dose another system wrote (not voxgamma's own map).
-	errorDose := f.file(t, "eval_error.dcm", setText(t, setText(t, f.evalBytes, tgDoseType, "ERROR"), tgManufacturer, "Other System"))
-	scaling := strings.TrimSpace(strings.Trim(string(valueOf(t, f.refBytes, tgScaling)), "\x00"))
+	errorDose := corpus(t, "DoseType_ERROR_other_system.dcm")
 
 	// Refused: one line naming the file(s) and the tag.
 	for _, tc := range []struct {
@@ -103,14 +62,14 @@ rules:
 		args  []string
 		cause []string
 	}{
-		{"PHYSICAL_against_EFFECTIVE", compareArgs(f.ref, effective, f.rs), []string{"DoseType (3004,0004)", "ref.dcm", "PHYSICAL", "eval_effective.dcm", "EFFECTIVE"}},
-		{"EFFECTIVE_against_PHYSICAL", compareArgs(refEffective, f.eval, f.rs), []string{"DoseType (3004,0004)", "ref_effective.dcm", "EFFECTIVE", "PHYSICAL"}},
+		{"PHYSICAL_against_EFFECTIVE", compareArgs(f.ref, effective, f.rs), []string{"DoseType (3004,0004)", filepath.Base(f.ref), "PHYSICAL", filepath.Base(effective), "EFFECTIVE"}},
+		{"EFFECTIVE_against_PHYSICAL", compareArgs(refEffective, f.eval, f.rs), []string{"DoseType (3004,0004)", filepath.Base(refEffective), "EFFECTIVE", "PHYSICAL"}},
 		{"evaluated_ERROR", compareArgs(f.ref, errorDose, f.rs), []string{errorDose, "DoseType (3004,0004) is ERROR"}},
 		{"reference_ERROR", compareArgs(errorDose, f.eval, f.rs), []string{errorDose, "DoseType (3004,0004) is ERROR"}},
-		{"RescaleSlope_2", compareArgs(f.file(t, "ref_slope2.dcm", insertText(t, f.refBytes, tgRescaleSlope, "DS", "2")), f.eval, f.rs),
-			[]string{"ref_slope2.dcm", "RescaleSlope (0028,1053) 2", "DoseGridScaling (3004,000E)"}},
-		{"RescaleIntercept_0.5", compareArgs(f.ref, f.file(t, "eval_intercept.dcm", insertText(t, f.evalBytes, tgRescaleIntercept, "DS", "0.5")), f.rs),
-			[]string{"eval_intercept.dcm", "RescaleIntercept (0028,1052) 0.5"}},
+		{"RescaleSlope_2", compareArgs(corpus(t, "RescaleSlope_2.dcm"), f.eval, f.rs),
+			[]string{"RescaleSlope_2.dcm", "RescaleSlope (0028,1053) 2", "DoseGridScaling (3004,000E)"}},
+		{"RescaleIntercept_0.5", compareArgs(f.ref, corpus(t, "RescaleIntercept_0.5.dcm"), f.rs),
+			[]string{"RescaleIntercept_0.5.dcm", "RescaleIntercept (0028,1052) 0.5"}},
 	} {
 		t.Run(tc.name, func(t *testing.T) { refused(t, tc.args, tc.cause...) })
 	}
@@ -125,18 +84,15 @@ rules:
 	})
 
 	// Warned: evaluated, the warning in the result.
-	relRef := f.file(t, "ref_relative.dcm", setText(t, f.refBytes, tgDoseUnits, "RELATIVE"))
-	relEval := f.file(t, "eval_relative.dcm", setText(t, f.evalBytes, tgDoseUnits, "RELATIVE"))
-	otherPlan := dicomio.PhantomIdentifiers("PHANTOM^TEST", "VG-TEST-001")
-	otherPlan.FrameOfReferenceUID, otherPlan.StudyInstanceUID = f.ids.FrameOfReferenceUID, f.ids.StudyInstanceUID
-	planB := filepath.Join(t.TempDir(), "eval_planB.dcm")
-	writeTestDose(t, planB, [3]int{22, 22, 18}, [3]float64{-21, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), otherPlan)
+	relRef, relEval := corpus(t, "RELATIVE_reference.dcm"), corpus(t, "RELATIVE_evaluated.dcm")
+	// The evaluated dose of the same frame and study, naming another plan.
+	planB := corpus(t, "different_RT_Plan_evaluated.dcm")
 	for _, tc := range []struct {
 		name, ref, eval, want string
 	}{
 		{"both_RELATIVE", relRef, relEval, "both doses are RELATIVE"},
 		{"different_plans", f.ref, planB, "the doses reference different RT Plans"},
-		{"no_DoseType", f.file(t, "ref_notype.dcm", dropElem(t, f.refBytes, tgDoseType)), f.eval, "DoseType (3004,0004) missing"},
+		{"no_DoseType", corpus(t, "DoseType_missing.dcm"), f.eval, "DoseType (3004,0004) missing"},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
 			out := filepath.Join(t.TempDir(), "r.json")
@@ -155,8 +111,8 @@ rules:
 	// (stored × DoseGridScaling); the note says so.
 	t.Run("RescaleSlope_equals_DoseGridScaling", func(t *testing.T) {
 		py := requirePydicom(t)
-		twice := f.file(t, "ref_twice.dcm", insertText(t, insertText(t, f.refBytes, tgRescaleSlope, "DS", scaling), tgRescaleIntercept, "DS", "0"))
-		identity := f.file(t, "ref_identity.dcm", insertText(t, f.refBytes, tgRescaleSlope, "DS", "1"))
+		twice := corpus(t, "RescaleSlope_equals_DoseGridScaling.dcm") // RescaleSlope = DoseGridScaling, RescaleIntercept 0
+		identity := corpus(t, "RescaleSlope_identity.dcm")
 		for _, p := range []string{twice, identity} {
 			out := filepath.Join(t.TempDir(), "r.json")
 			vgExit(t, exitPass, "compare", "--reference", p, "--evaluated", f.eval, "--json", out, "--no-structures", "-q")

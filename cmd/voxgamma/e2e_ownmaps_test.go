@@ -18,7 +18,7 @@ import (
 
 	"voxgamma/dicomio"
 	"voxgamma/internal/batchtest"
-	"voxgamma/phantom"
+	"voxgamma/internal/fixture"
 )
 
 // dropTopSequence returns data without the top-level sequence element with
@@ -127,20 +127,13 @@ func TestOwnMapsValid(t *testing.T) {
 	dciodvfy := reftoolProgram(t, "dciodvfy")
 	py := requirePydicom(t)
 	f := newBadFixture(t)
-	noPlan := f.file(t, "ref_noplan.dcm", dropTopSequence(t, f.refBytes, tgRTPlanSeq))
+	// The uniform reference naming no plan, and as the dose of the plan's
+	// fraction group 1 (DoseSummationType FRACTION), from testdata.
+	noPlan := fixture.Path(t, "dicom/uniform/RD_reference_no_plan.dcm")
 	if info, err := dicomio.ReadDoseInfo(noPlan); err != nil || info.ReferencedRTPlanUID != "" || info.DoseSummationType != "PLAN" {
 		t.Fatalf("test file: %+v %v", info, err)
 	}
-	frac := filepath.Join(t.TempDir(), "ref_fraction.dcm")
-	g := testGrid(t, [3]int{12, 12, 8}, [3]float64{-11, -11, -7}, [3]float64{2, 2, 2})
-	if err := phantom.Fill(g, phantom.Uniform(2)); err != nil {
-		t.Fatal(err)
-	}
-	o := dicomio.DoseOptions("fraction dose, Gy")
-	o.DoseSummationType, o.ReferencedFractionGroupNumber = "FRACTION", 1
-	if _, err := dicomio.WriteDose(frac, g, f.ids, o); err != nil {
-		t.Fatal(err)
-	}
+	frac := fixture.Path(t, "dicom/uniform/RD_reference_fraction.dcm")
 	for _, tc := range []struct {
 		name, ref, sum string
 		plan           bool
