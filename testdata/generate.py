@@ -184,6 +184,17 @@ def rtstruct(path, case, name, rois, frame=None, label="VG_TESTDATA"):
     ds.RTROIObservationsSequence = Sequence([
         item(ObservationNumber=str(i + 1), ReferencedROINumber=str(r["number"]), RTROIInterpretedType=r["type"], ROIInterpreter="")
         for i, r in enumerate(rois)])
+    # Sequences and items of undefined length, closed by delimitation items
+    # (PS3.5 7.5), as many planning systems write them; the RT Doses keep
+    # pydicom's explicit lengths, so the truncation tests cut both kinds.
+    def undefined(d):
+        for el in d:
+            if el.VR == "SQ":
+                el.is_undefined_length = True
+                for it in el.value:
+                    it.is_undefined_length_sequence_item = True
+                    undefined(it)
+    undefined(ds)
     write(path, ds, RTSTRUCT, uid(case + "/structures/" + name))
 
 
@@ -412,17 +423,26 @@ def plans(out):
 LONG_VRS = {b"OB", b"OD", b"OF", b"OL", b"OV", b"OW", b"SQ", b"UC", b"UN", b"UR", b"UT"}
 
 
+UNDEFINED = 0xFFFFFFFF
+
+
 def walk(data):
     """Every element of a file as (tag, vr, header offset, length field
     offset, length field size, value offset, value length, enclosing length
-    fields [(offset, size), ...]); items appear with vr None."""
+    fields [(offset, size), ...] of explicit length); items appear with vr
+    None. Sequences and items of undefined length end with their
+    delimitation items (PS3.5 7.5)."""
     out = []
 
     def elements(off, end, parents, meta):
-        while off < end:
+        """Elements from off up to end, or, with end None, up to and
+        including an Item Delimitation Item; returns the offset after."""
+        while end is None or off < end:
             g, e = struct.unpack_from("<HH", data, off)
             if meta and g != 2:
                 return off
+            if end is None and (g, e) == (0xFFFE, 0xE00D):
+                return off + 8
             vr = data[off + 4:off + 6]
             if vr in LONG_VRS:
                 la, ls, val = off + 8, 4, off + 12
@@ -430,17 +450,25 @@ def walk(data):
             else:
                 la, ls, val = off + 6, 2, off + 8
                 vl = struct.unpack_from("<H", data, la)[0]
-            assert vl != 0xFFFFFFFF, "undefined length in a generated file"
             out.append(((g << 16) | e, vr, off, la, ls, val, vl, parents))
-            if vr == b"SQ":
-                ioff = val
-                while ioff < val + vl:
-                    ig, ie, ivl = struct.unpack_from("<HHI", data, ioff)
-                    assert (ig, ie) == (0xFFFE, 0xE000) and ivl != 0xFFFFFFFF
-                    out.append((0xFFFEE000, None, ioff, ioff + 4, 4, ioff + 8, ivl, parents + [(la, ls)]))
-                    elements(ioff + 8, ioff + 8 + ivl, parents + [(la, ls), (ioff + 4, 4)], False)
+            if vr != b"SQ":
+                off = val + vl
+                continue
+            inner = parents if vl == UNDEFINED else parents + [(la, ls)]
+            ioff = val
+            while vl == UNDEFINED or ioff < val + vl:
+                ig, ie, ivl = struct.unpack_from("<HHI", data, ioff)
+                if (ig, ie) == (0xFFFE, 0xE0DD):  # Sequence Delimitation Item
+                    ioff += 8
+                    break
+                assert (ig, ie) == (0xFFFE, 0xE000)
+                out.append((0xFFFEE000, None, ioff, ioff + 4, 4, ioff + 8, ivl, inner))
+                if ivl == UNDEFINED:
+                    ioff = elements(ioff + 8, None, inner, False)
+                else:
+                    elements(ioff + 8, ioff + 8 + ivl, inner + [(ioff + 4, 4)], False)
                     ioff += 8 + ivl
-            off = val + vl
+            off = ioff
         return off
 
     off = elements(132, len(data), [], True)
