@@ -91,7 +91,7 @@ def common(ds, case, modality, series, description):
 
 
 def rtdose(path, case, name, values, ipp, ps, frame_offsets, iop=HFS, units="GY", dose_type="PHYSICAL",
-           summation="PLAN", plan=None, fraction_group=None, comment=None):
+           summation="PLAN", plan=None, fraction_group=None, comment=None, frame=None):
     """An RT Dose of the dose values [frame][row][column] (Gy, float64).
 
     Positions follow PS3.3 C.7.6.2.1.1 and C.8.8.3.2: voxel (i, j, k) lies at
@@ -111,7 +111,7 @@ def rtdose(path, case, name, values, ipp, ps, frame_offsets, iop=HFS, units="GY"
     codes = np.rint(values / scaling)
     ds = Dataset()
     common(ds, case, "RTDOSE", name, "%s dose, %s" % (name, case))
-    ds.FrameOfReferenceUID = uid(case + "/frame")
+    ds.FrameOfReferenceUID = frame or uid(case + "/frame")
     ds.PositionReferenceIndicator = ""
     ds.ImagePositionPatient = [ds_str(v) for v in ipp]
     ds.ImageOrientationPatient = [ds_str(v) for v in iop]
@@ -656,6 +656,8 @@ def bad_input(out):
     scaling = ref[find(ref, SCALING)[5]:][:find(ref, SCALING)[6]].decode("ascii").strip(" \0")
     put("RescaleSlope_equals_DoseGridScaling.dcm", insert(insert(ref, RESCALE_SLOPE, "DS", scaling), RESCALE_INTERCEPT, "DS", "0"))
     put("RescaleSlope_identity.dcm", insert(ref, RESCALE_SLOPE, "DS", "1"))
+    rtdose(os.path.join(d, "evaluated_in_other_frame.dcm"), case, "evaluated-other-frame", flat(UNIFORM_EVAL["dims"], 2.04),
+           UNIFORM_EVAL["ipp"], (2, 2), offsets(18, 0, 2), frame=uid(case + "/other-frame"))
     rtdose(os.path.join(d, "different_RT_Plan_evaluated.dcm"), case, "evaluated-other-plan", flat(UNIFORM_EVAL["dims"], 2.04),
            UNIFORM_EVAL["ipp"], (2, 2), offsets(18, 0, 2), plan=uid(case + "/other-plan"))
 

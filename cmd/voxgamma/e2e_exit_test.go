@@ -15,7 +15,7 @@ import (
 	"strings"
 	"testing"
 
-	"voxgamma/dicomio"
+	"voxgamma/internal/fixture"
 	"voxgamma/phantom"
 )
 
@@ -70,9 +70,11 @@ func TestExitStatusBinary(t *testing.T) {
 	// Flat 2 Gy reference; the default normalisation is the reference
 	// maximum, so Γ = |k−1|/δ (TestCompareUniformScale): k = 1.02 gives
 	// Γ = 0.667 everywhere (100 % pass: TG-218's limits met), k = 0.95 gives
-	// Γ = 1.667 everywhere (0 %: not met).
-	pass := newUniformCase(t, 2, 1.02)
-	fail := newUniformCase(t, 2, 0.95)
+	// Γ = 1.667 everywhere (0 %: not met): the uniform case of testdata,
+	// its passing pair copied (a case below names the reference as an
+	// output, which must leave it unchanged).
+	pass := uniformPair(t, true)
+	fail := uniformPair(t, false)
 
 	t.Run("0 every rule met", func(t *testing.T) {
 		out := filepath.Join(t.TempDir(), "r.json")
@@ -109,21 +111,14 @@ func TestExitStatusBinary(t *testing.T) {
 
 	// Inputs for the error cases.
 	dir := t.TempDir()
-	notDICOM := filepath.Join(dir, "notes.dcm")
-	if err := os.WriteFile(notDICOM, []byte("plan notes, not a DICOM file\n"), 0o644); err != nil {
-		t.Fatal(err)
-	}
-	rs := filepath.Join(dir, "RS_test.dcm")
-	writeTestStructures(t, rs, pass.ids, sphereROI(t, "PTV_1", "PTV", 1, phantom.Sphere{Centre: [3]float64{0, 0, 0}, Radius: 5}, pass.ids.FrameOfReferenceUID))
+	notDICOM := fixture.Path(t, "bad-input/text.dcm")
+	rs := fixture.Path(t, "dicom/uniform/RS.dcm")
 	badProtocol := filepath.Join(dir, "clinic-protocol.yaml")
 	if err := os.WriteFile(badProtocol, []byte("name: clinic\ncriteria: {criteria: 3%/2mm, normalisation: global, threshold_percent: 10}\n"+
 		"rules:\n  - {subject: overall, metric: pass_rate, op: \">=\", limit: 95, colour: red}\n"), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	otherFrame := pass.ids
-	otherFrame.FrameOfReferenceUID = dicomio.NewUID()
-	otherEval := filepath.Join(dir, "eval_other_frame.dcm")
-	writeTestDose(t, otherEval, [3]int{22, 22, 18}, [3]float64{-21, -21, -17}, [3]float64{2, 2, 2}, phantom.Uniform(2.04), otherFrame)
+	otherEval := fixture.Path(t, "bad-input/evaluated_in_other_frame.dcm")
 	missing := filepath.Join(dir, "no-such-dose.dcm")
 
 	base := func(extra ...string) []string {
@@ -136,8 +131,8 @@ func TestExitStatusBinary(t *testing.T) {
 		cause []string
 	}{
 		{"missing file", []string{"compare", "--reference", missing, "--evaluated", pass.eval}, "", []string{"no-such-dose.dcm"}},
-		{"not DICOM", []string{"compare", "--reference", notDICOM, "--evaluated", pass.eval}, "", []string{"notes.dcm"}},
-		{"structure set as reference", []string{"compare", "--reference", rs, "--evaluated", pass.eval}, "", []string{"RS_test.dcm"}},
+		{"not DICOM", []string{"compare", "--reference", notDICOM, "--evaluated", pass.eval}, "", []string{"text.dcm"}},
+		{"structure set as reference", []string{"compare", "--reference", rs, "--evaluated", pass.eval}, "", []string{"RS.dcm"}},
 		{"criteria 3/2", base("--criteria", "3/2"), "", []string{"--criteria", "3/2"}},
 		{"criteria 3%", base("--criteria", "3%"), "", []string{"--criteria", "3%"}},
 		{"criteria -1%/2mm", base("--criteria", "-1%/2mm"), "", []string{"--criteria", "-1%/2mm"}},
@@ -149,7 +144,7 @@ func TestExitStatusBinary(t *testing.T) {
 		{"norm-dose -1", base("--norm-dose", "-1"), "", []string{"--norm-dose", "-1"}},
 		{"gamma-map extension", base("--gamma-map", "gamma.png"), "", []string{"--gamma-map", "gamma.png"}},
 		{"protocol unknown field", base("--protocol", badProtocol), "", []string{"clinic-protocol.yaml", "colour"}},
-		{"frames differ", []string{"compare", "--reference", pass.ref, "--evaluated", otherEval}, "", []string{"frame", "eval_other_frame.dcm"}},
+		{"frames differ", []string{"compare", "--reference", pass.ref, "--evaluated", otherEval}, "", []string{"frame", "evaluated_in_other_frame.dcm"}},
 	}
 	for _, tc := range cases {
 		t.Run("1 "+tc.name, func(t *testing.T) {
@@ -243,7 +238,7 @@ func TestExitStatusBinary(t *testing.T) {
 // TestExitStatusInProcess: the same contract through run, for the
 // statuses the binary test does not repeat with structures.
 func TestExitStatusInProcess(t *testing.T) {
-	pass := newUniformCase(t, 2, 1.02)
+	pass := uniformPair(t, true)
 	r := vgExit(t, exitPass, "compare", "--reference", pass.ref, "--evaluated", pass.eval, "--no-structures", "--quiet")
 	// --quiet prints nothing but the one outcome line on stderr.
 	if r.stdout != "" || r.stderr != "voxgamma: verdict pass: 3 of 4 rule checks met, 1 not applicable (exit 0)\n" {
@@ -306,4 +301,18 @@ func withoutWarnings(r invocation) invocation {
 	}
 	r.stderr = strings.Join(keep, "")
 	return r
+}
+
+// uniformPair returns the uniform case of testdata (a flat 2 Gy reference
+// inside an evaluated dose k·2 Gy): k = 1.02, copied into a folder of the
+// test, when pass; k = 0.95, read in place, when not.
+func uniformPair(t *testing.T, pass bool) (p struct{ ref, eval string }) {
+	t.Helper()
+	if !pass {
+		p.ref, p.eval = fixture.Path(t, "dicom/uniform/RD_reference.dcm"), fixture.Path(t, "dicom/uniform/RD_evaluated_fail.dcm")
+		return p
+	}
+	c := fixture.Copy(t, t.TempDir(), "dicom/uniform/RD_reference.dcm", "dicom/uniform/RD_evaluated.dcm")
+	p.ref, p.eval = c[0], c[1]
+	return p
 }

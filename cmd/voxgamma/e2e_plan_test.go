@@ -13,69 +13,17 @@ import (
 	"testing"
 
 	"voxgamma/dicomio"
+	"voxgamma/internal/fixture"
 )
 
-// pydicomPlanWriter writes an RT Plan with pydicom (argv: path, JSON of the
-// SOPInstanceUID, FrameOfReferenceUID, PatientID to use) with two TARGET
-// prescriptions (60 and 50 Gy), an organ-at-risk reference, two fraction
-// groups (25 and 5 fractions) and three beams plus a setup beam, then
-// prints what pydicom reads back: the prescriptions, the fractions per
-// group and each beam's name and meterset from its fraction group.
-const pydicomPlanWriter = `
+// pydicomPlanReader prints what pydicom reads from an RT Plan (argv: its
+// path): the label and name, the TARGET prescriptions, the fractions per
+// group and each beam's number, name, fraction group and meterset.
+const pydicomPlanReader = `
 import json, sys
 import pydicom
-from pydicom.dataset import Dataset, FileMetaDataset
-from pydicom.sequence import Sequence
-from pydicom.uid import ExplicitVRLittleEndian
 
-path, spec = sys.argv[1], json.loads(sys.argv[2])
-def item(**kw):
-    d = Dataset()
-    for k, v in kw.items():
-        setattr(d, k, v)
-    return d
-ds = Dataset()
-ds.file_meta = FileMetaDataset()
-ds.file_meta.MediaStorageSOPClassUID = "1.2.840.10008.5.1.4.1.1.481.5"
-ds.file_meta.MediaStorageSOPInstanceUID = spec["sop"]
-ds.file_meta.TransferSyntaxUID = ExplicitVRLittleEndian
-ds.SOPClassUID = ds.file_meta.MediaStorageSOPClassUID
-ds.SOPInstanceUID = spec["sop"]
-ds.Modality = "RTPLAN"
-ds.PatientName = "PHANTOM^TEST"
-ds.PatientID = spec["pid"]
-ds.StudyInstanceUID = "2.25.99"
-ds.SeriesInstanceUID = "2.25.98"
-ds.FrameOfReferenceUID = spec["for"]
-ds.RTPlanLabel = "H&N_SIB"
-ds.RTPlanName = "Head and neck, two levels"
-ds.RTPlanGeometry = "TREATMENT_DEVICE"
-ds.ApprovalStatus = "APPROVED"
-ds.DoseReferenceSequence = Sequence([
-    item(DoseReferenceNumber=1, DoseReferenceStructureType="SITE", DoseReferenceDescription="PTV_60", DoseReferenceType="TARGET", TargetPrescriptionDose="60"),
-    item(DoseReferenceNumber=2, DoseReferenceStructureType="SITE", DoseReferenceDescription="PTV_50", DoseReferenceType="TARGET", TargetPrescriptionDose="50.4"),
-    item(DoseReferenceNumber=3, DoseReferenceStructureType="SITE", DoseReferenceDescription="Cord", DoseReferenceType="ORGAN_AT_RISK", DeliveryMaximumDose="45"),
-])
-beams = []
-for num, name, gantry in [(1, "VMAT 1", 181.0), (2, "VMAT 2", 179.0), (3, "Boost", 90.0), (9, "CBCT", 0.0)]:
-    cp = item(ControlPointIndex=0, NominalBeamEnergy=6.0, GantryAngle=gantry, CumulativeMetersetWeight=0.0)
-    beams.append(item(BeamNumber=num, BeamName=name, BeamType="DYNAMIC", RadiationType="PHOTON", TreatmentMachineName="LINAC_T",
-                      PrimaryDosimeterUnit="MU", TreatmentDeliveryType="SETUP" if num == 9 else "TREATMENT",
-                      NumberOfControlPoints=1, ControlPointSequence=Sequence([cp])))
-ds.BeamSequence = Sequence(beams)
-ds.FractionGroupSequence = Sequence([
-    item(FractionGroupNumber=1, NumberOfFractionsPlanned=25, NumberOfBeams=2, NumberOfBrachyApplicationSetups=0,
-         ReferencedBeamSequence=Sequence([item(ReferencedBeamNumber=1, BeamMeterset="301.25"), item(ReferencedBeamNumber=2, BeamMeterset="288.5")])),
-    item(FractionGroupNumber=2, NumberOfFractionsPlanned=5, NumberOfBeams=1, NumberOfBrachyApplicationSetups=0,
-         ReferencedBeamSequence=Sequence([item(ReferencedBeamNumber=3, BeamMeterset="150.75")])),
-])
-try:
-    pydicom.dcmwrite(path, ds, enforce_file_format=True)
-except TypeError:
-    ds.is_little_endian, ds.is_implicit_VR = True, False
-    pydicom.dcmwrite(path, ds, write_like_original=False)
-
-back = pydicom.dcmread(path)
+back = pydicom.dcmread(sys.argv[1])
 ms = {}
 for g in back.FractionGroupSequence:
     for r in g.ReferencedBeamSequence:
@@ -95,15 +43,10 @@ type pydicomPlanRef struct {
 	Beams         [][4]any
 }
 
-func writePydicomPlan(t *testing.T, path, sop, frame, pid string) pydicomPlanRef {
+func readPydicomPlan(t *testing.T, path string) pydicomPlanRef {
 	t.Helper()
 	py := requirePydicom(t)
-	spec, _ := json.Marshal(map[string]string{"sop": sop, "for": frame, "pid": pid})
-	script := filepath.Join(t.TempDir(), "plan.py")
-	if err := os.WriteFile(script, []byte(pydicomPlanWriter), 0o644); err != nil {
-		t.Fatal(err)
-	}
-	out, err := exec.Command(py, script, path, string(spec)).CombinedOutput()
+	out, err := exec.Command(py, "-c", pydicomPlanReader, path).CombinedOutput()
 	if err != nil {
 		t.Fatalf("pydicom: %v\n%s", err, out)
 	}
@@ -114,15 +57,18 @@ func writePydicomPlan(t *testing.T, path, sop, frame, pid string) pydicomPlanRef
 	return ref
 }
 
-// Source: pydicom writes the plan and reads it back; the result's plan
-// object must hold the same values (the highest TARGET prescription, the
-// fractions summed over the groups, each beam's meterset from its group).
+// Source: the uniform case's RT Plan, which pydicom wrote
+// (testdata/dicom/uniform/RP.dcm: two TARGET prescriptions, an organ-at-risk
+// reference, two fraction groups, three beams and a setup beam) and reads
+// back here; the result's plan object must hold the same values (the
+// highest TARGET prescription, the fractions summed over the groups, each
+// beam's meterset from its group).
 func TestComparePlanWrittenByPydicom(t *testing.T) {
-	c := newUniformCase(t, 2, 1.01)
-	rp := filepath.Join(c.dir, "rp.dcm")
-	ref := writePydicomPlan(t, rp, c.ids.ReferencedRTPlanUID, c.ids.FrameOfReferenceUID, c.ids.PatientID)
-	out := filepath.Join(c.dir, "r.json")
-	vgExit(t, 0, "compare", "--reference", c.ref, "--evaluated", c.eval, "--plan", rp, "--json", out, "--no-structures", "-q")
+	c := fixture.LoadCase(t, "uniform")
+	rp := c.File(t, "RP.dcm")
+	ref := readPydicomPlan(t, rp)
+	out := filepath.Join(t.TempDir(), "r.json")
+	vgExit(t, 0, "compare", "--reference", c.File(t, "RD_reference.dcm"), "--evaluated", c.File(t, "RD_evaluated.dcm"), "--plan", rp, "--json", out, "--no-structures", "-q")
 	r := readResultJSON(t, out)
 	p := r.Plan
 	if p == nil {
