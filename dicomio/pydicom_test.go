@@ -2,10 +2,12 @@ package dicomio_test
 
 import (
 	"errors"
+	"path/filepath"
 	"strings"
 	"testing"
 
 	"voxgamma/dicomio"
+	"voxgamma/internal/fixture"
 	"voxgamma/structure"
 	"voxgamma/volume"
 )
@@ -176,5 +178,40 @@ func TestPydicomExplicitNoMeta(t *testing.T) {
 	_, _, err := dicomio.ReadDose(path)
 	if err == nil || !strings.Contains(err.Error(), "Modality (0008,0060): is RTPLAN, want RTDOSE") {
 		t.Errorf("error %v, want the modality refused", err)
+	}
+}
+
+// Source: the shared fixtures pydicom wrote (testdata/dicom: the uniform
+// case's doses, head-first supine with a relative GridFrameOffsetVector,
+// one naming its plan's fraction group; the linear gradient's, one with
+// PixelSpacing [2.5, 2] and an absolute GridFrameOffsetVector, one
+// feet-first supine; structure sets with sequences of explicit and of
+// undefined length), decoded by pydicom and numpy: every dose value, every
+// voxel's position, every contour point.
+func TestPydicomSharedFixtures(t *testing.T) {
+	doses, err := filepath.Glob(filepath.Join(fixture.Dir(), "dicom", "*", "RD_*.dcm"))
+	if err != nil || len(doses) < 6 {
+		t.Fatalf("shared RT Doses: %v %v", doses, err)
+	}
+	refs := pydicomDoses(t, doses...)
+	for f, path := range doses {
+		t.Run(filepath.Base(filepath.Dir(path))+"/"+filepath.Base(path), func(t *testing.T) {
+			g, info, err := dicomio.ReadDose(path)
+			if err != nil {
+				t.Fatal(err)
+			}
+			compareWithPydicom(t, refs[f], g, info)
+		})
+	}
+	sets := []string{fixture.Path(t, "dicom/uniform/RS.dcm"), fixture.Path(t, "bad-input/contours_twice_and_overlapping.dcm")}
+	refSets := pydicomStructureSets(t, sets...)
+	for i, path := range sets {
+		t.Run(filepath.Base(path), func(t *testing.T) {
+			set, err := dicomio.ReadStructureSet(path)
+			if err != nil {
+				t.Fatal(err)
+			}
+			compareSetWithPydicom(t, refSets[i], set)
+		})
 	}
 }
