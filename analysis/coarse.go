@@ -49,7 +49,7 @@ func coarseGridWarning(eval *volume.Grid, dta float64, interp gamma.Interpolatio
 	found := false
 	for _, r := range rows {
 		if ratio <= r.ratio*(1+1e-9) {
-			fmt.Fprintf(&b, "and on analytic dose edges (3.5 mm penumbra, 3 %%/2 mm) on grids of up to %s × the DTA it gave Γ within %.2g of the true Γ and pass rates within %.2g percentage points of the true ones (BENCHMARKS.md): this result may be off by as much", trimNum(r.ratio), r.maxGamma, r.passPP)
+			fmt.Fprintf(&b, "and on analytic dose edges (3.5 mm penumbra, 3 %%/2 mm) on grids of up to %s × the DTA it gave Γ within %.2g of the true Γ and pass rates within %.2g percentage points of the true ones (BENCHMARKS.md): this result may be off by as much, and by more where its dose edges are sharper", trimNum(r.ratio), r.maxGamma, r.passPP)
 			found = true
 			break
 		}

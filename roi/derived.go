@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"strings"
 
 	"voxgamma/volume"
 )
@@ -49,6 +50,11 @@ func AllTargets(regions []*Region) (*Region, error) {
 
 // BodyOf returns the union of the regions of kind Body (EXTERNAL contours),
 // named "body", or nil when there is none.
+//
+// Neither AllTargets nor BodyOf returns a union of a single region that
+// already bears the union's name (a structure set's one EXTERNAL ROI named
+// "BODY"): it would be the same ROI listed twice, and a protocol naming
+// roi:body finds that ROI itself.
 func BodyOf(regions []*Region) (*Region, error) {
 	return unionOfKind("body", Body, regions)
 }
@@ -60,7 +66,7 @@ func unionOfKind(name string, kind Kind, regions []*Region) (*Region, error) {
 			sel = append(sel, r)
 		}
 	}
-	if len(sel) == 0 {
+	if len(sel) == 0 || len(sel) == 1 && strings.EqualFold(strings.TrimSpace(sel[0].Name), name) {
 		return nil, nil
 	}
 	return Union(name, kind, sel)

@@ -73,6 +73,16 @@ func TestDerivedRegions(t *testing.T) {
 	if none, err := BodyOf(regs[:3]); none != nil || err != nil {
 		t.Errorf("body without EXTERNAL: %v %v", none, err)
 	}
+	// One EXTERNAL ROI already named "body" (any case) is not listed again
+	// as its own union; one named otherwise ("Outline") still is.
+	named := *regs[3]
+	named.Name = " BODY"
+	if dup, err := BodyOf([]*Region{regs[0], &named}); dup != nil || err != nil {
+		t.Errorf("union of the one EXTERNAL ROI named BODY: %v %v", dup, err)
+	}
+	if one, err := AllTargets(regs[:1]); one == nil || err != nil || one.Name != "all targets" {
+		t.Errorf("all targets of one target named %q: %v %v", regs[0].Name, one, err)
+	}
 
 	// Isodose: voxels ≥ 50 % of 60 Gy of a Gaussian dose are those within
 	// σ·sqrt(2 ln 2) of its centre.
