@@ -53,6 +53,7 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 	fl.Float64Var(&f.minClusterCC, "min-cluster", 0.01, "smallest failing cluster listed, cm³")
 	fl.BoolVar(&f.exhaustive, "exhaustive", false, "use the exhaustive gamma search (slow; for audits)")
 	registerInterpolation(cmd, &f.interpolation)
+	fl.StringVar(&f.evaluatedNoise, "evaluated-noise", "auto", noiseHelp)
 	fl.BoolVar(&f.allowFrameMismatch, "allow-frame-mismatch", false, "compare doses and structures of different frames of reference (you vouch that their coordinates agree)")
 	fl.BoolVar(&f.gammaMap, "gamma-map", false, "also write each case's Γ map as gamma.dcm (RT Dose)")
 	fl.BoolVar(&f.diffMap, "difference-map", false, "also write each case's dose difference map as difference.dcm (RT Dose)")
