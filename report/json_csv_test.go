@@ -4,12 +4,10 @@ import (
 	"bytes"
 	"encoding/csv"
 	"encoding/json"
-	"math"
 	"os"
 	"path/filepath"
 	"reflect"
 	"slices"
-	"strconv"
 	"strings"
 	"testing"
 
