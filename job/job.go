@@ -710,7 +710,8 @@ func WriteMap(path string, grid *volume.Grid, ids dicomio.Identifiers, opt dicom
 // each input's path becomes its role, its patient name and ID their keyed
 // pseudonyms, its UIDs their remapped ones, and its description loses the
 // series description, dose comment or structure set label; warnings,
-// notes, rules, ROI names and statuses and cluster ROI lists are scrubbed
+// notes, rules, ROI names (also under noise) and statuses and cluster ROI
+// lists are scrubbed
 // of every identifying value; the run's date is left out; and notes say so.
 func DeidentifyResult(r *result.Result, d *deid.Scope) {
 	DeidentifyInputs(r.Inputs, d)
@@ -738,6 +739,11 @@ func DeidentifyResult(r *result.Result, d *deid.Scope) {
 	for i := range r.Clusters {
 		for j := range r.Clusters[i].ROIs {
 			r.Clusters[i].ROIs[j] = d.Scrub(r.Clusters[i].ROIs[j])
+		}
+	}
+	if n := r.Noise; n != nil {
+		for i := range n.ROIs {
+			n.ROIs[i].Name = d.Scrub(n.ROIs[i].Name)
 		}
 	}
 	if p := r.Plan; p != nil {

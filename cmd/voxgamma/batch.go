@@ -220,8 +220,8 @@ input.
 
 Cases run in parallel within a memory budget (--max-memory; default 70 % of
 the memory available, within the cgroup limit of a scheduler's job): each
-case's need is estimated from its dose grid sizes before loading (57 bytes per
-reference voxel + 13 per evaluated voxel + 16 MiB), and a case waits until
+case's need is estimated from its dose grid sizes before loading (62 bytes per
+reference voxel + 29 per evaluated voxel + 16 MiB), and a case waits until
 its need fits. --jobs bounds the cases at once, --workers the gamma workers of
 each.
 

@@ -11,6 +11,7 @@ import (
 
 	"voxgamma/dicomio"
 	"voxgamma/metaimage"
+	"voxgamma/result"
 	"voxgamma/volume"
 )
 
@@ -335,8 +336,17 @@ func TestNoiseProtocolJudgesRaw(t *testing.T) {
 	if res.Noise == nil || res.Noise.Judged != "raw" || !res.Noise.Corrected {
 		t.Fatalf("noise %+v", res.Noise)
 	}
-	if len(res.Rules) != 1 || res.Rules[0].Value == nil || *res.Rules[0].Value != jsonNum(res.Noise.RawOverall.PassRate) {
-		t.Errorf("rule %+v judged %v, raw pass rate %v", res.Rules, res.Rules[0].Value, jsonNum(res.Noise.RawOverall.PassRate))
+	var judged *result.RuleOutcome
+	for i, o := range res.Rules {
+		if strings.Contains(o.Rule, "pass rate") {
+			judged = &res.Rules[i]
+		}
+	}
+	if judged == nil || judged.Value == nil || *judged.Value != jsonNum(res.Noise.RawOverall.PassRate) {
+		t.Fatalf("rules %+v: the pass-rate rule does not judge the raw pass rate %v", res.Rules, jsonNum(res.Noise.RawOverall.PassRate))
+	}
+	if len(judged.Conditions) == 0 || !strings.Contains(strings.Join(judged.Conditions, " "), "judge raw") {
+		t.Errorf("the rule does not say it judged the raw figures: %q", judged.Conditions)
 	}
 	html, _ := os.ReadFile(filepath.Join(dir, "r.html"))
 	if !strings.Contains(string(html), "judged the raw figures") {
