@@ -25,8 +25,8 @@ type sweepRow struct {
 	Overall  result.GammaStats `json:"overall"`
 	// RawPassRate is the overall pass rate against the evaluated dose as
 	// given when the pass rates are noise-corrected (absent otherwise).
-	RawPassRate *float64 `json:"raw_pass_rate,omitempty"`
-	ROIs     []sweepROI        `json:"rois"`
+	RawPassRate *float64   `json:"raw_pass_rate,omitempty"`
+	ROIs        []sweepROI `json:"rois"`
 }
 
 type sweepROI struct {
