@@ -288,6 +288,7 @@ func TestNoiseGivenAndMaps(t *testing.T) {
 		want         float64
 	}{
 		{"given", "given", []string{"--evaluated-noise", "2"}, 2},
+		{"given far from the data", "given", []string{"--evaluated-noise", "0.5"}, 0.5},
 		{"rtdose map", "map", []string{"--evaluated-uncertainty", absMap}, 3},
 		{"mha relative", "map", []string{"--evaluated-uncertainty", relMap, "--evaluated-uncertainty-unit", "relative"}, 3},
 		{"mha inferred", "map", []string{"--evaluated-uncertainty", relMap}, 3},
@@ -307,6 +308,15 @@ func TestNoiseGivenAndMaps(t *testing.T) {
 			// of the dose of σ, which there is 3 % × √(D/D_max) ≥ 2.85 %.
 			if s := jsonNum(n.SigmaPercent); math.Abs(s-c.want) > 0.1*c.want {
 				t.Errorf("σ %.3g %%, want %g %%", s, c.want)
+			}
+			// A σ more than a factor of 2 from the dose's own estimate
+			// (3 % here) is used, with a warning naming both.
+			disagrees := false
+			for _, w := range res.Warnings {
+				disagrees = disagrees || strings.Contains(w, "disagrees with the evaluated dose's own estimate")
+			}
+			if disagrees != (c.want < 1.5) {
+				t.Errorf("disagreement warning %v for σ %g %% against about 3 %%: %q", disagrees, c.want, res.Warnings)
 			}
 			if c.source == "map" {
 				found := false
