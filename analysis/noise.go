@@ -203,6 +203,10 @@ func prepareNoise(l *Loaded, s Settings, scale float64) (*noisePrep, error) {
 			return np, nil
 		}
 		info.Source = "estimated"
+		if est.Voxels < noise.EnoughResiduals {
+			np.notes = append(np.notes, fmt.Sprintf("the evaluated dose's noise was estimated from %d flat voxels only (a small or steep high-dose region): σ %.3g ± %.2g %%",
+				est.Voxels, est.SigmaPercent, est.UncertaintyPercent))
+		}
 		info.SigmaPercent = result.Ptr(est.SigmaPercent)
 		info.SigmaUncertaintyPercent = result.Ptr(est.UncertaintyPercent)
 		info.Method = noiseEstimatorText

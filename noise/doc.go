@@ -45,9 +45,10 @@
 // less than 10⁻³ % whatever its direction. A penumbra that the grid does
 // not resolve (3 mm on a 3 mm grid) leaves residuals of several percent
 // next to the edge; voxels where the smoothed dose changes by more than
-// 5 % of D_max per sample step are therefore left out. When fewer than 30
-// flat voxels remain above half of D_max (a target a few voxels across),
-// the region above a fifth of D_max is taken; when that fails too, there
+// 10 % of D_max per sample step (within about two samples of such an
+// edge) are therefore left out. When fewer than 300 flat voxels remain
+// above half of D_max, the region above a fifth of D_max is taken if it
+// holds more; with fewer than 30 (a target a few voxels across), there
 // is no estimate (an error saying why) rather than a number that would
 // take the edge for noise. On the package's noise-free test doses the
 // estimate is at most 0.05 % (exactly 0 where the dose does not vary

@@ -25,28 +25,33 @@ type Estimate struct {
 	Groups int
 	// RegionFraction is the fraction of MaxDose above which voxels were
 	// taken: RegionFractions[0], or the next when the high-dose region had
-	// too few flat voxels.
+	// too few flat voxels (fewer than 300).
 	RegionFraction float64
 }
 
 // RegionFractions are the fractions of the smoothed maximum above which
 // voxels enter the estimate, tried in turn: the high-dose region, where
 // the √D model is closest to the noise met at the maximum, then, for a
-// high-dose region too small to hold enough flat voxels, the region above
-// a fifth of the maximum.
+// high-dose region too small to hold enough (300) flat voxels, the region
+// above a fifth of the maximum.
 var RegionFractions = []float64{0.5, 0.2}
 
 // SlopeLimit is the largest change of the smoothed dose per sample step,
 // as a fraction of its maximum, of a voxel whose residual is taken: next
 // to a steeper edge, one the grid may not resolve, the residual holds
 // dose structure, not noise.
-const SlopeLimit = 0.05
+const SlopeLimit = 0.10
 
 // madScale turns the median of |N(0, σ²)| samples into σ: 1/Φ⁻¹(3/4).
 const madScale = 1.482602218505602
 
-// minResiduals is the least number of residuals an estimate rests on.
-const minResiduals = 30
+// minResiduals is the least number of residuals an estimate rests on;
+// EnoughResiduals is the number from which the high-dose region alone is
+// taken (the MAD's sampling error is then about 7 % of σ).
+const (
+	minResiduals    = 30
+	EnoughResiduals = 300
+)
 
 // ErrNoEstimate reports a grid on which the noise cannot be estimated (too
 // small, no dose, too few voxels in the high-dose region).
@@ -97,9 +102,11 @@ func (d *Dose) Estimate() (Estimate, error) {
 	e := Estimate{MaxDose: dmax}
 	var z []float64
 	for _, frac := range RegionFractions {
-		e.RegionFraction = frac
-		z = d.residuals(dmax, frac, used, w, norm)
-		if len(z) >= minResiduals {
+		zf := d.residuals(dmax, frac, used, w, norm)
+		if len(zf) > len(z) {
+			z, e.RegionFraction = zf, frac
+		}
+		if len(z) >= EnoughResiduals {
 			break
 		}
 	}
