@@ -58,7 +58,8 @@ type NoiseSettings struct {
 	// uncertainty map (Inputs.EvaluatedUncertainty) takes precedence over
 	// both auto and given.
 	Handling NoiseHandling
-	// Percent is σ at the evaluated maximum, percent, for NoiseGiven.
+	// Percent is σ at the evaluated maximum, percent, for NoiseGiven (0:
+	// declared noise-free, nothing corrected).
 	Percent float64
 	// MapUnit says how the uncertainty map's values are read.
 	MapUnit noise.MapUnit
@@ -191,6 +192,10 @@ func prepareNoise(l *Loaded, s Settings, scale float64) (*noisePrep, error) {
 	case ns.Handling == NoiseGiven:
 		info.Source, info.Model = "given", noiseModelText
 		info.SigmaPercent = result.Ptr(ns.Percent)
+		if ns.Percent == 0 {
+			np.notes = append(np.notes, "the evaluated dose was declared noise-free (--evaluated-noise 0): no noise correction")
+			return np, nil
+		}
 		sigma = d.ModelSigma(ns.Percent, dmax)
 	default: // auto
 		info.Model = noiseModelText

@@ -183,8 +183,9 @@ type Noise struct {
 }
 
 // ParseNoiseHandling reads a noise handling: "auto" (or empty), "off", or
-// σ at the evaluated maximum in percent ("2", "2%", "0.5 %"), from above
-// 0 to 50. It returns "auto", "off" or "given" and the percentage.
+// σ at the evaluated maximum in percent ("2", "2%", "0.5 %"), from 0 (a
+// dose declared noise-free: nothing is corrected) to 50. It returns
+// "auto", "off" or "given" and the percentage.
 func ParseNoiseHandling(s string) (mode string, percent float64, err error) {
 	t := strings.ToLower(strings.TrimSpace(s))
 	switch t {
@@ -194,8 +195,8 @@ func ParseNoiseHandling(s string) (mode string, percent float64, err error) {
 		return "off", 0, nil
 	}
 	v, perr := strconv.ParseFloat(strings.TrimSpace(strings.TrimSuffix(t, "%")), 64)
-	if perr != nil || !(v > 0 && v <= 50) {
-		return "", 0, fmt.Errorf("noise handling %q: want auto, off, or σ at the evaluated maximum in percent (above 0, at most 50), e.g. 2", s)
+	if perr != nil || !(v >= 0 && v <= 50) {
+		return "", 0, fmt.Errorf("noise handling %q: want auto, off, or σ at the evaluated maximum in percent (0 to 50), e.g. 2", s)
 	}
 	return "given", v, nil
 }

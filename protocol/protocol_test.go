@@ -998,7 +998,7 @@ func TestParseEvaluatedNoise(t *testing.T) {
 	}
 	for _, tc := range []struct{ text, want string }{
 		{"evaluated_noise: {handling: lots}", `n.yaml:4: evaluated_noise.handling: noise handling "lots": want auto, off, or σ at the evaluated maximum in percent`},
-		{"evaluated_noise: {handling: 0}", `evaluated_noise.handling: noise handling "0"`},
+		{"evaluated_noise: {handling: -1}", `evaluated_noise.handling: noise handling "-1"`},
 		{"evaluated_noise: {handling: 75}", `evaluated_noise.handling: noise handling "75"`},
 		{"evaluated_noise: {judge: maybe}", `evaluated_noise.judge: judge "maybe": want corrected or raw`},
 		{"evaluated_noise: {handle: auto}", `unknown field "handle"`},
@@ -1008,7 +1008,7 @@ func TestParseEvaluatedNoise(t *testing.T) {
 			t.Errorf("%s: %v, want %q", tc.text, err, tc.want)
 		}
 	}
-	for _, s := range []string{"auto", "", "OFF", "0.5 %", "50"} {
+	for _, s := range []string{"auto", "", "OFF", "0.5 %", "50", "0"} {
 		if _, _, err := ParseNoiseHandling(s); err != nil {
 			t.Errorf("%q refused: %v", s, err)
 		}

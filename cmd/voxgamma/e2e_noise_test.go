@@ -256,6 +256,14 @@ func TestNoiseFreeUnchanged(t *testing.T) {
 	if jsonNum(res.Overall.PassRate) != jsonNum(resOff.Overall.PassRate) {
 		t.Errorf("pass rate %v with the automatic handling, %v without", jsonNum(res.Overall.PassRate), jsonNum(resOff.Overall.PassRate))
 	}
+	// Declared noise-free: given 0 %, nothing corrected.
+	zero := t.TempDir()
+	vgRun(t, noiseArgs(ref, eval, zero, "--evaluated-noise", "0")...)
+	resZero := readResultJSON(t, filepath.Join(zero, "r.json"))
+	if n := resZero.Noise; n == nil || n.Source != "given" || jsonNum(n.SigmaPercent) != 0 || n.Corrected ||
+		jsonNum(resZero.Overall.PassRate) != jsonNum(resOff.Overall.PassRate) {
+		t.Errorf("--evaluated-noise 0: noise %+v, pass rate %v", n, jsonNum(resZero.Overall.PassRate))
+	}
 }
 
 // TestNoiseGivenAndMaps: σ given as a percentage, as an RT Dose of the
@@ -391,7 +399,7 @@ func TestNoiseBadInput(t *testing.T) {
 		wants []string
 	}{
 		{"bad handling", []string{"--evaluated-noise", "lots"}, []string{"--evaluated-noise", "lots"}},
-		{"zero percent", []string{"--evaluated-noise", "0"}, []string{"--evaluated-noise"}},
+		{"negative percent", []string{"--evaluated-noise", "-1"}, []string{"--evaluated-noise"}},
 		{"missing map", []string{"--evaluated-uncertainty", filepath.Join(dir, "none.mha")}, []string{"none.mha"}},
 		{"negative map", []string{"--evaluated-uncertainty", negMap}, []string{"uncertainty map", "-1"}},
 		{"other frame", []string{"--evaluated-uncertainty", otherFrame}, []string{"frame of reference"}},
