@@ -12,7 +12,12 @@ import (
 // rate and mean Γ of the exact truth, of the comparison against the noisy
 // evaluated dose (raw) and against the denoised one (corrected, σ
 // estimated from the dose), for noise of 0 to 3 % at the maximum growing
-// as √D. It is a measurement, run once (-benchtime 1x), for BENCHMARKS.md:
+// as √D. The corrected comparison uses the engine's default interpolation;
+// the raw one the simplex interpolation (reported as rawLS), whose search
+// is many times faster on a noisy dose, except in the planar 3 mm, 1 mm
+// grid case (the issue's table), where the default's raw figures are
+// measured too (raw). It is a measurement, run once (-benchtime 1x), for
+// BENCHMARKS.md:
 //
 //	go test -run '^$' -bench CorrectionAccuracy -benchtime 1x ./noise/
 func BenchmarkCorrectionAccuracy(b *testing.B) {
@@ -33,7 +38,8 @@ func BenchmarkCorrectionAccuracy(b *testing.B) {
 				}
 				for _, sig := range []float64{0, 1, 2, 3} {
 					b.Run(fmt.Sprintf("%s/pen%gmm/grid%gmm/sigma%g%%", kind, pen, h, sig), func(b *testing.B) {
-						var raw, corr gamma.Stats
+						var raw, rawLS, corr gamma.Stats
+						issue := !sph && pen == 3 && h == 1
 						var e Estimate
 						for i := 0; i < b.N; i++ {
 							noisy := eval
@@ -45,7 +51,10 @@ func BenchmarkCorrectionAccuracy(b *testing.B) {
 							if e, err = d.Estimate(); err != nil {
 								b.Fatal(err)
 							}
-							raw = runGamma(b, ref, noisy, c)
+							rawLS = runGammaFast(b, ref, noisy, c)
+							if issue || sig == 0 {
+								raw = runGamma(b, ref, noisy, c)
+							}
 							corr = raw
 							if e.SigmaPercent >= 0.1 {
 								den, _, err := d.Denoise(d.ModelSigma(e.SigmaPercent, e.MaxDose), FilterOptions{Floor: 0.05 * e.MaxDose})
@@ -56,10 +65,14 @@ func BenchmarkCorrectionAccuracy(b *testing.B) {
 							}
 						}
 						b.ReportMetric(tc.pass, "truth%")
-						b.ReportMetric(raw.PassRate, "raw%")
+						if issue || sig == 0 {
+							b.ReportMetric(raw.PassRate, "raw%")
+							b.ReportMetric(raw.Mean, "rawΓ")
+						}
+						b.ReportMetric(rawLS.PassRate, "rawLS%")
+						b.ReportMetric(rawLS.Mean, "rawLSΓ")
 						b.ReportMetric(corr.PassRate, "corrected%")
 						b.ReportMetric(tc.mean, "truthΓ")
-						b.ReportMetric(raw.Mean, "rawΓ")
 						b.ReportMetric(corr.Mean, "correctedΓ")
 						b.ReportMetric(e.SigmaPercent, "σest%")
 					})

@@ -171,9 +171,25 @@ func addNoise(eval *volume.Grid, sigmaPct, dmax float64, seed uint64) (*volume.G
 	return out, sig
 }
 
+// runGamma compares with the engine's default interpolation of the
+// evaluated dose.
 func runGamma(t testing.TB, ref, eval *volume.Grid, c gamma.Criteria) gamma.Stats {
 	t.Helper()
-	r, err := gamma.CompareGrids(context.Background(), ref, eval, c, gamma.Options{})
+	return runGammaWith(t, ref, eval, c, gamma.Options{})
+}
+
+// runGammaFast compares with the piecewise-linear (simplex) interpolation,
+// whose search is fastest on a noisy dose: for the raw comparisons that
+// show how far noise moves the result (the bias is the noise's, whatever
+// the interpolant).
+func runGammaFast(t testing.TB, ref, eval *volume.Grid, c gamma.Criteria) gamma.Stats {
+	t.Helper()
+	return runGammaWith(t, ref, eval, c, gamma.Options{Interpolation: gamma.LinearSimplex})
+}
+
+func runGammaWith(t testing.TB, ref, eval *volume.Grid, c gamma.Criteria, opt gamma.Options) gamma.Stats {
+	t.Helper()
+	r, err := gamma.CompareGrids(context.Background(), ref, eval, c, opt)
 	if err != nil {
 		t.Fatal(err)
 	}
