@@ -14,6 +14,7 @@ import (
 
 	"voxgamma/dicomio"
 	"voxgamma/gamma"
+	"voxgamma/noise"
 	"voxgamma/result"
 	"voxgamma/structure"
 	"voxgamma/volume"
@@ -61,6 +62,9 @@ type Inputs struct {
 	// de-identification learns there what to remove from messages before
 	// any message can name it.
 	Seen func(role, path string, dose *dicomio.DoseInfo, set *structure.Set)
+	// EvaluatedUncertainty is an RT Dose or MetaImage (.mha) of the
+	// evaluated dose's per-voxel 1σ (absolute or relative); empty for none.
+	EvaluatedUncertainty string
 }
 
 func (in Inputs) seen(role, path string, dose *dicomio.DoseInfo, set *structure.Set) {
@@ -101,6 +105,11 @@ type Loaded struct {
 	// wrong way round (dicomio.SwapEvidence); "" when not. Prepare refuses
 	// or warns, as the settings say.
 	DoseTypeMismatch, SwapEvidence string
+
+	// uncertainty is the evaluated dose's uncertainty map (nil for none)
+	// and uncertaintyUnit the unit its file states.
+	uncertainty     *volume.Grid
+	uncertaintyUnit noise.MapUnit
 }
 
 // ErrBadInput marks errors caused by the inputs (a file that cannot be read
@@ -146,6 +155,7 @@ func Load(in Inputs) (*Loaded, error) {
 	}
 	in.seen("structures", in.Structures, nil, nil)
 	in.seen("plan", in.Plan, nil, nil)
+	in.seen("evaluated uncertainty", in.EvaluatedUncertainty, nil, nil)
 	// Evaluated first: the reference points are in its coordinates. A
 	// folder never yields a file given as the other dose, and when both
 	// are folders the words of the files decide which is which.
@@ -225,6 +235,11 @@ func Load(in Inputs) (*Loaded, error) {
 	if err := l.checkPlanParts(); err != nil {
 		return nil, err
 	}
+	if in.EvaluatedUncertainty != "" {
+		if err := l.loadUncertainty(in, in.EvaluatedUncertainty); err != nil {
+			return nil, err
+		}
+	}
 
 	if l.Reference != nil {
 		l.DoseTypeMismatch = dicomio.DoseTypeMismatch(l.ReferenceInfo, l.EvaluatedInfo)
@@ -255,6 +270,40 @@ func filesOnly(paths []string) []string {
 		}
 	}
 	return out
+}
+
+// loadUncertainty reads the evaluated dose's uncertainty map and records it
+// as an input. An RT Dose must share the evaluated dose's frame of
+// reference; a MetaImage carries none and is taken to be in the evaluated
+// dose's coordinates.
+func (l *Loaded) loadUncertainty(in Inputs, path string) error {
+	g, unit, info, err := readUncertaintyMap(path)
+	if err != nil {
+		return err
+	}
+	in.seen("evaluated uncertainty", path, info, nil)
+	allowFrameMismatch := in.AllowFrameMismatch
+	sum, err := fileSHA256(path)
+	if err != nil {
+		return badInput("reading %s: %v", path, err)
+	}
+	ri := result.Input{Role: "evaluated uncertainty", Path: path, SHA256: sum}
+	max, _ := g.Max()
+	ri.Grid = GridInfo(g, float64(max))
+	if info != nil {
+		ri.Modality, ri.SOPInstanceUID, ri.FrameOfReferenceUID = "RTDOSE", info.SOPInstanceUID, info.FrameOfReferenceUID
+		ri.PatientID, ri.PatientName, ri.DoseUnits, ri.DoseType = info.PatientID, info.PatientName, info.DoseUnits, info.DoseType
+		if e := l.EvaluatedInfo.FrameOfReferenceUID; !allowFrameMismatch && info.FrameOfReferenceUID != "" && e != "" && info.FrameOfReferenceUID != e {
+			return badInput("the uncertainty map %s is in frame of reference %s, the evaluated dose in %s", path, info.FrameOfReferenceUID, e)
+		}
+		ri.Description = "per-voxel 1σ of the evaluated dose, " + info.UnitLabel()
+	} else {
+		ri.Modality, ri.Description = "MetaImage", "per-voxel 1σ of the evaluated dose, in the evaluated dose's coordinates"
+	}
+	l.Inputs = append(l.Inputs, ri)
+	l.Paths = append(l.Paths, path)
+	l.uncertainty, l.uncertaintyUnit = g, unit
+	return nil
 }
 
 // sameFile reports whether two paths name one file.

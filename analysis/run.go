@@ -84,6 +84,8 @@ type Settings struct {
 	// as read. Doses whose ratio is close to a whole number are refused
 	// unless scaled (see Prepare).
 	ScaleEvaluated Scale
+	// Noise says how the evaluated dose's statistical noise is handled.
+	Noise NoiseSettings
 }
 
 // SwapWarning begins the warning of doses that look swapped (see
@@ -129,12 +131,16 @@ type Prepared struct {
 	// EvaluatedOnRef is the evaluated dose on the reference grid, NaN
 	// outside the evaluated grid.
 	EvaluatedOnRef *volume.Grid
-	regions        []*roi.Region
-	sources        map[*roi.Region]*structure.ROI
-	kindSource     map[*roi.Region]string
-	sizes          *roi.VoxelSize
-	notes          []string
-	warnings       []string
+	// EvaluatedCorrected is the denoised evaluated dose, nil when no noise
+	// correction is made.
+	EvaluatedCorrected *volume.Grid
+	noise              *noisePrep
+	regions            []*roi.Region
+	sources            map[*roi.Region]*structure.ROI
+	kindSource         map[*roi.Region]string
+	sizes              *roi.VoxelSize
+	notes              []string
+	warnings           []string
 	// scale is the factor the evaluated dose was multiplied by and
 	// scaleSource who asked for it ("" when nobody did).
 	scale       float64
@@ -148,11 +154,12 @@ type Prepared struct {
 // total), naming the likely factor (see Scale).
 func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}, kindSource: map[*roi.Region]string{}}
+	var err error
 	if l.Reference == nil {
 		if err := p.applyScale(s.ScaleEvaluated); err != nil {
 			return nil, err
 		}
-		return p, nil
+		return p, p.prepareNoise(s)
 	}
 	if m := l.DoseTypeMismatch; m != "" {
 		if !s.AllowDoseTypeMismatch {
@@ -167,12 +174,14 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 		}
 		p.warnings = append(p.warnings, msg)
 	}
-	var err error
 	p.EvaluatedOnRef, err = l.Evaluated.ResampleOnto(l.Reference, float32(math.NaN()))
 	if err != nil && err != volume.ErrNoOverlap {
 		return nil, err
 	}
 	if err := p.applyScale(s.ScaleEvaluated); err != nil {
+		return nil, err
+	}
+	if err := p.prepareNoise(s); err != nil {
 		return nil, err
 	}
 	if s.Choices.NoStructures && l.Structures != nil {
@@ -294,12 +303,24 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	}
 	opt := gamma.Options{Workers: s.Workers, Progress: s.Progress, Method: s.Method, Interpolation: s.Interpolation}
 	t0 := time.Now()
-	var gres *gamma.Result
+	compare := func(eval *volume.Grid) (*gamma.Result, error) {
+		if p.Reference != nil {
+			return gamma.CompareGrids(ctx, p.Reference, eval, s.Criteria, opt)
+		}
+		return gamma.ComparePoints(ctx, p.Points, eval, s.Criteria, opt)
+	}
+	// With a noise correction the comparison is made twice: against the
+	// denoised evaluated dose (the result's figures) and against the dose
+	// as given (the raw figures).
+	var gres, graw *gamma.Result
 	var err error
-	if p.Reference != nil {
-		gres, err = gamma.CompareGrids(ctx, p.Reference, p.Evaluated, s.Criteria, opt)
+	if p.EvaluatedCorrected != nil {
+		if graw, err = compare(p.Evaluated); err != nil {
+			return nil, err
+		}
+		gres, err = compare(p.EvaluatedCorrected)
 	} else {
-		gres, err = gamma.ComparePoints(ctx, p.Points, p.Evaluated, s.Criteria, opt)
+		gres, err = compare(p.Evaluated)
 	}
 	if err != nil {
 		return nil, err
@@ -336,6 +357,11 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		res.Notes = append(res.Notes, fmt.Sprintf("%d points found no agreement within the %g mm search distance: reported as Γ = %g and failed", n, c.Search, c.Search/c.DTA))
 	}
 	out := &Outcome{Result: res, GammaResult: gres, Reference: p.Reference, ReferenceInfo: p.ReferenceInfo}
+	if p.noise.info != nil {
+		info := *p.noise.info
+		res.Noise = &info
+	}
+	var rawROIs []result.GammaStats
 
 	if p.Reference != nil {
 		out.Gamma = p.Reference.EmptyLike()
@@ -344,7 +370,7 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		for n, e := range p.EvaluatedOnRef.Data {
 			out.Difference.Data[n] = e - p.Reference.Data[n]
 		}
-		if err := p.regionResults(ctx, s, gres, out); err != nil {
+		if rawROIs, err = p.regionResults(ctx, s, gres, graw, out); err != nil {
 			return nil, err
 		}
 		var note string
@@ -354,8 +380,9 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		}
 	}
 
+	finishNoise(res, graw, rawROIs)
 	if s.Checker != nil {
-		res.Rules, res.Verdict = s.Checker.Evaluate(res)
+		res.Rules, res.Verdict = s.Checker.Evaluate(judgedView(res))
 	} else {
 		res.Verdict = "pass"
 		if gres.Stats.Evaluated == 0 {
@@ -386,23 +413,25 @@ func toGammaStats(st gamma.Stats) result.GammaStats {
 
 // regionResults adds the derived regions and fills one result.ROI per
 // region: Γ statistics over its centre voxels, failing volume and centroid,
-// and the dose-volume metrics of both doses.
-func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Result, out *Outcome) error {
+// and the dose-volume metrics of both doses. With graw (the comparison
+// against the evaluated dose as given, when a noise correction was made)
+// it also returns each ROI's raw Γ statistics, in result order.
+func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *gamma.Result, out *Outcome) ([]result.GammaStats, error) {
 	regions := append([]*roi.Region{}, p.regions...)
 	if t, err := roi.AllTargets(p.regions); err != nil {
-		return err
+		return nil, err
 	} else if t != nil {
 		regions = append(regions, t)
 	}
 	if b, err := roi.BodyOf(p.regions); err != nil {
-		return err
+		return nil, err
 	} else if b != nil {
 		regions = append(regions, b)
 	}
 	for _, pct := range s.IsodosePercents {
 		iso, err := roi.Isodose(p.Reference, pct, gres.Criteria.NormDose, s.Raster)
 		if err != nil {
-			return err
+			return nil, err
 		}
 		regions = append(regions, iso)
 	}
@@ -412,6 +441,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 	}
 	found := map[string]bool{}
 	res := out.Result
+	var raw []result.GammaStats
 	for _, reg := range regions {
 		src := p.sources[reg]
 		r := result.ROI{Name: reg.Name, Number: reg.Number, Kind: reg.Kind.String(), Voxels: len(reg.Centres)}
@@ -438,14 +468,29 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 		}
 		r.FailingVolumeCC, r.WorstCentroidMM = p.failing(reg.Centres, gres)
 		r.Status, r.StatusDetail = regionStatus(reg, src, r.GammaStats)
+		var rawStats result.GammaStats
+		if graw != nil {
+			rawStats = toGammaStats(graw.StatsOver(reg.Centres))
+		}
 
 		if src != nil && subgrid[strings.ToLower(reg.Name)] && len(reg.Centres) > 0 {
 			found[strings.ToLower(reg.Name)] = true
 			res.Choices.SubGridROIs = append(res.Choices.SubGridROIs, reg.Name)
 			res.Choices.SubGridStepMM = s.SubGridStep
-			st, step, err := p.subGrid(ctx, s, src, reg, gres.Criteria)
+			eval := p.Evaluated
+			if p.EvaluatedCorrected != nil {
+				eval = p.EvaluatedCorrected
+			}
+			st, step, err := p.subGrid(ctx, s, src, reg, gres.Criteria, eval)
 			if err != nil {
-				return err
+				return nil, err
+			}
+			if graw != nil {
+				rst, _, err := p.subGrid(ctx, s, src, reg, gres.Criteria, p.Evaluated)
+				if err != nil {
+					return nil, err
+				}
+				rawStats = toGammaStats(rst)
 			}
 			r.GammaStats = toGammaStats(st)
 			r.SubGridMM = &step
@@ -458,11 +503,12 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 		if r.VolumeCC > 0 {
 			dvh, err := p.dvhPair(reg, s, gres.Criteria.NormDose)
 			if err != nil {
-				return err
+				return nil, err
 			}
 			r.DVH = dvh
 		}
 		res.ROIs = append(res.ROIs, r)
+		raw = append(raw, rawStats)
 		out.Regions = append(out.Regions, reg)
 		out.Colors = append(out.Colors, color)
 	}
@@ -471,7 +517,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 			res.Warnings = append(res.Warnings, fmt.Sprintf("sub-grid evaluation asked for ROI %q, which is not a rasterised ROI of the structure set", name))
 		}
 	}
-	return nil
+	return raw, nil
 }
 
 func defaultColor(i int) [3]uint8 {
@@ -787,10 +833,11 @@ func commonCurves(r, e roi.Curve) *result.DVHCurves {
 // each while it is evaluated).
 const MaxSubGridPoints = 50_000_000
 
-// subGrid evaluates ROI src on a finer grid of reference points inside it:
+// subGrid evaluates ROI src on a finer grid of reference points inside it,
+// against the evaluated dose eval:
 // the ROI is rasterised on a grid of the given step over its bounding box,
 // and the reference dose is interpolated at every centre inside.
-func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, reg *roi.Region, c gamma.Criteria) (gamma.Stats, float64, error) {
+func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, reg *roi.Region, c gamma.Criteria, eval *volume.Grid) (gamma.Stats, float64, error) {
 	step := s.SubGridStep
 	if step <= 0 {
 		step = 0.5
@@ -853,7 +900,7 @@ func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, 
 	if len(pts) == 0 {
 		return gamma.Stats{}, 0, fmt.Errorf("%w: ROI %q has no sub-grid point inside the reference grid", ErrBadInput, src.Name)
 	}
-	gr, err := gamma.ComparePoints(ctx, pts, p.Evaluated, c, gamma.Options{Workers: s.Workers, Method: s.Method, Interpolation: s.Interpolation})
+	gr, err := gamma.ComparePoints(ctx, pts, eval, c, gamma.Options{Workers: s.Workers, Method: s.Method, Interpolation: s.Interpolation})
 	if err != nil {
 		return gamma.Stats{}, 0, err
 	}

@@ -151,7 +151,10 @@ type settingsKey struct {
 	ScaleEvaluated     string             `json:"scale_evaluated,omitempty"`
 	// DeidentifyKey is deid.Key.ID: a new site key reruns a case; random
 	// keys ("per-run") do not.
-	DeidentifyKey string `json:"deidentify_key,omitempty"`
+	DeidentifyKey  string  `json:"deidentify_key,omitempty"`
+	NoiseHandling  string  `json:"noise_handling"`
+	NoisePercent   float64 `json:"noise_percent"`
+	NoiseJudgesRaw bool    `json:"noise_judges_raw"`
 }
 
 // SettingsHash returns the hex SHA-256 of the canonical JSON of everything
@@ -169,6 +172,7 @@ func SettingsHash(p *protocol.Protocol, s analysis.Settings, o Outputs, allowFra
 		GammaMap: o.GammaMap, DifferenceMap: o.DifferenceMap, Report: o.Report, ReportPDF: o.ReportPDF, Deidentify: o.Deidentify,
 		AllowFrameMismatch: allowFrameMismatch, NoStructures: s.Choices.NoStructures, AcceptNormDose: s.AcceptNormDose,
 		ScaleEvaluated: s.ScaleEvaluated.Given,
+		NoiseHandling:  s.Noise.Handling.String(), NoisePercent: s.Noise.Percent, NoiseJudgesRaw: s.Noise.JudgeRaw,
 	}
 	if o.Deidentify {
 		k.DeidentifyKey = o.KeyID

@@ -20,6 +20,7 @@ import (
 	"voxgamma/internal/fault"
 	"voxgamma/internal/pathcheck"
 	"voxgamma/metaimage"
+	"voxgamma/noise"
 	"voxgamma/protocol"
 	"voxgamma/report"
 	"voxgamma/result"
@@ -81,6 +82,12 @@ type Overrides struct {
 	// Interpolation names the evaluated dose's interpolation
 	// (gamma.ParseInterpolation); empty means the default.
 	Interpolation string
+	// EvaluatedNoise replaces the protocol's noise handling when not
+	// empty: "auto", "off" or σ at the evaluated maximum in percent.
+	EvaluatedNoise string
+	// UncertaintyUnit says how an uncertainty map's values are read:
+	// "auto" (or empty), "gy", "relative" or "percent".
+	UncertaintyUnit string
 	// Version is recorded in the result.
 	Version string
 }
@@ -267,6 +274,9 @@ func Settings(p *protocol.Protocol, ov Overrides) (analysis.Settings, error) {
 		}
 		s.Choices.Interpolation = s.Interpolation.String()
 	}
+	if s.Noise, err = noiseSettings(p, ov); err != nil {
+		return s, err
+	}
 	return s, nil
 }
 
@@ -283,6 +293,34 @@ func percents(v []float64) string {
 		parts[i] = num(x) + " %"
 	}
 	return strings.Join(parts, ", ")
+}
+
+// noiseSettings resolves the noise handling: the option, else the
+// protocol's, else auto.
+func noiseSettings(p *protocol.Protocol, ov Overrides) (analysis.NoiseSettings, error) {
+	var ns analysis.NoiseSettings
+	handling, what := "auto", ""
+	if p.Noise.Handling != "" {
+		handling, what = p.Noise.Handling, "protocol "+p.Name+": evaluated_noise: "
+	}
+	if ov.EvaluatedNoise != "" {
+		handling, what = ov.EvaluatedNoise, "--evaluated-noise: "
+	}
+	mode, pct, err := protocol.ParseNoiseHandling(handling)
+	if err != nil {
+		return ns, fmt.Errorf("%s%w", what, err)
+	}
+	switch mode {
+	case "off":
+		ns.Handling = analysis.NoiseOff
+	case "given":
+		ns.Handling, ns.Percent = analysis.NoiseGiven, pct
+	}
+	if ns.MapUnit, err = noise.ParseMapUnit(ov.UncertaintyUnit); err != nil {
+		return ns, fmt.Errorf("--evaluated-uncertainty-unit: %w", err)
+	}
+	ns.JudgeRaw = p.NoiseJudgesRaw()
+	return ns, nil
 }
 
 // Outputs are the files one comparison writes; empty names are not written.
@@ -427,7 +465,7 @@ func CompareFor(ctx context.Context, in analysis.Inputs, s analysis.Settings, ou
 	if err != nil {
 		return nil, err
 	}
-	given := append([]string{in.Reference, in.ReferencePoints, in.Evaluated, in.Structures, in.Plan}, in.ReferenceFiles...)
+	given := append([]string{in.Reference, in.ReferencePoints, in.Evaluated, in.Structures, in.Plan, in.EvaluatedUncertainty}, in.ReferenceFiles...)
 	given = append(given, in.EvaluatedFiles...)
 	if err := outs.Check(append(given, l.Paths...), force); err != nil {
 		return nil, err
@@ -672,7 +710,8 @@ func WriteMap(path string, grid *volume.Grid, ids dicomio.Identifiers, opt dicom
 // each input's path becomes its role, its patient name and ID their keyed
 // pseudonyms, its UIDs their remapped ones, and its description loses the
 // series description, dose comment or structure set label; warnings,
-// notes, rules, ROI names and statuses and cluster ROI lists are scrubbed
+// notes, rules, ROI names (also under noise) and statuses and cluster ROI
+// lists are scrubbed
 // of every identifying value; the run's date is left out; and notes say so.
 func DeidentifyResult(r *result.Result, d *deid.Scope) {
 	DeidentifyInputs(r.Inputs, d)
@@ -700,6 +739,11 @@ func DeidentifyResult(r *result.Result, d *deid.Scope) {
 	for i := range r.Clusters {
 		for j := range r.Clusters[i].ROIs {
 			r.Clusters[i].ROIs[j] = d.Scrub(r.Clusters[i].ROIs[j])
+		}
+	}
+	if n := r.Noise; n != nil {
+		for i := range n.ROIs {
+			n.ROIs[i].Name = d.Scrub(n.ROIs[i].Name)
 		}
 	}
 	if p := r.Plan; p != nil {

@@ -20,13 +20,15 @@ const (
 	// (4) and its status (1), the Γ map grid (4), the evaluated dose
 	// resampled onto the reference grid (4), the difference map (4), the
 	// sorted Γ values for the statistics (8, float64), the cluster labels
-	// (4) and a margin of 24 for the ROI masks (about one body-sized ROI
-	// with its centre index, partial-volume index and fractions).
-	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 8 + 4 + 24
+	// (4), a margin of 24 for the ROI masks (about one body-sized ROI
+	// with its centre index, partial-volume index and fractions) and, with
+	// a noise correction, the raw comparison's Γ and status (5).
+	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 8 + 4 + 24 + 5
 	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), the k-d tree
 	// selection mask (1) and a margin of 8 for the k-d tree over the
-	// evaluated nodes near points that need it.
-	BytesPerEvaluatedVoxel = 4 + 1 + 8
+	// evaluated nodes near points that need it; for the noise handling,
+	// the smoothed dose, σ, the denoised dose and its variance (4 each).
+	BytesPerEvaluatedVoxel = 4 + 1 + 8 + 16
 	// FixedBytesPerCase covers decoding buffers, the result document and
 	// the review page's figures.
 	FixedBytesPerCase = 16 << 20
@@ -42,7 +44,7 @@ const (
 // reference grid has nr voxels and whose evaluated grid has ne voxels:
 //
 //	BytesPerReferenceVoxel·nr + BytesPerEvaluatedVoxel·ne + FixedBytesPerCase
-//	= 57·nr + 13·ne + 16 MiB
+//	= 62·nr + 29·ne + 16 MiB
 //
 // It is an admission estimate, deliberately on the high side: measured live
 // heaps of the comparison are about 28 bytes per reference voxel with small

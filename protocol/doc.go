@@ -68,6 +68,14 @@
 //     file's folder) or a postgres:// URL (see package record). A
 //     command's --record option overrides it. It is left out of the
 //     protocol as results show it.
+//   - evaluated_noise: how the evaluated dose's statistical noise (Monte
+//     Carlo variance, which biases Γ toward passing) is handled, with the
+//     fields handling ("auto", the default: estimated from the evaluated
+//     dose and corrected for; "off"; or σ at the evaluated maximum in
+//     percent, e.g. 2) and judge ("corrected", the default: the rules
+//     judge the figures of the comparison against the denoised evaluated
+//     dose; or "raw"). The command line's --evaluated-noise overrides
+//     handling.
 //
 // Every key left out of a file takes the default documented here, never
 // Go's zero value (a key written with no value, or ~, counts as left out);

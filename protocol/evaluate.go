@@ -184,6 +184,17 @@ func globalConditions(r *result.Result) []string {
 	if x := r.Choices.EvaluatedScale; x != nil && *x != 1 {
 		c = append(c, fmt.Sprintf("evaluated dose multiplied by %s (%s)", strconv.FormatFloat(*x, 'g', -1, 64), r.Choices.EvaluatedScaleSource))
 	}
+	if n := r.Noise; n != nil && n.Corrected {
+		sigma := "unknown"
+		if n.SigmaPercent != nil {
+			sigma = strconv.FormatFloat(*n.SigmaPercent, 'g', 3, 64) + " %"
+		}
+		if n.Judged == NoiseJudgeRaw {
+			c = append(c, "Γ against the evaluated dose as given, its noise (σ "+sigma+" at the maximum, "+n.Source+") included (evaluated_noise: judge raw)")
+		} else {
+			c = append(c, "Γ against the evaluated dose corrected for its noise (σ "+sigma+" at the maximum, "+n.Source+"); the raw figures are in the result (evaluated_noise: judge corrected)")
+		}
+	}
 	return c
 }
 

@@ -51,6 +51,9 @@ type Protocol struct {
 	// of the protocol's content as results show it (nor of a batch's
 	// settings hash): where results are kept does not change them.
 	Record string `yaml:"record,omitempty" json:"-"`
+	// Noise says how the evaluated dose's statistical noise is handled
+	// and which figures the rules judge (see [Noise]).
+	Noise Noise `yaml:"evaluated_noise" json:"evaluated_noise"`
 }
 
 // InputChecks say what a comparison does when its input files say that
@@ -154,6 +157,54 @@ type Coverage struct {
 // when it leaves them out.
 func DefaultCoverage() Coverage {
 	return Coverage{OverallPercent: DefaultOverallCoveragePercent, ROIPercent: DefaultROICoveragePercent}
+}
+
+// Values of [Noise].
+const (
+	// DefaultNoiseHandling: estimate the noise from the evaluated dose and
+	// correct for it.
+	DefaultNoiseHandling = "auto"
+	// NoiseJudgeCorrected (the default) and NoiseJudgeRaw: the figures
+	// the rules judge.
+	NoiseJudgeCorrected = "corrected"
+	NoiseJudgeRaw       = "raw"
+)
+
+// Noise is a protocol's handling of the evaluated dose's statistical
+// noise (see [ParseNoiseHandling]).
+type Noise struct {
+	// Handling is "auto" (estimate from the evaluated dose and correct;
+	// the default), "off", or σ at the evaluated maximum in percent (a
+	// number, e.g. "2" or "2%").
+	Handling string `yaml:"handling" json:"handling"`
+	// Judge is "corrected" (the default: the rules judge the figures of
+	// the comparison against the denoised evaluated dose) or "raw".
+	Judge string `yaml:"judge" json:"judge"`
+}
+
+// ParseNoiseHandling reads a noise handling: "auto" (or empty), "off", or
+// σ at the evaluated maximum in percent ("2", "2%", "0.5 %"), from 0 (a
+// dose declared noise-free: nothing is corrected) to 50. It returns
+// "auto", "off" or "given" and the percentage.
+func ParseNoiseHandling(s string) (mode string, percent float64, err error) {
+	t := strings.ToLower(strings.TrimSpace(s))
+	switch t {
+	case "", "auto":
+		return "auto", 0, nil
+	case "off":
+		return "off", 0, nil
+	}
+	v, perr := strconv.ParseFloat(strings.TrimSpace(strings.TrimSuffix(t, "%")), 64)
+	if perr != nil || !(v >= 0 && v <= 50) {
+		return "", 0, fmt.Errorf("noise handling %q: want auto, off, or σ at the evaluated maximum in percent (0 to 50), e.g. 2", s)
+	}
+	return "given", v, nil
+}
+
+// NoiseJudgesRaw reports whether the protocol's rules judge the raw
+// figures rather than the noise-corrected ones.
+func (p *Protocol) NoiseJudgesRaw() bool {
+	return strings.EqualFold(strings.TrimSpace(p.Noise.Judge), NoiseJudgeRaw)
 }
 
 // Criteria are a protocol's gamma criteria, as written in the file.
@@ -536,6 +587,14 @@ func (p *Protocol) check(file string, line func(path ...any) int) []error {
 	if _, err := inputCheck(p.Inputs.DoseTypeMismatch, DefaultDoseTypeMismatch); err != nil {
 		add(err, "inputs", "dose_type_mismatch")
 	}
+	if _, _, err := ParseNoiseHandling(p.Noise.Handling); err != nil {
+		add(err, "evaluated_noise", "handling")
+	}
+	switch strings.ToLower(strings.TrimSpace(p.Noise.Judge)) {
+	case "", NoiseJudgeCorrected, NoiseJudgeRaw:
+	default:
+		add(fmt.Errorf("judge %q: want corrected or raw", p.Noise.Judge), "evaluated_noise", "judge")
+	}
 	if len(p.Rules) == 0 {
 		add(errors.New("no rule: a protocol checks at least one rule"), "rules")
 	}
@@ -568,6 +627,14 @@ func (p *Protocol) normalise() {
 	}
 	if len(p.Isodose) == 0 {
 		p.Isodose = nil
+	}
+	p.Noise.Handling = strings.ToLower(strings.TrimSpace(p.Noise.Handling))
+	if p.Noise.Handling == "" {
+		p.Noise.Handling = DefaultNoiseHandling
+	}
+	p.Noise.Judge = strings.ToLower(strings.TrimSpace(p.Noise.Judge))
+	if p.Noise.Judge == "" {
+		p.Noise.Judge = NoiseJudgeCorrected
 	}
 	for i := range p.KindRules {
 		k := &p.KindRules[i]
@@ -781,7 +848,7 @@ func typeErrors(file string, root *yaml.Node, te *yaml.TypeError) error {
 func knownFields(typ string) string {
 	for _, t := range []reflect.Type{
 		reflect.TypeFor[Protocol](), reflect.TypeFor[Criteria](),
-		reflect.TypeFor[KindRule](), reflect.TypeFor[Rule](), reflect.TypeFor[Coverage](),
+		reflect.TypeFor[KindRule](), reflect.TypeFor[Rule](), reflect.TypeFor[Coverage](), reflect.TypeFor[Noise](),
 	} {
 		if t.String() != typ {
 			continue

@@ -975,3 +975,42 @@ func TestNormDoseFromPrescription(t *testing.T) {
 		t.Errorf("an unknown source: %v", err)
 	}
 }
+
+// evaluated_noise: left out, it reads as handling auto and rules judging
+// the corrected figures (the documented defaults, written out by
+// Resolved); a percentage is a given σ; anything else is refused with the
+// file, the line and the field.
+func TestParseEvaluatedNoise(t *testing.T) {
+	base := "name: n\ncriteria: {criteria: 3%/2mm}\nrules: [{subject: overall, metric: pass_rate, op: \">=\", limit: 95}]\n"
+	p, err := Parse([]byte(base), "n.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r := p.Resolved(); r.Noise.Handling != DefaultNoiseHandling || r.Noise.Judge != NoiseJudgeCorrected || p.NoiseJudgesRaw() {
+		t.Errorf("defaults: %+v", r.Noise)
+	}
+	p, err = Parse([]byte(base+"evaluated_noise: {handling: 2.5%, judge: RAW}\n"), "n.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if mode, pct, err := ParseNoiseHandling(p.Noise.Handling); err != nil || mode != "given" || pct != 2.5 || !p.NoiseJudgesRaw() {
+		t.Errorf("given: %+v → %s %g %v, judges raw %v", p.Noise, mode, pct, err, p.NoiseJudgesRaw())
+	}
+	for _, tc := range []struct{ text, want string }{
+		{"evaluated_noise: {handling: lots}", `n.yaml:4: evaluated_noise.handling: noise handling "lots": want auto, off, or σ at the evaluated maximum in percent`},
+		{"evaluated_noise: {handling: -1}", `evaluated_noise.handling: noise handling "-1"`},
+		{"evaluated_noise: {handling: 75}", `evaluated_noise.handling: noise handling "75"`},
+		{"evaluated_noise: {judge: maybe}", `evaluated_noise.judge: judge "maybe": want corrected or raw`},
+		{"evaluated_noise: {handle: auto}", `unknown field "handle"`},
+	} {
+		_, err := Parse([]byte(base+tc.text+"\n"), "n.yaml")
+		if err == nil || !strings.Contains(err.Error(), tc.want) {
+			t.Errorf("%s: %v, want %q", tc.text, err, tc.want)
+		}
+	}
+	for _, s := range []string{"auto", "", "OFF", "0.5 %", "50", "0"} {
+		if _, _, err := ParseNoiseHandling(s); err != nil {
+			t.Errorf("%q refused: %v", s, err)
+		}
+	}
+}

@@ -4,6 +4,7 @@ import (
 	"encoding/csv"
 	"fmt"
 	"io"
+	"math"
 	"slices"
 	"strconv"
 
@@ -19,6 +20,7 @@ var csvHeader = []string{
 	"coverage_percent", "covered_percent",
 	"ref_mean_gy", "eval_mean_gy", "ref_d95_gy", "eval_d95_gy", "diff_d95_percent",
 	"ref_d2_gy", "eval_d2_gy", "diff_d2_percent",
+	"raw_pass_rate", "raw_gamma_mean", "noise_warning",
 }
 
 // csvStatus is the index of the status column.
@@ -39,6 +41,11 @@ func CSVColumns() []string { return append([]string(nil), csvHeader...) }
 // unless every point passed (result.FormatPercent). The exact values are in
 // the JSON. Text cells (names, kinds, statuses) that a spreadsheet would
 // read as a formula get a leading apostrophe (see safetext.CSVCell).
+// With a noise correction, pass_rate and the Γ columns are the corrected
+// figures and raw_pass_rate and raw_gamma_mean those against the evaluated
+// dose as given (empty without a correction); noise_warning holds, on the
+// overall row and on each ROI whose pass rate the noise moves by more than
+// 1 percentage point, the warning with σ and both pass rates.
 func EncodeCSV(w io.Writer, r *result.Result) error {
 	if r == nil {
 		return fmt.Errorf("report: encoding CSV: no result")
@@ -47,19 +54,40 @@ func EncodeCSV(w io.Writer, r *result.Result) error {
 	rows := make([][]string, 0, len(r.ROIs)+2)
 	rows = append(rows, csvHeader)
 	o := r.Overall
-	rows = append(rows, []string{
+	n := r.Noise
+	corrected := n != nil && n.Corrected
+	// noiseCells returns the raw figures and the warning of one row.
+	noiseCells := func(raw *result.GammaStats, subject, corrText string, corr *float64) []string {
+		if !corrected || raw == nil {
+			return []string{"", "", ""}
+		}
+		warning := ""
+		if n.Warning && (subject == "overall" || shiftPP(corr, raw.PassRate) > noiseWarningPP) {
+			warning = noiseWarningText(n, subject, raw.PassRateText, corrText)
+		}
+		return []string{csvPercent(raw.PassRate), csvNum(raw.GammaMean), safetext.CSVCell(warning)}
+	}
+	var rawOverall *result.GammaStats
+	if n != nil {
+		rawOverall = &n.RawOverall
+	}
+	rows = append(rows, append([]string{
 		"overall", "", "", "", "",
 		strconv.Itoa(o.Evaluated), strconv.Itoa(o.Passed), csvPercent(o.PassRate),
 		csvNum(o.GammaMean), csvNum(o.GammaP95), csvNum(o.GammaMax), "", "",
 		csvPercent(o.CoveragePercent), "",
 		"", "", "", "", "", "", "", "",
-	})
-	for _, roi := range r.ROIs {
+	}, noiseCells(rawOverall, "overall", o.PassRateText, o.PassRate)...))
+	for i, roi := range r.ROIs {
 		var dvh result.DVHPair
 		if roi.DVH != nil {
 			dvh = *roi.DVH
 		}
-		rows = append(rows, []string{
+		var raw *result.GammaStats
+		if n != nil && i < len(n.ROIs) {
+			raw = &n.ROIs[i].GammaStats
+		}
+		rows = append(rows, append([]string{
 			safetext.CSVCell(roi.Name), safetext.CSVCell(roi.Kind), safetext.CSVCell(roi.Source), csvFloat(roi.VolumeCC), strconv.Itoa(roi.Voxels),
 			strconv.Itoa(roi.Evaluated), strconv.Itoa(roi.Passed), csvPercent(roi.PassRate),
 			csvNum(roi.GammaMean), csvNum(roi.GammaP95), csvNum(roi.GammaMax),
@@ -68,7 +96,7 @@ func EncodeCSV(w io.Writer, r *result.Result) error {
 			csvNum(dvh.Reference.MeanGy), csvNum(dvh.Evaluated.MeanGy),
 			csvNum(dvh.Reference.D95Gy), csvNum(dvh.Evaluated.D95Gy), csvNum(dvh.DifferencePercent.D95Gy),
 			csvNum(dvh.Reference.D2Gy), csvNum(dvh.Evaluated.D2Gy), csvNum(dvh.DifferencePercent.D2Gy),
-		})
+		}, noiseCells(raw, roi.Name, roi.PassRateText, roi.PassRate)...))
 	}
 	// Warnings come last, one row each: name "warning", the text in the
 	// status column, every other cell empty. A table read on its own must
@@ -92,6 +120,31 @@ func WriteCSV(path string, r *result.Result) error {
 		return fmt.Errorf("report: CSV: %w", err)
 	}
 	return nil
+}
+
+// noiseWarningPP is the pass-rate change (percentage points) from which a
+// row carries the noise warning (analysis.ShiftWarningPP; report does not
+// import analysis).
+const noiseWarningPP = 1.0
+
+// shiftPP returns |a − b| for two nullable pass rates (0 when either is
+// null).
+func shiftPP(a, b *float64) float64 {
+	if a == nil || b == nil {
+		return 0
+	}
+	return math.Abs(*a - *b)
+}
+
+// noiseWarningText is the noise warning of one subject (overall or an
+// ROI): σ, its source, and the raw and corrected pass rates side by side.
+func noiseWarningText(n *result.Noise, subject, raw, corrected string) string {
+	sigma := "unknown"
+	if n.SigmaPercent != nil {
+		sigma = strconv.FormatFloat(*n.SigmaPercent, 'g', 3, 64) + " %"
+	}
+	return fmt.Sprintf("Monte Carlo noise σ %s at the evaluated maximum (%s) moves pass rates: %s raw %s %%, corrected %s %%; the rules judged the %s figures",
+		sigma, n.Source, subject, raw, corrected, n.Judged)
 }
 
 // csvNum formats a nullable number; nil (and NaN, which a result should

@@ -127,7 +127,7 @@ func TestCSV(t *testing.T) {
 	if got := strings.Join(CSVColumns(), ","); got != strings.Join(rows[0], ",") {
 		t.Errorf("CSVColumns %s differs from the header written", got)
 	}
-	wantHeader := "name,kind,source,volume_cc,voxels,evaluated,passed,pass_rate,gamma_mean,gamma_p95,gamma_max,failing_volume_cc,status,coverage_percent,covered_percent,ref_mean_gy,eval_mean_gy,ref_d95_gy,eval_d95_gy,diff_d95_percent,ref_d2_gy,eval_d2_gy,diff_d2_percent"
+	wantHeader := "name,kind,source,volume_cc,voxels,evaluated,passed,pass_rate,gamma_mean,gamma_p95,gamma_max,failing_volume_cc,status,coverage_percent,covered_percent,ref_mean_gy,eval_mean_gy,ref_d95_gy,eval_d95_gy,diff_d95_percent,ref_d2_gy,eval_d2_gy,diff_d2_percent,raw_pass_rate,raw_gamma_mean,noise_warning"
 	if got := strings.Join(rows[0], ","); got != wantHeader {
 		t.Errorf("header\n got %s\nwant %s", got, wantHeader)
 	}
@@ -172,3 +172,63 @@ func TestCSV(t *testing.T) {
 }
 
 func itoa(n int) string { return csvFloat(float64(n)) }
+
+// With a noise correction the raw pass rates stand beside the corrected
+// ones, and the rows whose pass rate the noise moves by more than 1 point
+// carry the warning with σ and both rates; without one the columns are
+// empty.
+func TestCSVNoise(t *testing.T) {
+	r := synthCase(t, smallCase).Result
+	sigma := 2.5
+	n := &result.Noise{Source: "estimated", SigmaPercent: &sigma, Corrected: true, Judged: "corrected", Warning: true,
+		RawOverall: r.Overall}
+	rawRate := *r.Overall.PassRate - 5
+	n.RawOverall.PassRate, n.RawOverall.PassRateText = &rawRate, result.FormatPercent(rawRate, 2)
+	for _, roi := range r.ROIs {
+		n.ROIs = append(n.ROIs, result.NoiseROI{Name: roi.Name, GammaStats: roi.GammaStats})
+	}
+	r.Noise = n
+	var buf bytes.Buffer
+	if err := EncodeCSV(&buf, r); err != nil {
+		t.Fatal(err)
+	}
+	rows, err := csv.NewReader(&buf).ReadAll()
+	if err != nil {
+		t.Fatal(err)
+	}
+	col := map[string]int{}
+	for i, h := range rows[0] {
+		col[h] = i
+	}
+	overall := rows[1]
+	if overall[col["raw_pass_rate"]] != csvPercent(&rawRate) {
+		t.Errorf("overall raw_pass_rate %q, want %v", overall[col["raw_pass_rate"]], rawRate)
+	}
+	w := overall[col["noise_warning"]]
+	for _, want := range []string{"2.5 %", "raw " + n.RawOverall.PassRateText + " %", "corrected " + r.Overall.PassRateText + " %", "corrected figures"} {
+		if !strings.Contains(w, want) {
+			t.Errorf("overall noise_warning %q lacks %q", w, want)
+		}
+	}
+	// The ROIs' raw rates equal the corrected ones here: no warning on
+	// their rows.
+	for i := range r.ROIs {
+		if rows[i+2][col["noise_warning"]] != "" {
+			t.Errorf("row %q carries a warning without a shift", rows[i+2][0])
+		}
+		if got, want := rows[i+2][col["raw_pass_rate"]], csvPercent(r.ROIs[i].PassRate); got != want {
+			t.Errorf("row %q raw_pass_rate %q, want %q", rows[i+2][0], got, want)
+		}
+	}
+	r.Noise.Corrected, r.Noise.Warning = false, false
+	buf.Reset()
+	if err := EncodeCSV(&buf, r); err != nil {
+		t.Fatal(err)
+	}
+	rows, _ = csv.NewReader(&buf).ReadAll()
+	for _, c := range []string{"raw_pass_rate", "raw_gamma_mean", "noise_warning"} {
+		if rows[1][col[c]] != "" {
+			t.Errorf("without a correction %s = %q", c, rows[1][col[c]])
+		}
+	}
+}

@@ -105,6 +105,19 @@ type roiPanel struct {
 	DVH       figure
 }
 
+// noiseView is the evaluated dose's noise as the page shows it.
+type noiseView struct {
+	Summary, Judged, Method string
+	Rows                    []noiseRow
+}
+
+type noiseRow struct {
+	Subject, Raw, Corrected, Shift string
+	RawMean, CorrectedMean         string
+	// Moved is set when the pass rate moves by more than 1 point.
+	Moved bool
+}
+
 type clusterRow struct {
 	Number                               int
 	VolumeCC, Voxels, Centroid, GammaMax string
@@ -160,6 +173,7 @@ type model struct {
 	Slices             []figure
 	SliceLegend        []swatch
 	Clusters           []clusterRow
+	Noise              *noiseView
 	ClustersMore       int
 	Run                string
 	Script             template.JS
@@ -200,6 +214,7 @@ func buildModel(in Page) (*model, error) {
 		m.Caution = result.Caution
 	}
 	fillHeader(m, r)
+	m.Noise = noiseOf(r)
 	lay := layoutROIs(r, in.Reference, in.ROIs)
 	norm, _, _ := normOf(in, r)
 	for _, iso := range isodoseLevels {
@@ -376,6 +391,61 @@ func checkPage(in Page) error {
 // gotoAttr formats a point for the slice browser's data-goto attribute.
 func gotoAttr(p [3]float64) string {
 	return strconv.FormatFloat(p[0], 'f', 2, 64) + "," + strconv.FormatFloat(p[1], 'f', 2, 64) + "," + strconv.FormatFloat(p[2], 'f', 2, 64)
+}
+
+// noiseOf describes the evaluated dose's noise, nil when the result has
+// none (noise handling off).
+func noiseOf(r *result.Result) *noiseView {
+	n := r.Noise
+	if n == nil {
+		return nil
+	}
+	v := &noiseView{Method: nonBlank(n.Method, "method not stated")}
+	sigma := "unknown"
+	if n.SigmaPercent != nil {
+		sigma = fixed(*n.SigmaPercent, 2) + " %"
+		if n.SigmaUncertaintyPercent != nil {
+			sigma += " ± " + fixed(*n.SigmaUncertaintyPercent, 2) + " %"
+		}
+	}
+	source := map[string]string{"estimated": "estimated from the evaluated dose", "given": "given", "map": "from the uncertainty map"}[n.Source]
+	if source == "" {
+		source = "not estimated"
+	}
+	v.Summary = fmt.Sprintf("1σ noise at the evaluated maximum (%s Gy): %s, %s; model %s.", fixed(n.MaxDoseGy, 2), sigma, source, nonBlank(n.Model, "not stated"))
+	if !n.Corrected {
+		v.Summary += " No correction was made."
+		v.Judged = "No noise correction: the protocol's rules judged the figures against the evaluated dose as given."
+		return v
+	}
+	v.Summary += fmt.Sprintf(" The comparison was made against the denoised evaluated dose as well: overall pass rate raw %s %%, corrected %s %%.", n.RawOverall.PassRateText, r.Overall.PassRateText)
+	if n.Warning {
+		v.Summary += " The noise moves a pass rate by more than 1 percentage point."
+	}
+	v.Judged = "The protocol's rules judged the noise-corrected figures; the tables and figures of this page show them."
+	if n.Judged == "raw" {
+		v.Judged = "The protocol's rules judged the raw figures (against the evaluated dose as given, noise included); the tables and figures of this page show the noise-corrected ones."
+	}
+	row := func(subject string, raw, corr result.GammaStats) noiseRow {
+		nr := noiseRow{Subject: subject, Raw: raw.PassRateText, Corrected: corr.PassRateText, Shift: notAvailable,
+			RawMean: fixedPtr(raw.GammaMean, 2), CorrectedMean: fixedPtr(corr.GammaMean, 2)}
+		if raw.PassRate != nil && corr.PassRate != nil {
+			d := *corr.PassRate - *raw.PassRate
+			nr.Shift = strconv.FormatFloat(d, 'f', 1, 64)
+			if d > 0 {
+				nr.Shift = "+" + nr.Shift
+			}
+			nr.Moved = math.Abs(d) > 1
+		}
+		return nr
+	}
+	v.Rows = append(v.Rows, row("overall", n.RawOverall, r.Overall))
+	for i, roi := range r.ROIs {
+		if i < len(n.ROIs) {
+			v.Rows = append(v.Rows, row(roi.Name, n.ROIs[i].GammaStats, roi.GammaStats))
+		}
+	}
+	return v
 }
 
 // clusterExtent is the size (mm) of the region shown around a failing

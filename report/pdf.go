@@ -149,6 +149,7 @@ func buildPDF(in Page) (*pdfDoc, error) {
 	d.identification(m)
 	d.inputs(m)
 	d.rules(m)
+	d.noise(noiseOf(r))
 	d.roiTable(r, lay)
 	d.clusters(m)
 	if err := d.figures(in, r, lay, overall, gcap); err != nil {
@@ -567,6 +568,32 @@ func (d *pdfDoc) rules(m *model) {
 	}
 	d.table([]string{"outcome", "rule", "level", "applied to", "measured", "limit", "remark"}, []float64{0.1, 0.28, 0.1, 0.13, 0.09, 0.06, 0.24}, "LLLLRRL", rows, 8)
 	d.paragraph("Rules not met first, then the others in the protocol's order.", 7.5, pdfMuted)
+}
+
+// noise writes the evaluated dose's noise: σ, what was done, which
+// figures the rules judged, and the raw and corrected pass rates side by
+// side; nothing when noise handling was off.
+func (d *pdfDoc) noise(v *noiseView) {
+	if v == nil {
+		return
+	}
+	d.ensure(40)
+	d.heading("Evaluated-dose noise", 0)
+	d.paragraph(v.Summary, 9, pdfInk)
+	d.paragraph(v.Judged, 9, pdfInk)
+	if len(v.Rows) > 0 {
+		var rows [][]pdfCell
+		for _, r := range v.Rows {
+			c := pdfInk
+			if r.Moved {
+				c = pdfNotMet
+			}
+			rows = append(rows, []pdfCell{cell(r.Subject), cell(r.Raw), cell(r.Corrected), {Text: r.Shift, Color: c, Bold: r.Moved}, cell(r.RawMean), cell(r.CorrectedMean)})
+		}
+		d.table([]string{"applied to", "raw pass rate (%)", "corrected pass rate (%)", "change (points)", "raw mean Γ", "corrected mean Γ"},
+			[]float64{0.3, 0.14, 0.16, 0.14, 0.12, 0.14}, "LRRRRR", rows, 8)
+	}
+	d.paragraph(v.Method, 7.5, pdfMuted)
 }
 
 func (d *pdfDoc) roiTable(r *result.Result, lay *roiLayout) {

@@ -32,6 +32,11 @@ type Result struct {
 	ROIs []ROI `json:"rois"`
 	// Clusters lists connected failing regions, largest first.
 	Clusters []Cluster `json:"failing_clusters"`
+	// Noise is the evaluated dose's statistical noise and what was done
+	// about it; null when noise handling was off. When Noise.Corrected,
+	// Overall, ROIs and Clusters hold the figures of the corrected
+	// comparison and Noise the raw ones.
+	Noise *Noise `json:"noise"`
 	// Verdict is "pass" when every rule of the protocol was met, "fail"
 	// otherwise.
 	Verdict string `json:"verdict"`
@@ -198,6 +203,78 @@ type DVHCurves struct {
 	// volume receiving at least each bin dose.
 	ReferencePercent []float64 `json:"reference_percent"`
 	EvaluatedPercent []float64 `json:"evaluated_percent"`
+}
+
+// Noise describes the evaluated dose's statistical noise (1σ) and its
+// correction.
+type Noise struct {
+	// Handling is "auto" (estimated from the evaluated dose), "given" (a
+	// value from the user or the protocol) or "map" (a per-voxel map).
+	Handling string `json:"handling"`
+	// Source is where SigmaPercent comes from: "estimated", "given" or
+	// "map"; empty when the automatic handling could not estimate it.
+	Source string `json:"source"`
+	// SigmaPercent is the 1σ noise at the evaluated maximum, in percent
+	// of the evaluated maximum (MaxDoseGy); null when unknown.
+	SigmaPercent *float64 `json:"sigma_percent"`
+	// SigmaUncertaintyPercent is the standard error of an estimated
+	// SigmaPercent (percentage points); null for a given value or a map.
+	SigmaUncertaintyPercent *float64 `json:"sigma_uncertainty_percent"`
+	// EstimatedSigmaPercent and EstimatedUncertaintyPercent are the
+	// evaluated dose's own estimate, whatever the source (a cross-check of
+	// a given value or map); null when it could not be made.
+	EstimatedSigmaPercent       *float64 `json:"estimated_sigma_percent"`
+	EstimatedUncertaintyPercent *float64 `json:"estimated_uncertainty_percent"`
+	// MaxDoseGy is the evaluated maximum the percentages refer to: the
+	// maximum of the lightly smoothed evaluated dose.
+	MaxDoseGy float64 `json:"max_dose_gy"`
+	// Model is the noise model: σ ∝ √D, or the per-voxel map.
+	Model string `json:"model"`
+	// MapUnit is how the map's values were read ("gy", "relative",
+	// "percent"); empty without a map.
+	MapUnit string `json:"map_unit,omitempty"`
+	// Method describes the estimator and the correction, with sources.
+	Method string `json:"method"`
+	// Corrected is true when the comparison was also made against the
+	// denoised evaluated dose.
+	Corrected bool `json:"corrected"`
+	// Judged is the figure the protocol's rules judged: "corrected" or
+	// "raw".
+	Judged string `json:"judged"`
+	// PassRateShiftPP is the overall pass rate corrected − raw, in
+	// percentage points; null without a correction.
+	PassRateShiftPP *float64 `json:"pass_rate_shift_pp"`
+	// Warning is true when the noise moves the overall or an ROI's pass
+	// rate by more than 1 percentage point (every output then warns).
+	Warning bool `json:"warning"`
+	// RawOverall is Γ over every evaluated point against the evaluated
+	// dose as given (equal to Overall without a correction).
+	RawOverall GammaStats `json:"raw_overall"`
+	// ROIs holds the raw Γ statistics of each ROI, in the order of the
+	// result's rois.
+	ROIs []NoiseROI `json:"rois"`
+	// Filter describes the correction; null without one.
+	Filter *NoiseFilter `json:"filter"`
+}
+
+// NoiseROI is one ROI's Γ statistics against the evaluated dose as given.
+type NoiseROI struct {
+	Name string `json:"name"`
+	GammaStats
+}
+
+// NoiseFilter describes what the denoising filter did.
+type NoiseFilter struct {
+	// MeanWindowSamples is the mean window width (samples) chosen along
+	// each axis of the evaluated grid.
+	MeanWindowSamples [3]float64 `json:"mean_window_samples"`
+	// ResidualSigmaRatio is the median ratio of the noise left after
+	// filtering to the noise before, over the voxels of at least a tenth
+	// of the largest σ (model value).
+	ResidualSigmaRatio *float64 `json:"residual_sigma_ratio"`
+	// FloorGy is the dose below which voxels were left as they are (half
+	// the low-dose threshold).
+	FloorGy float64 `json:"floor_gy"`
 }
 
 // Cluster is a connected region (26-neighbour) of failing voxels.

@@ -53,6 +53,7 @@ func (f *caseFlags) register(cmd *cobra.Command, protocolHelp string) {
 	fl.Float64Var(&f.minClusterCC, "min-cluster", 0.01, "smallest failing cluster listed, cm³")
 	fl.BoolVar(&f.exhaustive, "exhaustive", false, "use the exhaustive gamma search (slow; for audits)")
 	registerInterpolation(cmd, &f.interpolation)
+	fl.StringVar(&f.evaluatedNoise, "evaluated-noise", "auto", noiseHelp)
 	fl.BoolVar(&f.allowFrameMismatch, "allow-frame-mismatch", false, "compare doses and structures of different frames of reference (you vouch that their coordinates agree)")
 	fl.BoolVar(&f.gammaMap, "gamma-map", false, "also write each case's Γ map as gamma.dcm (RT Dose)")
 	fl.BoolVar(&f.diffMap, "difference-map", false, "also write each case's dose difference map as difference.dcm (RT Dose)")
@@ -219,8 +220,8 @@ input.
 
 Cases run in parallel within a memory budget (--max-memory; default 70 % of
 the memory available, within the cgroup limit of a scheduler's job): each
-case's need is estimated from its dose grid sizes before loading (57 bytes per
-reference voxel + 13 per evaluated voxel + 16 MiB), and a case waits until
+case's need is estimated from its dose grid sizes before loading (62 bytes per
+reference voxel + 29 per evaluated voxel + 16 MiB), and a case waits until
 its need fits. --jobs bounds the cases at once, --workers the gamma workers of
 each.
 

@@ -33,6 +33,7 @@ type compareFlags struct {
 	maxMemory, siteKey                            string
 	rec                                           recordFlags
 	resultsTo, resultsAET                         string
+	uncertainty, uncertaintyUnit                  string
 }
 
 // comparisonFlags are the options that shape a comparison beyond its
@@ -53,6 +54,7 @@ type comparisonFlags struct {
 	noStructures              bool
 	acceptNormDose            bool
 	scaleEvaluated            string
+	evaluatedNoise            string
 }
 
 // normDoseFlag is --norm-dose: a dose in Gy, or the word prescription (the
@@ -118,6 +120,9 @@ func (f *comparisonFlags) overrides(cmd *cobra.Command) job.Overrides {
 	if changed("isodose") {
 		ov.Isodose = append([]float64{}, f.isodose...)
 	}
+	if changed("evaluated-noise") {
+		ov.EvaluatedNoise = f.evaluatedNoise
+	}
 	return ov
 }
 
@@ -129,6 +134,9 @@ func (f *comparisonFlags) registerVerdictFlags(cmd *cobra.Command) {
 	fl.BoolVar(&f.acceptNormDose, "accept-norm-dose", false, "use --norm-dose (or the protocol's norm_dose_gy) as given even when it lies outside 0.5–1.5 × the reference maximum")
 	fl.StringVar(&f.scaleEvaluated, "scale-evaluated", "", "multiply the evaluated dose by a factor before comparing (a per-fraction dose against a plan total): fractions (the RT Plan's number of fractions), a number such as 30, or 1/N; never done unasked")
 }
+
+// noiseHelp is the --evaluated-noise option's help.
+const noiseHelp = "the evaluated dose's statistical noise, which biases Γ toward passing: auto (estimate it and correct for it), off, or σ at the evaluated maximum in percent, e.g. 2 (default: the protocol's, else auto)"
 
 func (f *compareFlags) register(cmd *cobra.Command) {
 	f.registerVerdictFlags(cmd)
@@ -158,6 +166,9 @@ func (f *compareFlags) register(cmd *cobra.Command) {
 	fl.Float64Var(&f.subgridStep, "subgrid-step", 0.5, "step of the --subgrid reference points, mm")
 	fl.BoolVar(&f.exhaustive, "exhaustive", false, "use the exhaustive search (slow; for audits)")
 	registerInterpolation(cmd, &f.interpolation)
+	fl.StringVar(&f.evaluatedNoise, "evaluated-noise", "auto", noiseHelp)
+	fl.StringVar(&f.uncertainty, "evaluated-uncertainty", "", "the evaluated dose's per-voxel 1σ as a Monte Carlo engine exports it: RT Dose (GY: absolute; RELATIVE: σ/D) or MetaImage (.mha); replaces the estimate")
+	fl.StringVar(&f.uncertaintyUnit, "evaluated-uncertainty-unit", "auto", "how --evaluated-uncertainty's values are read: auto (from the file, else by agreement with the dose's own noise), gy, relative (σ/D) or percent")
 	fl.BoolVar(&f.allowFrameMismatch, "allow-frame-mismatch", false, "compare doses and structures of different frames of reference (you vouch that their coordinates agree)")
 	fl.BoolVar(&f.force, "force", false, "overwrite existing output files")
 	fl.BoolVar(&f.deidentify, "deidentify", false, "de-identify every output and message (DICOM PS3.15 Annex E intent): patient names and IDs become keyed pseudonyms, UIDs are remapped, dates, descriptions and file paths are left out (docs/patient-data.md)")
@@ -287,14 +298,16 @@ func settingsFrom(cmd *cobra.Command, f *compareFlags) (analysis.Settings, error
 	if err != nil {
 		return analysis.Settings{}, fmt.Errorf("--protocol: %w", err)
 	}
-	return job.Settings(p, f.overrides(cmd))
+	ov := f.overrides(cmd)
+	ov.UncertaintyUnit = f.uncertaintyUnit
+	return job.Settings(p, ov)
 }
 
 // inputs are the input files given, for analysis: one path per dose, or
 // several files to sum.
 func (f *compareFlags) inputs() analysis.Inputs {
 	in := analysis.Inputs{ReferencePoints: f.referencePoints, Structures: f.structures, Plan: f.plan,
-		AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures}
+		AllowFrameMismatch: f.allowFrameMismatch, NoStructures: f.noStructures, EvaluatedUncertainty: f.uncertainty}
 	if len(f.reference) == 1 {
 		in.Reference = f.reference[0]
 	} else {
@@ -311,7 +324,7 @@ func (f *compareFlags) inputs() analysis.Inputs {
 // givenPaths lists every input path given, which no output may replace.
 func (f *compareFlags) givenPaths() []string {
 	p := append(append([]string{}, f.reference...), f.evaluated...)
-	return append(p, f.referencePoints, f.structures, f.plan)
+	return append(p, f.referencePoints, f.structures, f.plan, f.uncertainty)
 }
 
 func (f *compareFlags) outputs() job.Outputs {
@@ -419,9 +432,17 @@ func printSummary(g *globals, r *result.Result) {
 	fmt.Fprintf(w, "overall: %s %% of %d points pass (Γ mean %s, P95 %s, max %s); %s %% of the points above the threshold compared\n",
 		r.Overall.PassRateText, r.Overall.Evaluated, num(r.Overall.GammaMean), num(r.Overall.GammaP95), num(r.Overall.GammaMax),
 		percentText(r.Overall.CoveragePercent))
+	corrected := r.Noise != nil && r.Noise.Corrected
+	if n := r.Noise; n != nil {
+		fmt.Fprintf(w, "evaluated-dose noise: %s\n", noiseLine(n, r))
+	}
 	if len(r.ROIs) > 0 {
-		fmt.Fprintf(w, "%-24s %-6s %10s %9s %8s %7s %7s %8s  %s\n", "ROI", "kind", "volume cc", "evaluated", "pass %", "Γ mean", "ΔD95 %", "covered", "status")
-		for _, x := range r.ROIs {
+		raw := ""
+		if corrected {
+			raw = fmt.Sprintf(" %8s", "raw %")
+		}
+		fmt.Fprintf(w, "%-24s %-6s %10s %9s %8s%s %7s %7s %8s  %s\n", "ROI", "kind", "volume cc", "evaluated", "pass %", raw, "Γ mean", "ΔD95 %", "covered", "status")
+		for i, x := range r.ROIs {
 			d95 := "-"
 			if x.DVH != nil && x.DVH.DifferencePercent.D95Gy != nil {
 				d95 = fmt.Sprintf("%+.2f", *x.DVH.DifferencePercent.D95Gy)
@@ -430,7 +451,11 @@ func printSummary(g *globals, r *result.Result) {
 			if x.StatusDetail != "" {
 				status += " (" + x.StatusDetail + ")"
 			}
-			fmt.Fprintf(w, "%-24s %-6s %10.3f %9d %8s %7s %7s %8s  %s\n", truncate(x.Name, 24), x.Kind, x.VolumeCC, x.Evaluated, x.PassRateText, num(x.GammaMean), d95,
+			raw := ""
+			if corrected && i < len(r.Noise.ROIs) {
+				raw = fmt.Sprintf(" %8s", r.Noise.ROIs[i].PassRateText)
+			}
+			fmt.Fprintf(w, "%-24s %-6s %10.3f %9d %8s%s %7s %7s %8s  %s\n", truncate(x.Name, 24), x.Kind, x.VolumeCC, x.Evaluated, x.PassRateText, raw, num(x.GammaMean), d95,
 				percentText(x.CoveredPercent), status)
 		}
 	}
@@ -481,6 +506,30 @@ func percentText(p *float64) string {
 		return "n/a"
 	}
 	return result.FormatPercent(*p, 2)
+}
+
+// noiseLine says in one line what is known of the evaluated dose's noise
+// and what was done: σ, its source, and the raw and corrected overall
+// pass rates side by side.
+func noiseLine(n *result.Noise, r *result.Result) string {
+	sigma := "unknown"
+	if n.SigmaPercent != nil {
+		sigma = fmt.Sprintf("σ %.3g", *n.SigmaPercent)
+		if n.SigmaUncertaintyPercent != nil {
+			sigma += fmt.Sprintf(" ± %.2g", *n.SigmaUncertaintyPercent)
+		}
+		sigma += " % at the maximum"
+	}
+	src := n.Source
+	if src == "" {
+		src = "not estimated"
+	}
+	s := fmt.Sprintf("%s (%s)", sigma, src)
+	if !n.Corrected {
+		return s + ", no correction"
+	}
+	return s + fmt.Sprintf("; overall pass rate raw %s %% → corrected %s %%; the rules judged the %s figures",
+		n.RawOverall.PassRateText, r.Overall.PassRateText, n.Judged)
 }
 
 func num(p *float64) string {

@@ -23,7 +23,10 @@ import (
 type sweepRow struct {
 	Criteria result.Criteria   `json:"criteria"`
 	Overall  result.GammaStats `json:"overall"`
-	ROIs     []sweepROI        `json:"rois"`
+	// RawPassRate is the overall pass rate against the evaluated dose as
+	// given when the pass rates are noise-corrected (absent otherwise).
+	RawPassRate *float64   `json:"raw_pass_rate,omitempty"`
+	ROIs        []sweepROI `json:"rois"`
 }
 
 type sweepROI struct {
@@ -42,7 +45,8 @@ type sweepDoc struct {
 	Caution       string         `json:"caution"`
 	Inputs        []result.Input `json:"inputs"`
 	Rows          []sweepRow     `json:"rows"`
-	// Notes say how the document was de-identified (--deidentify).
+	// Notes say how the document was de-identified (--deidentify) and
+	// what was done about the evaluated dose's noise.
 	Notes []string `json:"notes,omitempty"`
 }
 
@@ -140,6 +144,7 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 		doc.Notes = []string{job.DeidentifiedNote, d.Key().Note()}
 		name = d.Scrub
 	}
+	noiseNote, noiseWarned := "", false
 	for _, n := range normList {
 		for _, d := range doses {
 			for _, dta := range dtas {
@@ -157,11 +162,26 @@ func runSweep(ctx context.Context, cmd *cobra.Command, g *globals, f *compareFla
 					return err
 				}
 				row := sweepRow{Criteria: out.Result.Criteria, Overall: out.Result.Overall}
+				if nz := out.Result.Noise; nz != nil && nz.Corrected {
+					row.RawPassRate = nz.RawOverall.PassRate
+					if noiseNote == "" {
+						noiseNote = "evaluated-dose noise: " + noiseLine(nz, out.Result) + " (first criteria set); every pass rate of the sweep is noise-corrected, raw_pass_rate holds the raw overall one"
+					}
+					if nz.Warning {
+						noiseWarned = true
+					}
+				}
 				for _, x := range out.Result.ROIs {
 					row.ROIs = append(row.ROIs, sweepROI{Name: name(x.Name), Kind: x.Kind, Evaluated: x.Evaluated, PassRate: x.PassRate, PassRateText: x.PassRateText, GammaMean: x.GammaMean})
 				}
 				doc.Rows = append(doc.Rows, row)
 			}
+		}
+	}
+	if noiseNote != "" {
+		doc.Notes = append(doc.Notes, noiseNote)
+		if noiseWarned {
+			fmt.Fprintf(g.stderr, "warning: Monte Carlo noise moves a pass rate by more than 1 percentage point: %s\n", noiseNote)
 		}
 	}
 	if !g.quiet {

@@ -1,0 +1,394 @@
+package noise
+
+import (
+	"fmt"
+	"math"
+
+	"voxgamma/volume"
+)
+
+// FilterOptions tune Denoise. The zero value takes the defaults.
+type FilterOptions struct {
+	// Threshold is the window rule's limit: a larger window is taken only
+	// while its estimate differs from the raw value's and from the
+	// previous window's by at most Threshold standard deviations of the
+	// difference. 0 means DefaultThreshold.
+	Threshold float64
+	// ChiZ is the χ² test's limit in standard deviations of the χ²
+	// distribution of the window's residuals; 0 means DefaultChiZ,
+	// negative turns the test off.
+	ChiZ float64
+	// Range is the half-width of the range weights in units of the
+	// voxel's σ: a neighbour whose lightly smoothed dose differs by Δ from
+	// the voxel's weighs (1 − (Δ/(Range·σ))²)² in the fit, nothing beyond
+	// Range·σ (Tukey's biweight). 0 means DefaultRange; negative turns
+	// range weights off.
+	Range float64
+	// MaxHalfWidth bounds the window along each axis to 2·MaxHalfWidth+1
+	// samples. 0 means DefaultMaxHalfWidth.
+	MaxHalfWidth int
+	// MaxHalfWidthMM bounds the window's half-width in mm as well (never
+	// below two samples); 0 means DefaultMaxHalfWidthMM, negative no bound
+	// beyond MaxHalfWidth.
+	MaxHalfWidthMM float64
+	// Floor is a dose (Gy) below which voxels (by their lightly smoothed
+	// dose) are left as they are; 0 filters every voxel.
+	Floor float64
+	// NoDetail filters the dose itself even on a fine grid (see
+	// DetailMaxSpacingMM).
+	NoDetail bool
+	// Workers is the number of goroutines; 0 means GOMAXPROCS.
+	Workers int
+}
+
+// Defaults of FilterOptions, chosen on the fields with exact truth of the
+// package's tests (BENCHMARKS.md gives the figures).
+const (
+	DefaultThreshold      = 3.5
+	DefaultChiZ           = 5.0
+	DefaultRange          = 4.0
+	DefaultMaxHalfWidth   = 6
+	DefaultMaxHalfWidthMM = 18.0
+	// DetailMaxSpacingMM is the coarsest spacing (every axis) on which the
+	// filter works on the dose's detail: the dose minus its binomial
+	// smoothing, which there follows a 3–5 mm penumbra within a fraction
+	// of a percent, so that the quadratic fits no longer round the
+	// penumbra's shoulders. On coarser grids the binomial smoothing itself
+	// rounds them, and the dose is filtered directly.
+	DetailMaxSpacingMM = 1.5
+)
+
+// fineGrid reports whether every axis of g with more than one sample is
+// spaced at most DetailMaxSpacingMM (mean spacing).
+func fineGrid(g *volume.Grid) bool {
+	for a := 0; a < 3; a++ {
+		if h, _ := g.Spacing(a); h > DetailMaxSpacingMM {
+			return false
+		}
+	}
+	return true
+}
+
+// FilterStats describe what Denoise did.
+type FilterStats struct {
+	// MeanWidth is the mean window width (samples) chosen along each axis,
+	// over the voxels with a positive σ (1 along an axis not filtered).
+	MeanWidth [3]float64
+	// Detail is true when the filter worked on the dose's detail (see
+	// DetailMaxSpacingMM).
+	Detail bool
+	// ResidualSigmaRatio is the median, over the voxels filtered whose σ
+	// is at least a tenth of the largest, of the model standard deviation
+	// of the filtered value over σ (1: not smoothed).
+	ResidualSigmaRatio float64
+}
+
+func (o *FilterOptions) fill() error {
+	if o.Threshold == 0 {
+		o.Threshold = DefaultThreshold
+	}
+	if o.ChiZ == 0 {
+		o.ChiZ = DefaultChiZ
+	}
+	if o.Range == 0 {
+		o.Range = DefaultRange
+	}
+	if o.MaxHalfWidth == 0 {
+		o.MaxHalfWidth = DefaultMaxHalfWidth
+	}
+	if o.MaxHalfWidthMM == 0 {
+		o.MaxHalfWidthMM = DefaultMaxHalfWidthMM
+	}
+	if !(o.Threshold > 0) || math.IsInf(o.Threshold, 0) || math.IsNaN(o.ChiZ) || math.IsNaN(o.Range) ||
+		o.MaxHalfWidth < 2 || o.MaxHalfWidth > maxHalfWidth || math.IsNaN(o.MaxHalfWidthMM) {
+		return fmt.Errorf("noise: filter options %+v: want a positive threshold and a half-width from 2 to %d", *o, maxHalfWidth)
+	}
+	return nil
+}
+
+// maxHalfWidth bounds FilterOptions.MaxHalfWidth.
+const maxHalfWidth = 32
+
+// Denoise returns the dose smoothed by weighted local quadratic
+// (Savitzky–Golay) least-squares fits along each axis in turn, whose
+// window is chosen per voxel from the noise sigma (1σ per voxel, Gy, in the
+// grid's order; see the package documentation). The dose and sigma are not
+// modified.
+func (d *Dose) Denoise(sigma []float32, opt FilterOptions) (*volume.Grid, FilterStats, error) {
+	var st FilterStats
+	g := d.Grid
+	if len(sigma) != len(g.Data) {
+		return nil, st, fmt.Errorf("noise: %d σ values for a grid of %d voxels", len(sigma), len(g.Data))
+	}
+	if err := opt.fill(); err != nil {
+		return nil, st, err
+	}
+	smax := float32(0)
+	for n, s := range sigma {
+		if !(s >= 0) || math.IsInf(float64(s), 0) {
+			return nil, st, fmt.Errorf("noise: σ of voxel %d is %g: want a finite value ≥ 0", n, s)
+		}
+		smax = max(smax, s)
+	}
+	dims := g.Dims()
+	out := g.Clone()
+	st.Detail = !opt.NoDetail && fineGrid(g)
+	if st.Detail {
+		for n := range out.Data {
+			out.Data[n] -= d.smooth[n]
+		}
+	}
+	v := make([]float32, len(sigma)) // variance of out
+	counted := 0
+	for n, s := range sigma {
+		v[n] = s * s
+		if s > 0 {
+			counted++
+		}
+	}
+	floor := opt.Floor
+	counted = 0
+	for n, s := range sigma {
+		if s > 0 && float64(d.smooth[n]) >= floor {
+			counted++
+		}
+	}
+	for a := 0; a < 3; a++ {
+		st.MeanWidth[a] = 1
+		if dims[a] < 5 {
+			continue
+		}
+		off := g.Offsets(a)
+		h, _ := g.Spacing(a)
+		hw := opt.MaxHalfWidth
+		if opt.MaxHalfWidthMM > 0 && h > 0 {
+			hw = min(hw, max(2, int(math.Floor(opt.MaxHalfWidthMM/h+1e-9))))
+		}
+		scales := halfWidths(hw)
+		ls := linesAlong(dims, a)
+		widths := make([]int64, ls.count)
+		parallelLines(ls, opt.Workers, 5*ls.n, func(l int, buf []float64) {
+			ln := line{y: buf[:ls.n], v: buf[ls.n : 2*ls.n], t: buf[2*ls.n : 3*ls.n], guide: buf[3*ls.n : 4*ls.n], scale: buf[4*ls.n : 5*ls.n],
+				threshold2: opt.Threshold * opt.Threshold, chiZ: opt.ChiZ, maxHalf: hw, scales: scales}
+			s := ls.start(l)
+			for i := 0; i < ls.n; i++ {
+				n := s + i*ls.stride
+				ln.y[i] = float64(out.Data[n])
+				ln.v[i] = float64(v[n])
+				ln.t[i] = off[i] / h
+				ln.guide[i] = float64(d.smooth[n])
+				ln.scale[i] = 0
+				if opt.Range > 0 && sigma[n] > 0 {
+					r := opt.Range * float64(sigma[n])
+					ln.scale[i] = 1 / (r * r)
+				}
+			}
+			var wsum int64
+			for i := 0; i < ls.n; i++ {
+				if ln.v[i] == 0 || ln.guide[i] < floor {
+					continue
+				}
+				e, ev, w := ln.at(i)
+				n := s + i*ls.stride
+				out.Data[n] = float32(e)
+				v[n] = float32(ev)
+				wsum += int64(w)
+			}
+			widths[l] = wsum
+		})
+		if counted > 0 {
+			var total int64
+			for _, w := range widths {
+				total += w
+			}
+			st.MeanWidth[a] = float64(total) / float64(counted)
+		}
+	}
+	if st.Detail {
+		for n := range out.Data {
+			out.Data[n] += d.smooth[n]
+		}
+	}
+	ratios := make([]float64, 0, counted)
+	for n, s := range sigma {
+		if s >= smax/10 && s > 0 && float64(d.smooth[n]) >= floor {
+			ratios = append(ratios, math.Sqrt(float64(v[n]))/float64(s))
+		}
+	}
+	st.ResidualSigmaRatio = median(ratios)
+	return out, st, nil
+}
+
+// line is one line of samples along an axis, with what the fit at each
+// sample needs.
+type line struct {
+	y, v, t []float64 // values, variances, positions (units of the mean spacing)
+	guide   []float64 // lightly smoothed raw dose, for the range weights
+	scale   []float64 // 1/(Range·σ)² per sample; 0: no range weights
+	// The window rule's parameters and the half-widths at which it is
+	// applied.
+	threshold2, chiZ float64
+	maxHalf          int
+	scales           []int
+}
+
+// halfWidths returns the half-widths at which windows are tested: a
+// roughly geometric set (as the scale sets of the ICI literature) up to
+// and including max.
+func halfWidths(max int) []int {
+	var out []int
+	for _, h := range []int{2, 3, 4, 6, 8, 11, 16, 22, 32} {
+		if h < max {
+			out = append(out, h)
+		}
+	}
+	return append(out, max)
+}
+
+// moments accumulates the weighted moments of a window about its centre:
+// Σωtᵏ (k ≤ 4), Σωtᵏ(y−y₀) (k ≤ 2), Σω(y−y₀)², Σω²tᵏv (k ≤ 4), Σω², Σωv.
+type moments struct {
+	m        [5]float64
+	my       [3]float64
+	mv       [5]float64
+	myy      float64
+	mw2, mwv float64
+}
+
+// add adds a sample at offset d from the centre with weight w, value
+// deviation dy and variance v.
+func (s *moments) add(d, w, dy, v float64) {
+	d2 := d * d
+	w1, w2, w3, w4 := w*d, w*d2, w*d2*d, w*d2*d2
+	s.m[0] += w
+	s.m[1] += w1
+	s.m[2] += w2
+	s.m[3] += w3
+	s.m[4] += w4
+	wv := w * v
+	s.mv[0] += w * wv
+	s.mv[1] += w1 * wv
+	s.mv[2] += w2 * wv
+	s.mv[3] += w3 * wv
+	s.mv[4] += w4 * wv
+	s.my[0] += w * dy
+	s.my[1] += w1 * dy
+	s.my[2] += w2 * dy
+	s.myy += w * dy * dy
+	s.mw2 += w * w
+	s.mwv += wv
+}
+
+// weight returns the range weight of sample j seen from a sample with
+// guide value g0 and scale sc (0: none).
+func (ln *line) weight(j int, g0, sc float64) float64 {
+	if sc == 0 {
+		return 1
+	}
+	d := ln.guide[j] - g0
+	u := 1 - d*d*sc
+	if u <= 0 {
+		return 0
+	}
+	return u * u
+}
+
+// at returns the filtered value at sample i, its variance and the number
+// of samples of the window chosen: the largest window, grown by one sample
+// on each side at a time up to maxHalf (clipped at the ends of the line),
+// whose weighted quadratic least-squares estimate differs from the raw
+// value and from the previous window's estimate by at most threshold
+// standard deviations of each difference (the pairwise comparisons of
+// Lepski's rule, restricted to these two) and whose residuals are
+// compatible with the noise (χ² test at chiZ standard deviations).
+func (ln *line) at(i int) (est, variance float64, width int) {
+	y, v, t := ln.y, ln.v, ln.t
+	n := len(y)
+	y0, v0 := y[i], v[i]
+	est, variance, width = y0, v0, 1
+	g0, sc := ln.guide[i], ln.scale[i]
+	var s moments
+	s.add(0, 1, 0, v0)
+	// The previous window: estimate (minus y0), variance, weight
+	// coefficients and its v-moments, for the covariance.
+	var pe, pev float64
+	var pg [3]float64
+	var pmv [5]float64
+	have := false
+	count := 1
+	next := 0 // index in scales of the next half-width tested
+	for h := 1; h <= ln.maxHalf; h++ {
+		grew := false
+		if j := i - h; j >= 0 {
+			if w := ln.weight(j, g0, sc); w > 0 {
+				s.add(t[j]-t[i], w, y[j]-y0, v[j])
+			}
+			count++
+			grew = true
+		}
+		if j := i + h; j < n {
+			if w := ln.weight(j, g0, sc); w > 0 {
+				s.add(t[j]-t[i], w, y[j]-y0, v[j])
+			}
+			count++
+			grew = true
+		}
+		if !grew {
+			break
+		}
+		if h < ln.scales[next] && h < ln.maxHalf {
+			continue
+		}
+		next++
+		if count < 5 {
+			continue
+		}
+		m := &s.m
+		// The inverse of the 3×3 normal matrix from its cofactors.
+		c00 := m[2]*m[4] - m[3]*m[3]
+		c01 := m[2]*m[3] - m[1]*m[4]
+		c02 := m[1]*m[3] - m[2]*m[2]
+		det := m[0]*c00 + m[1]*c01 + m[2]*c02
+		if !(det > 1e-9*m[0]*m[2]*m[4]) {
+			continue
+		}
+		inv := 1 / det
+		my := &s.my
+		b0 := (c00*my[0] + c01*my[1] + c02*my[2]) * inv
+		g := [3]float64{c00 * inv, c01 * inv, c02 * inv}
+		ev := quadVar(g, g, &s.mv)
+		// Against the raw value: Var(e − y0) = Var e + v0 − 2 g₀ v0.
+		if vd := ev + v0 - 2*g[0]*v0; b0*b0 > ln.threshold2*vd {
+			break
+		}
+		if have {
+			d := b0 - pe
+			if vd := ev + pev - 2*quadVar(pg, g, &pmv); d*d > ln.threshold2*vd {
+				break
+			}
+		}
+		if ln.chiZ > 0 {
+			c11 := m[0]*m[4] - m[2]*m[2]
+			c12 := m[1]*m[2] - m[0]*m[3]
+			c22 := m[0]*m[2] - m[1]*m[1]
+			b1 := (c01*my[0] + c11*my[1] + c12*my[2]) * inv
+			b2 := (c02*my[0] + c12*my[1] + c22*my[2]) * inv
+			// E[Σω(y−fit)²] ≈ v̄·(Σω − 3Σω²/Σω), v̄ = Σωv/Σω.
+			rss := s.myy - (b0*my[0] + b1*my[1] + b2*my[2])
+			dof := m[0] - 3*s.mw2/m[0]
+			if dof > 0.5 && rss*m[0] > s.mwv*(dof+ln.chiZ*math.Sqrt(2*dof)) {
+				break
+			}
+		}
+		est, variance, width = y0+b0, ev, count
+		pe, pev, pg, pmv, have = b0, ev, g, s.mv, true
+	}
+	return
+}
+
+// quadVar returns Σ (a₀+a₁t+a₂t²)(b₀+b₁t+b₂t²)·ω²v over a window whose
+// weighted v-moments Σω²tᵏv (k ≤ 4) are mv.
+func quadVar(a, b [3]float64, mv *[5]float64) float64 {
+	return a[0]*b[0]*mv[0] + (a[0]*b[1]+a[1]*b[0])*mv[1] + (a[0]*b[2]+a[1]*b[1]+a[2]*b[0])*mv[2] +
+		(a[1]*b[2]+a[2]*b[1])*mv[3] + a[2]*b[2]*mv[4]
+}
