@@ -76,8 +76,9 @@ const (
 		"(tensor product of three-point second differences: Gasser, Sroka and Jennen-Steinmetz, Biometrika 73 (1986) 625; " +
 		"Immerkær, CVIU 64 (1996) 300), scaled by 1.4826 (the MAD; Donoho and Johnstone, Biometrika 81 (1994) 425), " +
 		"over the flat voxels of the high-dose region, under σ(D) = σ_max·√(D/D_max)"
-	noiseFilterText = "locally adaptive Savitzky–Golay filter: weighted local quadratic least-squares fits along each axis " +
-		"(Savitzky and Golay, Anal Chem 36 (1964) 1627), windows of 5 to 13 samples up to 10 mm chosen per voxel from σ " +
+	noiseFilterText = "locally adaptive Savitzky–Golay filter: weighted local least-squares fits along each axis " +
+		"(Savitzky and Golay, Anal Chem 36 (1964) 1627), quadratic over 5 and 7 samples and quartic over 9 to 17 " +
+		"(quadratic over 5 to 13 on the dose's detail on grids of 1.5 mm or finer), at most 24 mm each side, chosen per voxel from σ " +
 		"(Lepski's rule and a χ² test) with range weights that keep steep edges (El Naqa et al., Phys Med Biol 50 (2005) 909; " +
 		"Kawrakow, Phys Med Biol 47 (2002) 3087)"
 )
