@@ -294,8 +294,32 @@ type moments struct {
 }
 
 // add adds a sample at offset d from the centre with weight w, value
-// deviation dy and variance v.
+// deviation dy and variance v, for fits up to a quadratic: the moments a
+// quartic needs beyond are left out.
 func (s *moments) add(d, w, dy, v float64) {
+	d2 := d * d
+	w1, w2, w3, w4 := w*d, w*d2, w*d2*d, w*d2*d2
+	s.m[0] += w
+	s.m[1] += w1
+	s.m[2] += w2
+	s.m[3] += w3
+	s.m[4] += w4
+	wv := w * v
+	s.mv[0] += w * wv
+	s.mv[1] += w1 * wv
+	s.mv[2] += w2 * wv
+	s.mv[3] += w3 * wv
+	s.mv[4] += w4 * wv
+	s.my[0] += w * dy
+	s.my[1] += w1 * dy
+	s.my[2] += w2 * dy
+	s.myy += w * dy * dy
+	s.mw2 += w * w
+	s.mwv += wv
+}
+
+// addQuartic is add with the moments of fits up to a quartic.
+func (s *moments) addQuartic(d, w, dy, v float64) {
 	var p [2*maxOrder + 1]float64
 	p[0] = w
 	for k := 1; k < len(p); k++ {
@@ -328,6 +352,9 @@ type fit struct {
 // normal matrix M_kl = Σωt^(k+l) is factored by Cholesky after scaling t
 // by span, which keeps it well conditioned.
 func (f *fit) solve(s *moments, q int, span float64) bool {
+	if q == 3 {
+		return f.solveQuadratic(s)
+	}
 	f.q = q
 	var sc [maxOrder + 1]float64
 	sc[0] = 1
@@ -379,11 +406,41 @@ func (f *fit) solve(s *moments, q int, span float64) bool {
 	return true
 }
 
+// solveQuadratic is solve for a quadratic, by the cofactors of the 3×3
+// normal matrix.
+func (f *fit) solveQuadratic(s *moments) bool {
+	m, my := &s.m, &s.my
+	c00 := m[2]*m[4] - m[3]*m[3]
+	c01 := m[2]*m[3] - m[1]*m[4]
+	c02 := m[1]*m[3] - m[2]*m[2]
+	det := m[0]*c00 + m[1]*c01 + m[2]*c02
+	if !(det > 1e-9*m[0]*m[2]*m[4]) {
+		return false
+	}
+	inv := 1 / det
+	c11 := m[0]*m[4] - m[2]*m[2]
+	c12 := m[1]*m[2] - m[0]*m[3]
+	c22 := m[0]*m[2] - m[1]*m[1]
+	f.q = 3
+	f.g = [maxOrder + 1]float64{c00 * inv, c01 * inv, c02 * inv}
+	f.b = [maxOrder + 1]float64{
+		(c00*my[0] + c01*my[1] + c02*my[2]) * inv,
+		(c01*my[0] + c11*my[1] + c12*my[2]) * inv,
+		(c02*my[0] + c12*my[1] + c22*my[2]) * inv,
+	}
+	return true
+}
+
 // covariance returns Σ a(t)·b(t)·ω²v over a window whose weighted
 // v-moments Σω²tᵏv are mv, with a(t) = Σ a.g_k tᵏ and b(t) likewise: the
 // covariance of the two fits' estimates at the centre when a's window is
 // the one of mv and lies within b's.
 func covariance(a, b *fit, mv *[2*maxOrder + 1]float64) float64 {
+	if a.q == 3 && b.q == 3 {
+		x, y := &a.g, &b.g
+		return x[0]*y[0]*mv[0] + (x[0]*y[1]+x[1]*y[0])*mv[1] + (x[0]*y[2]+x[1]*y[1]+x[2]*y[0])*mv[2] +
+			(x[1]*y[2]+x[2]*y[1])*mv[3] + x[2]*y[2]*mv[4]
+	}
 	c := 0.0
 	for k := 0; k < a.q; k++ {
 		for j := 0; j < b.q; j++ {
@@ -423,20 +480,25 @@ func (ln *line) at(i int) (est, variance float64, width int) {
 	est, variance, width = y0, v0, 1
 	g0, sc := ln.guide[i], ln.scale[i]
 	var s moments
-	s.add(0, 1, 0, v0)
+	s.addQuartic(0, 1, 0, v0)
 	// The previous window's fit, estimate (minus y0), variance and
 	// v-moments, for the covariance.
 	var cur, prev fit
 	var pe, pev float64
 	var pmv [2*maxOrder + 1]float64
 	have := false
+	quartic := ln.quarticFrom > 0
 	count, weighted := 1, 1
 	next := 0 // index in scales of the next half-width tested
 	for h := 1; h <= ln.maxHalf; h++ {
 		grew := false
 		if j := i - h; j >= 0 {
 			if w := ln.weight(j, g0, sc); w > 0 {
-				s.add(t[j]-t[i], w, y[j]-y0, v[j])
+				if quartic {
+					s.addQuartic(t[j]-t[i], w, y[j]-y0, v[j])
+				} else {
+					s.add(t[j]-t[i], w, y[j]-y0, v[j])
+				}
 				weighted++
 			}
 			count++
@@ -444,7 +506,11 @@ func (ln *line) at(i int) (est, variance float64, width int) {
 		}
 		if j := i + h; j < n {
 			if w := ln.weight(j, g0, sc); w > 0 {
-				s.add(t[j]-t[i], w, y[j]-y0, v[j])
+				if quartic {
+					s.addQuartic(t[j]-t[i], w, y[j]-y0, v[j])
+				} else {
+					s.add(t[j]-t[i], w, y[j]-y0, v[j])
+				}
 				weighted++
 			}
 			count++
@@ -470,10 +536,7 @@ func (ln *line) at(i int) (est, variance float64, width int) {
 		if !cur.solve(&s, q, float64(h)) {
 			continue
 		}
-		b0 := 0.0
-		for k := 0; k < q; k++ {
-			b0 += cur.g[k] * s.my[k]
-		}
+		b0 := cur.b[0]
 		ev := covariance(&cur, &cur, &s.mv)
 		// Against the raw value: Var(e − y0) = Var e + v0 − 2 g₀ v0.
 		if vd := ev + v0 - 2*cur.g[0]*v0; b0*b0 > ln.threshold2*vd {
