@@ -102,7 +102,7 @@
 //
 // What it cannot do: a real dose feature smaller than the noise over a few
 // voxels is indistinguishable from noise and is smoothed with it; and
-// what noise remains (a third to a half of σ on 3 mm grids, where the
-// windows are few voxels wide across a small field) still lowers Γ
-// slightly (BENCHMARKS.md gives the effect on pass rates).
+// what noise remains (on 3 mm grids the windows span few voxels across a
+// small field) still lowers Γ slightly (BENCHMARKS.md gives the effect on
+// pass rates and mean Γ).
 package noise
