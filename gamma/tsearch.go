@@ -657,7 +657,7 @@ func (s *searcher) certify(pt *tpoint, ts *tscratch) {
 				if ds2 >= T {
 					continue
 				}
-				lo, hi := float64(s.sp.lo[row+ci]), float64(s.sp.hi[row+ci])
+				lo, hi := s.sp.cellRange(row + ci)
 				gap := max(lo-pt.dr, pt.dr-hi, 0)
 				lb := ds2 + w2*gap*gap
 				if lb >= T {
