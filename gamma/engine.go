@@ -360,10 +360,24 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 			}
 			q, d := src.at(i)
 			w := weight(d)
+			if i%blockSize == 0 {
+				sc.warm = false // a block's first point has no neighbour here
+			}
 			var b2 float64
 			if s.sp != nil {
 				s.tensorHome(&sc.pt, q, d, w)
 				b2 = sc.pt.best2
+				// A point failing at home starts again from its
+				// neighbour's best offset, when the neighbour (the last
+				// point of this block settled) is near: neighbouring
+				// minima are coherent. Only points without that help wait
+				// for the k-d tree.
+				if b2 > s.treeFrom && sc.warm && dist2(q, sc.warmQ) <= warmReach*warmReach {
+					s.warmStart(&sc.pt, sc.warmOff)
+					if sc.pt.best2 < b2 {
+						b2 = 0 // helped: settled here
+					}
+				}
 			} else {
 				b2 = s.home(q, d, w)
 			}
@@ -376,6 +390,10 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 				s.certify(&sc.pt, &sc.ts)
 				sc.record(&sc.pt)
 				b2 = sc.pt.best2
+				sc.warm, sc.warmQ = true, q
+				for a := 0; a < 3; a++ {
+					sc.warmOff[a] = sc.pt.p[a] - q[a]
+				}
 			} else {
 				b2 = s.rest(q, d, w, b2, false, sc)
 			}
@@ -442,6 +460,11 @@ type scratch struct {
 	// candidate heap and box stack.
 	pt tpoint
 	ts tscratch
+	// warm is set when warmQ and warmOff hold the last point settled in
+	// this block and the offset of its minimum from it.
+	warm    bool
+	warmQ   [3]float64
+	warmOff [3]float64
 	// uncertified counts the points whose minimum could be certified only
 	// to a looser tolerance than certTol; worstGap is the loosest.
 	uncertified int
@@ -473,6 +496,15 @@ type searcher struct {
 	grid    *volume.Grid
 	dta     float64
 	latStep float64
+}
+
+// warmReach is how near (DTA units) the last point settled must be for a
+// point failing at home to start again from its minimum's offset.
+const warmReach = 1.5
+
+func dist2(a, b [3]float64) float64 {
+	dx, dy, dz := a[0]-b[0], a[1]-b[1], a[2]-b[2]
+	return dx*dx + dy*dy + dz*dz
 }
 
 // needsTree marks, between the passes of the fast search, a point whose

@@ -1111,3 +1111,13 @@ func fmin(a, b float64) float64 {
 	}
 	return b
 }
+
+// warmStart offers the point its neighbour's best offset: the interpolant
+// at q + off, polished by Newton's method when better.
+func (s *searcher) warmStart(pt *tpoint, off [3]float64) {
+	p := s.clampDomain([3]float64{pt.q[0] + off[0], pt.q[1] + off[1], pt.q[2] + off[2]})
+	c, t := s.locate(p)
+	if pt.gOf(p, s.sp.value(c, t)) < pt.best2 {
+		s.improve(pt, p, c)
+	}
+}
