@@ -6,6 +6,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"runtime"
+	"syscall"
 	"testing"
 
 	"voxgamma/internal/benchcase"
@@ -241,6 +242,7 @@ func benchmarkSweep(b *testing.B, size benchcase.Size) {
 				}
 				c := Criteria{DosePercent: 3, DTA: 2, Normalisation: Global, ThresholdPercent: 10}
 				var res *Result
+				cpu0 := cpuSeconds()
 				b.ResetTimer()
 				for i := 0; i < b.N; i++ {
 					if res, err = CompareGrids(context.Background(), ref, eval, c, Options{Interpolation: in}); err != nil {
@@ -248,10 +250,21 @@ func benchmarkSweep(b *testing.B, size benchcase.Size) {
 					}
 				}
 				b.StopTimer()
+				// CPU time varies less than wall time on a shared machine.
+				b.ReportMetric((cpuSeconds()-cpu0)/float64(b.N), "cpu-s/op")
 				pts := float64(res.Stats.Evaluated)
 				b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/pts, "ns/point")
 				b.ReportMetric(res.Stats.PassRate, "pass%")
 			})
 		}
 	}
+}
+
+// cpuSeconds returns the user and system CPU time this process has used.
+func cpuSeconds() float64 {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return math.NaN()
+	}
+	return float64(ru.Utime.Sec+ru.Stime.Sec) + float64(ru.Utime.Usec+ru.Stime.Usec)/1e6
 }
