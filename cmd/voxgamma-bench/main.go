@@ -1,7 +1,8 @@
 // Command voxgamma-bench measures voxgamma end to end on the invented,
 // seeded cases of internal/benchcase: the pass-rate sweep of BENCHMARKS.md.
 // For every evaluated dose and worker count it runs the voxgamma binary's
-// compare as a child process and reports its wall time, CPU time, engine
+// compare as a child process (with the case's structure set: three PTVs and
+// a body outline, unless -no-structures) and reports its wall time, CPU time, engine
 // time (run.gamma_seconds), peak resident memory, and the same for the
 // floor (reading both doses with dicomio and one trilinear dose-difference
 // pass) measured in the same run.
@@ -28,6 +29,7 @@ import (
 
 	"voxgamma/dicomio"
 	"voxgamma/internal/benchcase"
+	"voxgamma/job"
 )
 
 func main() {
@@ -54,6 +56,7 @@ func run(args []string, w io.Writer) error {
 	interp := fl.String("interpolation", "", "--interpolation for compare (empty: its default)")
 	seed := fl.Uint64("seed", 2026, "seed of the evaluated doses' noise")
 	runs := fl.Int("runs", 1, "runs of each measurement")
+	noStruct := fl.Bool("no-structures", false, "compare without the structure set")
 	if err := fl.Parse(args); err != nil {
 		return err
 	}
@@ -79,9 +82,11 @@ func run(args []string, w io.Writer) error {
 		return err
 	}
 	inputs := 4 * float64(s[0]*s[1]*s[2]+(s[0]+1)*(s[1]+1)*(s[2]+1))
-	fmt.Fprintf(w, "case %s (inputs %.0f MiB), compare with %s%s\n\n", s, inputs/(1<<20), *bin, map[bool]string{true: "", false: " --interpolation " + *interp}[*interp == ""])
-	fmt.Fprintln(w, "| evaluated | workers | pass rate (%) | points | wall (s) | CPU (s) | engine (s) | peak RSS (MiB) | RSS / inputs | wall / floor |")
-	fmt.Fprintln(w, "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
+	est := float64(job.EstimateBytes(int64(s[0]*s[1]*s[2]), int64((s[0]+1)*(s[1]+1)*(s[2]+1))))
+	fmt.Fprintf(w, "case %s (inputs %.0f MiB, --max-memory estimate %.0f MiB), compare with %s%s%s\n\n", s, inputs/(1<<20), est/(1<<20), *bin,
+		map[bool]string{true: "", false: " --interpolation " + *interp}[*interp == ""], map[bool]string{true: " --no-structures", false: ""}[*noStruct])
+	fmt.Fprintln(w, "| evaluated | workers | pass rate (%) | points | wall (s) | CPU (s) | engine (s) | peak RSS (MiB) | RSS / inputs | estimate / RSS | wall / floor |")
+	fmt.Fprintln(w, "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
 	for _, v := range strings.Split(*variants, ",") {
 		eval, ok := files.Evaluated[strings.TrimSpace(v)]
 		if !ok {
@@ -92,11 +97,16 @@ func run(args []string, w io.Writer) error {
 			if err != nil {
 				return fmt.Errorf("floor: %w", err)
 			}
-			fmt.Fprintf(w, "| %s: floor | 1 | | | %.2f | %.2f | | %.0f | %.2f | 1 |\n", v, fm.wall, fm.cpu, fm.rss/(1<<20), fm.rss/inputs)
+			fmt.Fprintf(w, "| %s: floor | 1 | | | %.2f | %.2f | | %.0f | %.2f | | 1 |\n", v, fm.wall, fm.cpu, fm.rss/(1<<20), fm.rss/inputs)
 			for _, n := range ws {
 				out := filepath.Join(caseDir, fmt.Sprintf("result-%s-%d.json", v, n))
-				a := []string{"compare", "--reference", files.Reference, "--evaluated", eval, "--no-structures",
+				a := []string{"compare", "--reference", files.Reference, "--evaluated", eval,
 					"--json", out, "--force", "--quiet", "--workers", strconv.Itoa(n)}
+				if *noStruct {
+					a = append(a, "--no-structures")
+				} else {
+					a = append(a, "--structures", files.Structures)
+				}
 				if *interp != "" {
 					a = append(a, "--interpolation", *interp)
 				}
@@ -125,8 +135,8 @@ func run(args []string, w io.Writer) error {
 				if res.Overall.PassRate != nil {
 					pr = *res.Overall.PassRate
 				}
-				fmt.Fprintf(w, "| %s | %d | %.1f | %d | %.2f | %.2f | %.2f | %.0f | %.2f | %.1f |\n", v, n, pr, res.Overall.Evaluated,
-					m.wall, m.cpu, res.Run.GammaSeconds, m.rss/(1<<20), m.rss/inputs, m.wall/fm.wall)
+				fmt.Fprintf(w, "| %s | %d | %.1f | %d | %.2f | %.2f | %.2f | %.0f | %.2f | %.2f | %.1f |\n", v, n, pr, res.Overall.Evaluated,
+					m.wall, m.cpu, res.Run.GammaSeconds, m.rss/(1<<20), m.rss/inputs, est/m.rss, m.wall/fm.wall)
 			}
 		}
 	}
@@ -159,9 +169,9 @@ func parseSize(s string) (benchcase.Size, error) {
 
 // ensure returns the case's files, writing them when any is missing.
 func ensure(dir string, s benchcase.Size, seed uint64) (benchcase.Files, error) {
-	fs := benchcase.Files{Reference: filepath.Join(dir, "reference.dcm"), Evaluated: map[string]string{}}
+	fs := benchcase.Files{Reference: filepath.Join(dir, "reference.dcm"), Evaluated: map[string]string{}, Structures: filepath.Join(dir, "structures.dcm")}
 	missing := false
-	for _, p := range []string{fs.Reference} {
+	for _, p := range []string{fs.Reference, fs.Structures} {
 		if _, err := os.Stat(p); err != nil {
 			missing = true
 		}

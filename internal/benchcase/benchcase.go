@@ -14,6 +14,8 @@ import (
 	"path/filepath"
 
 	"voxgamma/dicomio"
+	"voxgamma/phantom"
+	"voxgamma/structure"
 	"voxgamma/volume"
 )
 
@@ -50,17 +52,24 @@ type target struct {
 	Dose, Pen float64
 }
 
+// targets returns the plan's three targets for a reference grid of size s,
+// scaled with the grid.
+func targets(s Size) []target {
+	f := [3]float64{float64(s[0]) / 256, float64(s[1]) / 256, float64(s[2]) / 160}
+	sc := func(v [3]float64) [3]float64 { return [3]float64{v[0] * f[0], v[1] * f[1], v[2] * f[2]} }
+	return []target{
+		{C: sc([3]float64{-55, 10, 0}), R: sc([3]float64{50, 50, 50}), Dose: 60, Pen: 3},
+		{C: sc([3]float64{55, -15, 10}), R: sc([3]float64{40, 35, 45}), Dose: 54, Pen: 4},
+		{C: sc([3]float64{0, 75, -30}), R: sc([3]float64{25, 25, 25}), Dose: 48, Pen: 5},
+	}
+}
+
 // plan returns the invented plan dose for a reference grid of size s: three
 // targets and a Gaussian bath, scaled with the grid so that about a sixth
 // of the voxels are at or above 10 % of the maximum.
 func plan(s Size) func(p [3]float64) float64 {
 	f := [3]float64{float64(s[0]) / 256, float64(s[1]) / 256, float64(s[2]) / 160}
-	sc := func(v [3]float64) [3]float64 { return [3]float64{v[0] * f[0], v[1] * f[1], v[2] * f[2]} }
-	ts := []target{
-		{C: sc([3]float64{-55, 10, 0}), R: sc([3]float64{50, 50, 50}), Dose: 60, Pen: 3},
-		{C: sc([3]float64{55, -15, 10}), R: sc([3]float64{40, 35, 45}), Dose: 54, Pen: 4},
-		{C: sc([3]float64{0, 75, -30}), R: sc([3]float64{25, 25, 25}), Dose: 48, Pen: 5},
-	}
+	ts := targets(s)
 	bathSigma := 60 * math.Cbrt(f[0]*f[1]*f[2])
 	return func(p [3]float64) float64 {
 		d := 10 * math.Exp(-(p[0]*p[0]+p[1]*p[1]+p[2]*p[2])/(2*bathSigma*bathSigma))
@@ -135,17 +144,53 @@ func fill(g *volume.Grid, f func([3]float64) float64, rng *rand.Rand, sigma floa
 	}
 }
 
-// Files are the paths of one case's dose files.
+// Files are the paths of one case's files.
 type Files struct {
-	Reference string
-	Evaluated map[string]string // by variant name
+	Reference  string
+	Evaluated  map[string]string // by variant name
+	Structures string
+}
+
+// Structures returns the case's structure set: each target as a PTV (a
+// sphere of the target's mean semi-axis) and a body outline (EXTERNAL, a
+// cylinder along z filling nine tenths of the grid's width and its whole
+// length), contours every 2 mm.
+func Structures(s Size, frame string) (*structure.Set, error) {
+	set := &structure.Set{Label: "BENCH", FrameOfReferenceUID: frame}
+	type roi struct {
+		name, kind string
+		shape      phantom.Shape
+	}
+	var rois []roi
+	for i, t := range targets(s) {
+		rois = append(rois, roi{fmt.Sprintf("PTV_%d", i+1), "PTV", phantom.Sphere{Centre: t.C, Radius: (t.R[0] + t.R[1] + t.R[2]) / 3}})
+	}
+	half := float64(min(s[0], s[1])) / 2
+	rois = append(rois, roi{"BODY", "EXTERNAL", phantom.Cylinder{Radius: 0.9 * half, ZMin: -float64(s[2]-1) / 2, ZMax: float64(s[2]-1) / 2}})
+	for i, r := range rois {
+		x, err := phantom.NewROI(r.shape, phantom.ROISpec{Name: r.name, Number: i + 1, InterpretedType: r.kind,
+			Color: [3]uint8{uint8(60 * i), 200, 80}, FrameOfReferenceUID: frame, PlaneSpacing: 2, PlanePhase: 0.5, PointsPerContour: 64})
+		if err != nil {
+			return nil, fmt.Errorf("benchcase: %s: %w", r.name, err)
+		}
+		set.ROIs = append(set.ROIs, x)
+	}
+	return set, nil
 }
 
 // Write writes the reference and every variant of size s into dir as RT
-// Dose files (reference.dcm, evaluated-<variant>.dcm), seeded by seed.
+// Dose files (reference.dcm, evaluated-<variant>.dcm), seeded by seed, and
+// the structure set (structures.dcm).
 func Write(dir string, s Size, seed uint64) (Files, error) {
 	ids := dicomio.PhantomIdentifiers("PHANTOM^BENCH", "VG-BENCH-001")
-	fs := Files{Reference: filepath.Join(dir, "reference.dcm"), Evaluated: map[string]string{}}
+	fs := Files{Reference: filepath.Join(dir, "reference.dcm"), Evaluated: map[string]string{}, Structures: filepath.Join(dir, "structures.dcm")}
+	set, err := Structures(s, ids.FrameOfReferenceUID)
+	if err != nil {
+		return fs, err
+	}
+	if _, err := dicomio.WriteStructureSet(fs.Structures, set, ids); err != nil {
+		return fs, err
+	}
 	ref, err := Reference(s)
 	if err != nil {
 		return fs, err

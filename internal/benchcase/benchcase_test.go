@@ -2,6 +2,7 @@ package benchcase
 
 import (
 	"math"
+	"strings"
 	"testing"
 
 	"voxgamma/dicomio"
@@ -139,5 +140,19 @@ func TestWriteReadsBack(t *testing.T) {
 	for _, v := range Variants {
 		e, _ := Evaluated(s, v, 2026)
 		check(fs.Evaluated[v.Name], e.Data, [3]int{13, 11, 9})
+	}
+	set, err := dicomio.ReadStructureSet(fs.Structures)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var names []string
+	for _, r := range set.ROIs {
+		names = append(names, r.Name+"/"+r.InterpretedType)
+		if len(r.Contours) == 0 {
+			t.Errorf("ROI %s has no contours", r.Name)
+		}
+	}
+	if got := strings.Join(names, " "); got != "PTV_1/PTV PTV_2/PTV PTV_3/PTV BODY/EXTERNAL" {
+		t.Errorf("ROIs %s", got)
 	}
 }
