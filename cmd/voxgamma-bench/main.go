@@ -57,6 +57,7 @@ func run(args []string, w io.Writer) error {
 	seed := fl.Uint64("seed", 2026, "seed of the evaluated doses' noise")
 	runs := fl.Int("runs", 1, "runs of each measurement")
 	noStruct := fl.Bool("no-structures", false, "compare without the structure set")
+	limit := fl.Bool("budget", false, "give compare --max-memory equal to its own estimate (job.EstimateBytes), which also sets the Go runtime's soft memory limit")
 	if err := fl.Parse(args); err != nil {
 		return err
 	}
@@ -84,7 +85,7 @@ func run(args []string, w io.Writer) error {
 	inputs := 4 * float64(s[0]*s[1]*s[2]+(s[0]+1)*(s[1]+1)*(s[2]+1))
 	est := float64(job.EstimateBytes(int64(s[0]*s[1]*s[2]), int64((s[0]+1)*(s[1]+1)*(s[2]+1))))
 	fmt.Fprintf(w, "case %s (inputs %.0f MiB, --max-memory estimate %.0f MiB), compare with %s%s%s\n\n", s, inputs/(1<<20), est/(1<<20), *bin,
-		map[bool]string{true: "", false: " --interpolation " + *interp}[*interp == ""], map[bool]string{true: " --no-structures", false: ""}[*noStruct])
+		map[bool]string{true: "", false: " --interpolation " + *interp}[*interp == ""], map[bool]string{true: " --no-structures", false: ""}[*noStruct]+map[bool]string{true: " --max-memory ESTIMATE", false: ""}[*limit])
 	fmt.Fprintln(w, "| evaluated | workers | pass rate (%) | points | wall (s) | CPU (s) | engine (s) | peak RSS (MiB) | RSS / inputs | estimate / RSS | wall / floor |")
 	fmt.Fprintln(w, "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
 	for _, v := range strings.Split(*variants, ",") {
@@ -109,6 +110,9 @@ func run(args []string, w io.Writer) error {
 				}
 				if *interp != "" {
 					a = append(a, "--interpolation", *interp)
+				}
+				if *limit {
+					a = append(a, "--max-memory", strconv.FormatInt(int64(est), 10))
 				}
 				m, err := measure(*bin, a...)
 				var ee *exec.ExitError
