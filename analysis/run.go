@@ -364,8 +364,10 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	var rawROIs []result.GammaStats
 
 	if p.Reference != nil {
-		out.Gamma = p.Reference.EmptyLike()
-		copy(out.Gamma.Data, gres.Gamma)
+		// The map shares the engine's Γ (read-only from here on).
+		g := *p.Reference
+		g.Data = gres.Gamma
+		out.Gamma = &g
 		out.Difference = p.Reference.EmptyLike()
 		for n, e := range p.EvaluatedOnRef.Data {
 			out.Difference.Data[n] = e - p.Reference.Data[n]

@@ -6,8 +6,10 @@ import (
 	"math"
 	"math/rand/v2"
 	"runtime"
+	"syscall"
 	"testing"
 
+	"voxgamma/internal/benchcase"
 	"voxgamma/volume"
 )
 
@@ -213,4 +215,56 @@ func BenchmarkCompareCoarse(b *testing.B) {
 			})
 		}
 	}
+}
+
+// BenchmarkSweep runs the fast method on the pass-rate sweep of
+// BENCHMARKS.md (internal/benchcase, seeded) at a size small enough for
+// benchstat's repeated runs: every variant, the default and the
+// linear-simplex interpolant, 3 %/2 mm global, 10 % threshold, with the
+// engine's default worker count (GOMAXPROCS).
+func BenchmarkSweep(b *testing.B) {
+	for _, size := range []benchcase.Size{{64, 64, 40}, {96, 96, 60}} {
+		benchmarkSweep(b, size)
+	}
+}
+
+func benchmarkSweep(b *testing.B, size benchcase.Size) {
+	ref, err := benchcase.Reference(size)
+	if err != nil {
+		b.Fatal(err)
+	}
+	for _, in := range []Interpolation{CubicBSpline, LinearSimplex} {
+		for _, v := range benchcase.Variants {
+			b.Run(fmt.Sprintf("%v/%s/%s", in, size, v.Name), func(b *testing.B) {
+				eval, err := benchcase.Evaluated(size, v, 2026)
+				if err != nil {
+					b.Fatal(err)
+				}
+				c := Criteria{DosePercent: 3, DTA: 2, Normalisation: Global, ThresholdPercent: 10}
+				var res *Result
+				cpu0 := cpuSeconds()
+				b.ResetTimer()
+				for i := 0; i < b.N; i++ {
+					if res, err = CompareGrids(context.Background(), ref, eval, c, Options{Interpolation: in}); err != nil {
+						b.Fatal(err)
+					}
+				}
+				b.StopTimer()
+				// CPU time varies less than wall time on a shared machine.
+				b.ReportMetric((cpuSeconds()-cpu0)/float64(b.N), "cpu-s/op")
+				pts := float64(res.Stats.Evaluated)
+				b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/pts, "ns/point")
+				b.ReportMetric(res.Stats.PassRate, "pass%")
+			})
+		}
+	}
+}
+
+// cpuSeconds returns the user and system CPU time this process has used.
+func cpuSeconds() float64 {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return math.NaN()
+	}
+	return float64(ru.Utime.Sec+ru.Stime.Sec) + float64(ru.Utime.Usec+ru.Stime.Usec)/1e6
 }

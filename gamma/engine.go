@@ -351,19 +351,32 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 		// Pass 1: each point from its home (the cell holding it, and for a
 		// tensor-product interpolant the local minimum Newton's method
 		// reaches from it), then, where that bound already passes, the
-		// search that settles the minimum. Points failing at home (their
-		// search ball may hold thousands of cells) keep the bound as Γ² in
-		// Gamma and are marked for the k-d tree.
+		// search that settles the minimum. A tensor-product point failing
+		// at home starts again from the best offset of its neighbour (the
+		// last point of the same block settled, when near: neighbouring
+		// minima are coherent) and is settled here too, so that a failing
+		// region is settled point after point. Points failing at home
+		// with no such neighbour (a block's first, a row's first above
+		// the threshold, every linear-simplex point) keep the bound as Γ²
+		// in Gamma and are marked for the k-d tree.
 		_, err = p.run(true, func(i int, sc *scratch) bool {
 			if res.Status[i] != Evaluated {
 				return false
 			}
 			q, d := src.at(i)
 			w := weight(d)
+			// Only a point of the same block may lend its offset: blocks
+			// are fixed, whatever worker takes them, so Γ does not depend
+			// on the worker count.
+			block := i / blockSize
 			var b2 float64
 			if s.sp != nil {
 				s.tensorHome(&sc.pt, q, d, w)
 				b2 = sc.pt.best2
+				if b2 > s.treeFrom && sc.warm && sc.warmBlock == block && dist2(q, sc.warmQ) <= warmReach*warmReach {
+					s.warmStart(&sc.pt, sc.warmOff)
+					b2 = 0 // settled here, from the neighbour's offset
+				}
 			} else {
 				b2 = s.home(q, d, w)
 			}
@@ -376,6 +389,10 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 				s.certify(&sc.pt, &sc.ts)
 				sc.record(&sc.pt)
 				b2 = sc.pt.best2
+				sc.warm, sc.warmBlock, sc.warmQ = true, block, q
+				for a := 0; a < 3; a++ {
+					sc.warmOff[a] = sc.pt.p[a] - q[a]
+				}
 			} else {
 				b2 = s.rest(q, d, w, b2, false, sc)
 			}
@@ -442,6 +459,12 @@ type scratch struct {
 	// candidate heap and box stack.
 	pt tpoint
 	ts tscratch
+	// warm is set when warmQ and warmOff hold the last point this worker
+	// settled, in block warmBlock, and the offset of its minimum from it.
+	warm      bool
+	warmBlock int
+	warmQ     [3]float64
+	warmOff   [3]float64
 	// uncertified counts the points whose minimum could be certified only
 	// to a looser tolerance than certTol; worstGap is the loosest.
 	uncertified int
@@ -473,6 +496,15 @@ type searcher struct {
 	grid    *volume.Grid
 	dta     float64
 	latStep float64
+}
+
+// warmReach is how near (DTA units) the last point settled must be for a
+// point failing at home to start again from its minimum's offset.
+const warmReach = 1.5
+
+func dist2(a, b [3]float64) float64 {
+	dx, dy, dz := a[0]-b[0], a[1]-b[1], a[2]-b[2]
+	return dx*dx + dy*dy + dz*dz
 }
 
 // needsTree marks, between the passes of the fast search, a point whose

@@ -77,10 +77,10 @@ type spline struct {
 	ax   [3]axisSpline
 	cs   [3]int    // strides of coef
 	coef []float32 // padded coefficients
-	// lo and hi bound the interpolant on each cell (index ci + nc0·(cj +
-	// nc1·ck)): the range of the coefficients its patch is a convex
-	// combination of.
-	lo, hi []float32
+	// qlo and qhi bound the interpolant on each cell (index ci + nc0·(cj +
+	// nc1·ck)), in steps of rstep above rmin (cellRange).
+	qlo, qhi    []uint16
+	rmin, rstep float64
 	// c2 is set when the interpolant is C² across cells (a cubic
 	// B-spline): then dose Hessian bounds hold across cell faces.
 	c2 bool
@@ -310,44 +310,89 @@ func (ax *axisSpline) pad(buf []float64) {
 	}
 }
 
-// ranges sets lo and hi: per cell, the smallest and largest coefficient of
-// its window along every axis (separable sliding minimum and maximum).
+// ranges sets the per-cell dose bounds: the smallest and largest
+// coefficient of each cell's window along every axis (its patch is a
+// convex combination of them), stored as 16-bit steps of the coefficients'
+// overall range, rounded outward (and widened by one step against
+// rounding), so that the bounds stay bounds. Layers of cells along z are
+// done in parallel, each with buffers of its own.
 func (s *spline) ranges(workers int) {
 	nc := [3]int{s.ax[0].nc, s.ax[1].nc, s.ax[2].nc}
 	np := [3]int{s.ax[0].np, s.ax[1].np, s.ax[2].np}
-	// Along x: cells × np1 × np2.
-	dims := np
-	lo := s.coef
-	hi := s.coef
-	for a := 0; a < 3; a++ {
-		ax := &s.ax[a]
-		out := dims
-		out[a] = nc[a]
-		nlo := make([]float32, out[0]*out[1]*out[2])
-		nhi := make([]float32, len(nlo))
-		inStride := [3]int{1, dims[0], dims[0] * dims[1]}
-		outStride := [3]int{1, out[0], out[0] * out[1]}
-		b, c := (a+1)%3, (a+2)%3
-		lines := dims[b] * dims[c]
-		parallel(lines, workers, func(l0, l1 int) {
-			for l := l0; l < l1; l++ {
-				ib, ic := l%dims[b], l/dims[b]
-				in := ib*inStride[b] + ic*inStride[c]
-				o := ib*outStride[b] + ic*outStride[c]
-				for cell := 0; cell < nc[a]; cell++ {
-					mn, mx := float32(math.Inf(1)), float32(math.Inf(-1))
-					for P := cell + ax.winLo; P <= cell+ax.winHi; P++ {
-						mn = min(mn, lo[in+P*inStride[a]])
-						mx = max(mx, hi[in+P*inStride[a]])
-					}
-					nlo[o+cell*outStride[a]] = mn
-					nhi[o+cell*outStride[a]] = mx
+	cmin, cmax := math.Inf(1), math.Inf(-1)
+	for _, v := range s.coef {
+		cmin = math.Min(cmin, float64(v))
+		cmax = math.Max(cmax, float64(v))
+	}
+	s.rmin = cmin
+	s.rstep = (cmax - cmin) / 65000
+	if !(s.rstep > 0) {
+		s.rstep = 1
+	}
+	cells := nc[0] * nc[1]
+	s.qlo = make([]uint16, cells*nc[2])
+	s.qhi = make([]uint16, cells*nc[2])
+	ax, ay, az := &s.ax[0], &s.ax[1], &s.ax[2]
+	parallel(nc[2], workers, func(k0, k1 int) {
+		zlo := make([]float32, np[0]*np[1])
+		zhi := make([]float32, np[0]*np[1])
+		xlo := make([]float32, nc[0]*np[1])
+		xhi := make([]float32, nc[0]*np[1])
+		for ck := k0; ck < k1; ck++ {
+			// Along z: the window of layer ck.
+			for i := range zlo {
+				zlo[i], zhi[i] = float32(math.Inf(1)), float32(math.Inf(-1))
+			}
+			for P := ck + az.winLo; P <= ck+az.winHi; P++ {
+				plane := s.coef[P*s.cs[2] : P*s.cs[2]+np[0]*np[1]]
+				for i, v := range plane {
+					zlo[i] = min(zlo[i], v)
+					zhi[i] = max(zhi[i], v)
 				}
 			}
-		})
-		lo, hi, dims = nlo, nhi, out
-	}
-	s.lo, s.hi = lo, hi
+			// Along x.
+			for j := 0; j < np[1]; j++ {
+				row := j * np[0]
+				for c := 0; c < nc[0]; c++ {
+					mn, mx := float32(math.Inf(1)), float32(math.Inf(-1))
+					for P := c + ax.winLo; P <= c+ax.winHi; P++ {
+						mn = min(mn, zlo[row+P])
+						mx = max(mx, zhi[row+P])
+					}
+					xlo[j*nc[0]+c], xhi[j*nc[0]+c] = mn, mx
+				}
+			}
+			// Along y, and stored.
+			for cj := 0; cj < nc[1]; cj++ {
+				for c := 0; c < nc[0]; c++ {
+					mn, mx := float32(math.Inf(1)), float32(math.Inf(-1))
+					for P := cj + ay.winLo; P <= cj+ay.winHi; P++ {
+						mn = min(mn, xlo[P*nc[0]+c])
+						mx = max(mx, xhi[P*nc[0]+c])
+					}
+					i := c + nc[0]*(cj+nc[1]*ck)
+					s.qlo[i], s.qhi[i] = s.quantLo(float64(mn)), s.quantHi(float64(mx))
+				}
+			}
+		}
+	})
+}
+
+// quantLo and quantHi round a dose down and up to the 16-bit steps of the
+// stored ranges, one step beyond.
+func (s *spline) quantLo(v float64) uint16 {
+	q := math.Floor((v-s.rmin)/s.rstep) - 1
+	return uint16(math.Max(0, math.Min(65535, q)))
+}
+
+func (s *spline) quantHi(v float64) uint16 {
+	q := math.Ceil((v-s.rmin)/s.rstep) + 1
+	return uint16(math.Max(0, math.Min(65535, q)))
+}
+
+// cellRange returns the stored dose bounds of cell index i.
+func (s *spline) cellRange(i int) (lo, hi float64) {
+	return s.rmin + float64(s.qlo[i])*s.rstep, s.rmin + float64(s.qhi[i])*s.rstep
 }
 
 // parallel calls fn on consecutive chunks of [0, n) on up to workers

@@ -293,8 +293,8 @@ func TestBernsteinBounds(t *testing.T) {
 		lo, h := s.cellBox(c)
 		mn, mx := b.bounds()
 		ci := c[0] + s.sp.ax[0].nc*(c[1]+s.sp.ax[1].nc*c[2])
-		if float64(s.sp.lo[ci]) > mn+1e-9 || float64(s.sp.hi[ci]) < mx-1e-9 {
-			t.Fatalf("cell %v: stored range %g…%g misses the control values %g…%g", c, s.sp.lo[ci], s.sp.hi[ci], mn, mx)
+		if slo, shi := s.sp.cellRange(ci); slo > mn || shi < mx {
+			t.Fatalf("cell %v: stored range %g…%g misses the control values %g…%g", c, slo, shi, mn, mx)
 		}
 		alpha, beta, delta := b.linearFit()
 		h6lo, h6hi := b.hessianRange(h)

@@ -577,7 +577,15 @@ const netCache = 4096
 // regionCells is the largest block of cells, per axis, over which the
 // search bounds the dose Hessian of a C² spline at once (the bound loosens,
 // and costs more, with the block).
-const regionCells = 2
+const regionCells = 8
+
+// regionReach is the largest search ball (Γ, DTA units) over which the
+// search tries the region's Hessian bound: for a point passing at its
+// home it often settles the minimum at once; for a failing one the dose
+// term is large and the bound over the wider block too loose to settle
+// anything (measured on the sweep of BENCHMARKS.md), so it is not
+// computed.
+const regionReach = 1.0
 
 // certify proves the incumbent of pt the minimum of g within the search
 // distance (to the tolerance), or replaces it by one that is.
@@ -589,7 +597,7 @@ func (s *searcher) certify(pt *tpoint, ts *tscratch) {
 	}
 	rho := fmin(math.Sqrt(pt.best2), s.rn)
 	var c0, c1 [3]int
-	small := true
+	small := rho <= regionReach
 	for a := 0; a < 3; a++ {
 		c0[a] = f.cell(a, pt.q[a]-rho)
 		c1[a] = f.cell(a, pt.q[a]+rho)
@@ -657,7 +665,7 @@ func (s *searcher) certify(pt *tpoint, ts *tscratch) {
 				if ds2 >= T {
 					continue
 				}
-				lo, hi := float64(s.sp.lo[row+ci]), float64(s.sp.hi[row+ci])
+				lo, hi := s.sp.cellRange(row + ci)
 				gap := max(lo-pt.dr, pt.dr-hi, 0)
 				lb := ds2 + w2*gap*gap
 				if lb >= T {
@@ -733,6 +741,36 @@ func (s *searcher) searchCell(pt *tpoint, c [3]int, ts *tscratch) {
 	i0 := take()
 	top := &ts.stack[i0]
 	top.b = *s.netOf(ts, c)
+	// Only the cube about q of half-side √T can hold g below T (g ≥ |p −
+	// q|²): the search starts from the part of the cell inside it, its net
+	// cut out of the cell's by de Casteljau's algorithm (a ball that a
+	// cell holds many times over is searched from boxes of its own size).
+	r := math.Sqrt(s.target(pt.best2))
+	var tmp bnet
+	for a := 0; a < 3; a++ {
+		if h[a] == 0 {
+			continue
+		}
+		t0 := (pt.q[a] - r - lo[a]) / h[a]
+		t1 := (pt.q[a] + r - lo[a]) / h[a]
+		if t1 <= 0 || t0 >= 1 {
+			give(i0)
+			return
+		}
+		if t1 < 1 {
+			top.b.splitAt(a, t1, &tmp, &top.b)
+			top.b, tmp = tmp, top.b
+		} else {
+			t1 = 1
+		}
+		if t0 > 0 {
+			top.b.splitAt(a, t0/t1, &tmp, &top.b)
+		} else {
+			t0 = 0
+		}
+		lo[a] += t0 * h[a]
+		h[a] *= t1 - t0
+	}
 	top.lo, top.h = lo, h
 	mn, mx := top.b.bounds()
 	top.lb = pt.sepBound(lo, h, mn, mx)
@@ -1110,4 +1148,14 @@ func fmin(a, b float64) float64 {
 		return a
 	}
 	return b
+}
+
+// warmStart offers the point its neighbour's best offset: the interpolant
+// at q + off, polished by Newton's method when better.
+func (s *searcher) warmStart(pt *tpoint, off [3]float64) {
+	p := s.clampDomain([3]float64{pt.q[0] + off[0], pt.q[1] + off[1], pt.q[2] + off[2]})
+	c, t := s.locate(p)
+	if pt.gOf(p, s.sp.value(c, t)) < pt.best2 {
+		s.improve(pt, p, c)
+	}
 }

@@ -17,18 +17,26 @@ import (
 // Memory estimate coefficients (bytes). See [EstimateBytes].
 const (
 	// BytesPerReferenceVoxel: the reference grid (4, float32), Γ per point
-	// (4) and its status (1), the Γ map grid (4), the evaluated dose
+	// (4, which the Γ map shares) and its status (1), the evaluated dose
 	// resampled onto the reference grid (4), the difference map (4), the
 	// sorted Γ values for the statistics (8, float64), the cluster labels
-	// (4), a margin of 24 for the ROI masks (about one body-sized ROI
-	// with its centre index, partial-volume index and fractions) and, with
-	// a noise correction, the raw comparison's Γ and status (5).
-	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 8 + 4 + 24 + 5
+	// (4), a margin of 56 for the ROIs (a body-sized ROI with its centre
+	// index, partial-volume index and fractions, and what the per-ROI
+	// statistics hold) and, with a noise correction, the raw comparison's Γ
+	// and status (5). The ROI margin is measured, not derived: comparisons
+	// of 256×256×160 and 400×400×200 voxels with three targets and a body
+	// outline and no noise handling, run with --max-memory set to this
+	// estimate less the noise terms, peaked at 1.01 and 1.03 times it
+	// (BENCHMARKS.md, "Fast when it matters"); with the default budget the
+	// runtime let them grow to 1.4 and 1.6 times it.
+	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 8 + 4 + 56 + 5
 	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), the k-d tree
-	// selection mask (1) and a margin of 8 for the k-d tree over the
-	// evaluated nodes near points that need it; for the noise handling,
-	// the smoothed dose, σ, the denoised dose and its variance (4 each).
-	BytesPerEvaluatedVoxel = 4 + 1 + 8 + 16
+	// selection mask (1), a margin of 8 for the k-d tree over the evaluated
+	// nodes near points that need it, the cubic B-spline's padded
+	// coefficients (4, float32) and per-cell dose bounds (4, two 16-bit
+	// steps), and for the noise handling the smoothed dose, σ, the denoised
+	// dose and its variance (4 each).
+	BytesPerEvaluatedVoxel = 4 + 1 + 8 + 4 + 4 + 16
 	// FixedBytesPerCase covers decoding buffers, the result document and
 	// the review page's figures.
 	FixedBytesPerCase = 16 << 20
@@ -44,12 +52,13 @@ const (
 // reference grid has nr voxels and whose evaluated grid has ne voxels:
 //
 //	BytesPerReferenceVoxel·nr + BytesPerEvaluatedVoxel·ne + FixedBytesPerCase
-//	= 62·nr + 29·ne + 16 MiB
+//	= 90·nr + 37·ne + 16 MiB
 //
-// It is an admission estimate, deliberately on the high side: measured live
-// heaps of the comparison are about 28 bytes per reference voxel with small
-// ROIs. The Go runtime may take more than the live heap between
-// collections; the batch command sets the runtime's soft memory limit to the
+// It is an admission estimate of the live heap's peak with a body-sized
+// ROI, measured (BENCHMARKS.md, "Fast when it matters"); with small ROIs
+// or none the comparison needs less. The Go runtime may take more than the
+// live heap between collections (up to twice as much with its default
+// settings); every command sets the runtime's soft memory limit to the
 // budget so that it collects before exceeding it.
 func EstimateBytes(nr, ne int64) int64 {
 	return BytesPerReferenceVoxel*nr + BytesPerEvaluatedVoxel*ne + FixedBytesPerCase

@@ -4,7 +4,9 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
 	"sort"
+	"sync"
 )
 
 // InsideTolerance is the distance (mm) by which a point may lie beyond the
@@ -430,25 +432,40 @@ var ErrNoOverlap = errors.New("volume: grids do not overlap")
 // ResampleOnto returns a grid with the geometry of target whose samples are
 // g interpolated trilinearly at target's voxel centres; voxels outside g get
 // fill. It returns ErrNoOverlap (with the grid, all fill) when no voxel of
-// target lies inside g.
+// target lies inside g. Planes of target are done in parallel on up to
+// GOMAXPROCS goroutines; each voxel's value does not depend on them.
 func (g *Grid) ResampleOnto(target *Grid, fill float32) (*Grid, error) {
 	out := target.EmptyLike()
-	inside := 0
-	var u [3]float64
-	n := 0
-	for k := 0; k < target.dims[2]; k++ {
-		for j := 0; j < target.dims[1]; j++ {
-			for i := 0; i < target.dims[0]; i++ {
-				u = g.WorldToLocal(target.WorldOf(i, j, k))
-				if v, ok := g.SampleLocal(u); ok {
-					out.Data[n] = float32(v)
-					inside++
-				} else {
-					out.Data[n] = fill
+	nk := target.dims[2]
+	plane := target.dims[0] * target.dims[1]
+	workers := min(runtime.GOMAXPROCS(0), nk)
+	counts := make([]int, workers)
+	var wg sync.WaitGroup
+	for w := 0; w < workers; w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for k := w; k < nk; k += workers {
+				n := k * plane
+				for j := 0; j < target.dims[1]; j++ {
+					for i := 0; i < target.dims[0]; i++ {
+						u := g.WorldToLocal(target.WorldOf(i, j, k))
+						if v, ok := g.SampleLocal(u); ok {
+							out.Data[n] = float32(v)
+							counts[w]++
+						} else {
+							out.Data[n] = fill
+						}
+						n++
+					}
 				}
-				n++
 			}
-		}
+		}()
+	}
+	wg.Wait()
+	inside := 0
+	for _, c := range counts {
+		inside += c
 	}
 	if inside == 0 {
 		return out, ErrNoOverlap

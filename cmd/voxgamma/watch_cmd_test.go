@@ -217,8 +217,8 @@ func TestWatchCmdKeysCannotCollide(t *testing.T) {
 
 // TestWatchCmdMemoryBudget: watch has the batch memory budget. A case
 // whose dose grids are estimated to need more than --max-memory (24×24×16
-// voxels each: 62 + 29 bytes per voxel and 16 MiB, job.EstimateBytes,
-// about 16.8 MiB, against 1 MiB) is not loaded: it is moved aside with the
+// voxels each: 90 + 37 bytes per voxel and 16 MiB, job.EstimateBytes,
+// about 17.1 MiB, against 1 MiB) is not loaded: it is moved aside with the
 // estimate and the budget, exit 1; with the default budget it passes.
 func TestWatchCmdMemoryBudget(t *testing.T) {
 	dir, out := t.TempDir(), filepath.Join(t.TempDir(), "out")
@@ -227,7 +227,7 @@ func TestWatchCmdMemoryBudget(t *testing.T) {
 	}
 	btSettleAll(t, dir)
 	status, _, stderr := btRun("watch", dir, "--out", out, "--once", "--settle", "1s", "--poll", "50ms", "--max-memory", "1MiB")
-	if status != exitError || !strings.Contains(stderr, "needs about 16.8 MiB of memory") || !strings.Contains(stderr, "memory budget of 1 MiB") {
+	if status != exitError || !strings.Contains(stderr, "needs about 17.1 MiB of memory") || !strings.Contains(stderr, "memory budget of 1 MiB") {
 		t.Fatalf("exit %d\n%s", status, stderr)
 	}
 	errTxt, err := os.ReadFile(filepath.Join(dir, batch.FailedDir, "big", "error.txt"))
