@@ -2,6 +2,7 @@ package gamma
 
 import (
 	"math"
+	"voxgamma/internal/selection"
 )
 
 // Stats summarises Γ over a set of reference points.
@@ -121,7 +122,7 @@ func fillDistribution(s *Stats, values []float64) {
 func percentileSelect(v []float64, p float64) float64 {
 	h := (float64(len(v)) - 1) * p / 100
 	lo := int(math.Floor(h))
-	a := selectKth(v, lo)
+	a := selection.Kth(v, lo)
 	if lo >= len(v)-1 {
 		return a
 	}
@@ -134,50 +135,6 @@ func percentileSelect(v []float64, p float64) float64 {
 		}
 	}
 	return a + (h-float64(lo))*(b-a)
-}
-
-// selectKth reorders v so that v[k] is the k-th smallest value (0-based),
-// everything before it ≤ and everything after it ≥, and returns v[k]
-// (Hoare's selection with a median-of-three pivot).
-func selectKth(v []float64, k int) float64 {
-	lo, hi := 0, len(v)-1
-	for lo < hi {
-		mid := lo + (hi-lo)/2
-		// Median of three to the middle.
-		if v[mid] < v[lo] {
-			v[mid], v[lo] = v[lo], v[mid]
-		}
-		if v[hi] < v[lo] {
-			v[hi], v[lo] = v[lo], v[hi]
-		}
-		if v[hi] < v[mid] {
-			v[hi], v[mid] = v[mid], v[hi]
-		}
-		pivot := v[mid]
-		i, j := lo, hi
-		for i <= j {
-			for v[i] < pivot {
-				i++
-			}
-			for v[j] > pivot {
-				j--
-			}
-			if i <= j {
-				v[i], v[j] = v[j], v[i]
-				i++
-				j--
-			}
-		}
-		switch {
-		case k <= j:
-			hi = j
-		case k >= i:
-			lo = i
-		default:
-			return v[k]
-		}
-	}
-	return v[k]
 }
 
 // Percentile returns the p-th percentile (0–100) of sorted values,

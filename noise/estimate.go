@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"voxgamma/internal/selection"
 )
 
 // Estimate is the statistical noise of a dose grid estimated from the grid
@@ -262,7 +263,7 @@ func median(v []float64) float64 {
 	if n == 0 {
 		return math.NaN()
 	}
-	m := selectKth(v, n/2)
+	m := selection.Kth(v, n/2)
 	if n%2 == 1 {
 		return m
 	}
@@ -272,46 +273,4 @@ func median(v []float64) float64 {
 		lo = math.Max(lo, x)
 	}
 	return (lo + m) / 2
-}
-
-// selectKth reorders v so that v[k] is its k-th smallest value (0-based),
-// with no larger value before it and no smaller one after, and returns it.
-func selectKth(v []float64, k int) float64 {
-	lo, hi := 0, len(v)-1
-	for lo < hi {
-		mid := lo + (hi-lo)/2
-		if v[mid] < v[lo] {
-			v[mid], v[lo] = v[lo], v[mid]
-		}
-		if v[hi] < v[lo] {
-			v[hi], v[lo] = v[lo], v[hi]
-		}
-		if v[hi] < v[mid] {
-			v[hi], v[mid] = v[mid], v[hi]
-		}
-		pivot := v[mid]
-		i, j := lo, hi
-		for i <= j {
-			for v[i] < pivot {
-				i++
-			}
-			for v[j] > pivot {
-				j--
-			}
-			if i <= j {
-				v[i], v[j] = v[j], v[i]
-				i++
-				j--
-			}
-		}
-		switch {
-		case k <= j:
-			hi = j
-		case k >= i:
-			lo = i
-		default:
-			return v[k]
-		}
-	}
-	return v[k]
 }
