@@ -492,19 +492,10 @@ func (ln *line) at(i int) (est, variance float64, width int) {
 	next := 0 // index in scales of the next half-width tested
 	for h := 1; h <= ln.maxHalf; h++ {
 		grew := false
-		if j := i - h; j >= 0 {
-			if w := ln.weight(j, g0, sc); w > 0 {
-				if quartic {
-					s.addQuartic(t[j]-t[i], w, y[j]-y0, v[j])
-				} else {
-					s.add(t[j]-t[i], w, y[j]-y0, v[j])
-				}
-				weighted++
+		for _, j := range [2]int{i - h, i + h} { // the left sample, then the right
+			if j < 0 || j >= n {
+				continue
 			}
-			count++
-			grew = true
-		}
-		if j := i + h; j < n {
 			if w := ln.weight(j, g0, sc); w > 0 {
 				if quartic {
 					s.addQuartic(t[j]-t[i], w, y[j]-y0, v[j])
