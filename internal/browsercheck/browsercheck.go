@@ -128,6 +128,25 @@ func Check(htmlPath, screenshotPath string) (*Report, error) {
 	return CheckWith(htmlPath, screenshotPath, Options{})
 }
 
+// fillDefaults gives opt its defaults: a 1280 × 2000 window, a two-minute
+// timeout and the Chromium FindChromium finds.
+func (opt *Options) fillDefaults() error {
+	if opt.Width <= 0 || opt.Height <= 0 {
+		opt.Width, opt.Height = 1280, 2000
+	}
+	if opt.Timeout <= 0 {
+		opt.Timeout = 2 * time.Minute
+	}
+	if opt.Chromium == "" {
+		p, err := FindChromium()
+		if err != nil {
+			return err
+		}
+		opt.Chromium = p
+	}
+	return nil
+}
+
 // CheckWith is [Check] with options. The checks:
 //   - the page has a title, and at least one figure;
 //   - every figure (outermost <svg>, <img>) has a positive width and height
@@ -143,18 +162,8 @@ func Check(htmlPath, screenshotPath string) (*Report, error) {
 //     security policy violations);
 //   - the screenshot has the window's size and is not blank.
 func CheckWith(htmlPath, screenshotPath string, opt Options) (*Report, error) {
-	if opt.Width <= 0 || opt.Height <= 0 {
-		opt.Width, opt.Height = 1280, 2000
-	}
-	if opt.Timeout <= 0 {
-		opt.Timeout = 2 * time.Minute
-	}
-	if opt.Chromium == "" {
-		p, err := FindChromium()
-		if err != nil {
-			return nil, err
-		}
-		opt.Chromium = p
+	if err := opt.fillDefaults(); err != nil {
+		return nil, err
 	}
 	abs, err := filepath.Abs(htmlPath)
 	if err != nil {

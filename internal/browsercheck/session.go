@@ -66,18 +66,8 @@ type cdpMessage struct {
 // window of opt's size and waits for the page's load event. Close it when
 // done.
 func Open(htmlPath string, opt Options) (*Session, error) {
-	if opt.Width <= 0 || opt.Height <= 0 {
-		opt.Width, opt.Height = 1280, 2000
-	}
-	if opt.Timeout <= 0 {
-		opt.Timeout = 2 * time.Minute
-	}
-	if opt.Chromium == "" {
-		p, err := FindChromium()
-		if err != nil {
-			return nil, err
-		}
-		opt.Chromium = p
+	if err := opt.fillDefaults(); err != nil {
+		return nil, err
 	}
 	abs, err := filepath.Abs(htmlPath)
 	if err != nil {
