@@ -45,31 +45,70 @@ func NewDVH(name string, dose, weight []float64) (*DVH, error) {
 	if len(dose) != len(weight) {
 		return nil, fmt.Errorf("roi: DVH of %q: %d doses and %d weights", name, len(dose), len(weight))
 	}
-	type dw struct{ d, w float64 }
-	ps := make([]dw, 0, len(dose))
-	h := &DVH{Name: name}
+	b := dvhBuilder{h: &DVH{Name: name}, ps: make([]doseWeight, 0, len(dose))}
 	for q, d := range dose {
-		w := weight[q]
-		if !(w >= 0) || math.IsInf(w, 0) {
-			return nil, fmt.Errorf("roi: DVH of %q: voxel %d has volume %g, want a finite value ≥ 0", name, q, w)
+		if err := b.add(q, d, weight[q]); err != nil {
+			return nil, err
 		}
-		if w == 0 {
-			continue
-		}
-		if math.IsNaN(d) {
-			h.ExcludedCC += w
-			continue
-		}
-		if math.IsInf(d, 0) {
-			return nil, fmt.Errorf("roi: DVH of %q: voxel %d has dose %g", name, q, d)
-		}
-		ps = append(ps, dw{d, w})
 	}
+	return b.finish()
+}
+
+// RegionDVH builds the DVH of dose over region r: each voxel of r.Index
+// weighs its fraction times its volume. dose must have the geometry of the
+// grid r was made on (resample it first otherwise).
+func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
+	if dose == nil || r == nil || r.grid == nil || r.sizes == nil {
+		return nil, errors.New("roi: RegionDVH needs a dose grid and a region made by this package")
+	}
+	if !dose.SameGeometry(r.grid) {
+		return nil, fmt.Errorf("roi: DVH of %q: the dose grid's geometry differs from the grid the ROI was rasterised on; resample the dose onto it first", r.Name)
+	}
+	// The pairs are made straight from the grid: a body-sized region holds
+	// millions of voxels, and no intermediate copy of its doses is kept.
+	b := dvhBuilder{h: &DVH{Name: r.Name}, ps: make([]doseWeight, 0, len(r.Index))}
+	for q, n := range r.Index {
+		if err := b.add(q, float64(dose.Data[n]), float64(r.Fraction[q])*r.sizes.Volume(n)/1000); err != nil {
+			return nil, err
+		}
+	}
+	return b.finish()
+}
+
+// doseWeight is one voxel of a DVH being built: its dose and volume.
+type doseWeight struct{ d, w float64 }
+
+// dvhBuilder collects the voxels of a DVH (see [NewDVH] for the rules).
+type dvhBuilder struct {
+	h  *DVH
+	ps []doseWeight
+}
+
+// add takes voxel q with dose d (Gy) and volume w (cm³).
+func (b *dvhBuilder) add(q int, d, w float64) error {
+	if !(w >= 0) || math.IsInf(w, 0) {
+		return fmt.Errorf("roi: DVH of %q: voxel %d has volume %g, want a finite value ≥ 0", b.h.Name, q, w)
+	}
+	switch {
+	case w == 0:
+	case math.IsNaN(d):
+		b.h.ExcludedCC += w
+	case math.IsInf(d, 0):
+		return fmt.Errorf("roi: DVH of %q: voxel %d has dose %g", b.h.Name, q, d)
+	default:
+		b.ps = append(b.ps, doseWeight{d, w})
+	}
+	return nil
+}
+
+// finish sorts the voxels by decreasing dose and fills the DVH.
+func (b *dvhBuilder) finish() (*DVH, error) {
+	h, ps := b.h, b.ps
 	if len(ps) == 0 {
-		return nil, fmt.Errorf("roi: DVH of %q: %w", name, ErrEmpty)
+		return nil, fmt.Errorf("roi: DVH of %q: %w", h.Name, ErrEmpty)
 	}
 	// No NaN is left, so plain comparisons order the doses totally.
-	slices.SortFunc(ps, func(a, b dw) int {
+	slices.SortFunc(ps, func(a, b doseWeight) int {
 		switch {
 		case a.d > b.d:
 			return -1
@@ -83,30 +122,15 @@ func NewDVH(name string, dose, weight []float64) (*DVH, error) {
 	for q, p := range ps {
 		h.Dose[q], w[q] = p.d, p.w
 	}
-	h.Cum = floats.CumSum(make([]float64, len(w)), w)
-	h.TotalCC = h.Cum[len(h.Cum)-1]
+	b.ps = nil
 	h.Mean = stat.Mean(h.Dose, w)
+	// The cumulative volumes take the weights' place (gonum's CumSum reads
+	// each s[i] before it writes dst[i], in Go and in assembly); the
+	// in-place sum is checked against a separate one in the tests.
+	h.Cum = floats.CumSum(w, w)
+	h.TotalCC = h.Cum[len(h.Cum)-1]
 	h.Max, h.Min = h.Dose[0], h.Dose[len(h.Dose)-1]
 	return h, nil
-}
-
-// RegionDVH builds the DVH of dose over region r: each voxel of r.Index
-// weighs its fraction times its volume. dose must have the geometry of the
-// grid r was made on (resample it first otherwise).
-func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
-	if dose == nil || r == nil || r.grid == nil || r.sizes == nil {
-		return nil, errors.New("roi: RegionDVH needs a dose grid and a region made by this package")
-	}
-	if !dose.SameGeometry(r.grid) {
-		return nil, fmt.Errorf("roi: DVH of %q: the dose grid's geometry differs from the grid the ROI was rasterised on; resample the dose onto it first", r.Name)
-	}
-	d := make([]float64, len(r.Index))
-	w := make([]float64, len(r.Index))
-	for q, n := range r.Index {
-		d[q] = float64(dose.Data[n])
-		w[q] = float64(r.Fraction[q]) * r.sizes.Volume(n) / 1000
-	}
-	return NewDVH(r.Name, d, w)
 }
 
 // RankTolerance is the share of a DVH's total volume by which a cumulative

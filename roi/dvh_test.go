@@ -7,6 +7,8 @@ import (
 	"strings"
 	"testing"
 
+	"gonum.org/v1/gonum/floats"
+
 	"voxgamma/phantom"
 	"voxgamma/structure"
 )
@@ -227,4 +229,25 @@ func randomDVHInput(n int, seed uint64) (d, w []float64) {
 		w[q] = 0.001 * (0.05 + rng.Float64())
 	}
 	return d, w
+}
+
+// The DVH builder sums the cumulative volumes in place over the weights
+// (floats.CumSum(w, w)); gonum documents CumSum with a separate
+// destination. The in-place sum must equal the separate one bit for bit,
+// at every length the assembly's four-wide loop and its tail take.
+func TestCumSumInPlace(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 11))
+	for n := 1; n <= 67; n++ {
+		w := make([]float64, n)
+		for i := range w {
+			w[i] = rng.Float64() * 3
+		}
+		want := floats.CumSum(make([]float64, n), w)
+		got := floats.CumSum(w, w)
+		for i := range want {
+			if math.Float64bits(got[i]) != math.Float64bits(want[i]) {
+				t.Fatalf("n=%d: in-place cumulative sum [%d] = %v, separate %v", n, i, got[i], want[i])
+			}
+		}
+	}
 }
