@@ -6,6 +6,7 @@ package roi
 import (
 	"fmt"
 	"math"
+	"slices"
 	"strconv"
 	"strings"
 
@@ -253,3 +254,16 @@ func (r *Region) OverlapSummary() []string {
 
 // maxListedPlanes bounds the planes OverlapSummary lists by z.
 const maxListedPlanes = 10
+
+// reserve gives the region's voxel lists room for about n voxels: the
+// centres n and a sixteenth more, the partial-volume voxels a fifth more
+// (the surface's voxels, partly inside, come on top of the centres). Only
+// capacity changes; more voxels than that simply grow the lists.
+func (r *Region) reserve(n int) {
+	if n <= 0 {
+		return
+	}
+	r.Centres = slices.Grow(r.Centres, n+n/16)
+	r.Index = slices.Grow(r.Index, n+n/5)
+	r.Fraction = slices.Grow(r.Fraction, n+n/5)
+}
