@@ -727,28 +727,31 @@ func (p *Prepared) coveredPercent(reg *roi.Region) *float64 {
 
 // dvhPair computes the dose-volume metrics of both doses over reg.
 func (p *Prepared) dvhPair(reg *roi.Region, s Settings, norm float64) (*result.DVHPair, error) {
+	// Curves on common bins: 0.5 % of the normalisation dose.
+	bin := norm / 200
+	// One DVH at a time: each holds every voxel of the ROI (a body outline's
+	// millions), and only its metrics and binned curve are kept; the
+	// reference's is not used once the evaluated one is being built.
 	rh, err := roi.RegionDVH(p.Reference, reg)
 	if err != nil {
 		return nil, err
 	}
+	rm := rh.Metrics(s.VDoses)
+	rc, rcErr := rh.Curve(bin)
 	eh, err := roi.RegionDVH(p.EvaluatedOnRef, reg)
 	if err != nil {
 		// The whole ROI lies outside the evaluated grid: no evaluated DVH.
-		rm := rh.Metrics(s.VDoses)
 		return &result.DVHPair{Reference: toDVHStats(rm), Evaluated: nanDVHStats(s.VDoses), DifferenceGy: nanDVHStats(s.VDoses), DifferencePercent: nanDVHStats(s.VDoses)}, nil
 	}
-	rm, em := rh.Metrics(s.VDoses), eh.Metrics(s.VDoses)
+	em := eh.Metrics(s.VDoses)
 	pair := &result.DVHPair{Reference: toDVHStats(rm), Evaluated: toDVHStats(em)}
 	diffs, err := roi.CompareMetrics(rm, em, 0)
 	if err != nil {
 		return nil, err
 	}
 	pair.DifferenceGy, pair.DifferencePercent = differenceStats(diffs, s.VDoses)
-	// Curves on common bins: 0.5 % of the normalisation dose.
-	bin := norm / 200
-	rc, err := rh.Curve(bin)
-	if err != nil {
-		return nil, err
+	if rcErr != nil {
+		return nil, rcErr
 	}
 	ec, err := eh.Curve(bin)
 	if err != nil {
