@@ -405,6 +405,26 @@ func (pt *tpoint) curvatureC(lo, h [3]float64, c float64) float64 {
 // the point of the box that minimises the bound.
 func (pt *tpoint) slabLB(b *bnet, lo, h [3]float64) (float64, [3]float64) {
 	alpha, beta, delta := b.linearFit()
+	return pt.slabOf(alpha, beta, delta, lo, h)
+}
+
+// cellSlab is bound 2 over the whole of cell c, from the fit the worker's
+// cache keeps of the cell: most candidate cells of a point far from
+// passing are settled by it before their branch and bound starts.
+func (s *searcher) cellSlab(pt *tpoint, c [3]int, ts *tscratch) float64 {
+	e := s.cacheOf(ts, c)
+	if !e.fit {
+		e.alpha, e.beta, e.delta = e.net.linearFit()
+		e.fit = true
+	}
+	lo, h := s.cellBox(c)
+	v, _ := pt.slabOf(e.alpha, e.beta, e.delta, lo, h)
+	return v
+}
+
+// slabOf is bound 2 over the box lo … lo+h for a patch whose linear fit is
+// α + β·(t − ½) (t the box's own coordinates) within ±δ.
+func (pt *tpoint) slabOf(alpha float64, beta [3]float64, delta float64, lo, h [3]float64) (float64, [3]float64) {
 	var gw, ylo, yhi [3]float64
 	e := alpha - pt.dr
 	for a := 0; a < 3; a++ {
@@ -567,8 +587,13 @@ type tscratch struct {
 type cellCache struct {
 	key      int32 // 1 + the cell's index; 0 for an empty slot
 	hess     bool  // hlo, hhi computed
+	fit      bool  // alpha, beta, delta computed
 	net      bnet
 	hlo, hhi [6]float64
+	// The net's least-squares linear fit and largest deviation from it
+	// (bnet.linearFit): E lies within the fit ± delta over the whole cell.
+	alpha, delta float64
+	beta         [3]float64
 }
 
 // netCache is the number of cell nets a worker keeps (a power of two).
@@ -672,8 +697,10 @@ func (s *searcher) certify(pt *tpoint, ts *tscratch) {
 					continue
 				}
 				if n == maxCand {
-					s.searchCell(pt, [3]int{ci, cj, ck}, ts)
-					T = s.target(pt.best2)
+					if cl := [3]int{ci, cj, ck}; s.cellSlab(pt, cl, ts) < T {
+						s.searchCell(pt, cl, ts)
+						T = s.target(pt.best2)
+					}
 					continue
 				}
 				// Push onto the heap.
@@ -712,10 +739,15 @@ func (s *searcher) certify(pt *tpoint, ts *tscratch) {
 			i = child
 		}
 		ts.candLB[i], ts.candCell[i] = last, lastCell
-		if lb >= s.target(pt.best2) {
+		T := s.target(pt.best2)
+		if lb >= T {
 			break
 		}
-		s.searchCell(pt, [3]int{int(cl[0]), int(cl[1]), int(cl[2])}, ts)
+		c := [3]int{int(cl[0]), int(cl[1]), int(cl[2])}
+		if s.cellSlab(pt, c, ts) >= T {
+			continue
+		}
+		s.searchCell(pt, c, ts)
 	}
 }
 
@@ -1062,7 +1094,7 @@ func (s *searcher) cacheOf(ts *tscratch, c [3]int) *cellCache {
 	key := int32(c[0]+s.sp.ax[0].nc*(c[1]+s.sp.ax[1].nc*c[2])) + 1
 	e := &ts.cells[uint32(key)*2654435761>>20&(netCache-1)] // Knuth's multiplicative hash
 	if e.key != key {
-		e.key, e.hess = key, false
+		e.key, e.hess, e.fit = key, false, false
 		s.sp.cellNet(c, &e.net)
 	}
 	return e
