@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"runtime"
+	"runtime/debug"
 	"sort"
 	"strings"
 	"time"
@@ -304,6 +305,12 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	opt := gamma.Options{Workers: s.Workers, Progress: s.Progress, Method: s.Method, Interpolation: s.Interpolation}
 	t0 := time.Now()
 	compare := func(eval *volume.Grid) (*gamma.Result, error) {
+		// The engine's own structures (the spline's coefficients and cell
+		// bounds, about 8 bytes per evaluated voxel) are garbage once it
+		// returns: collect them and hand their pages back now, so that the
+		// maps and statistics made next reuse that memory rather than grow
+		// the process (BENCHMARKS.md, "Fast when it matters").
+		defer debug.FreeOSMemory()
 		if p.Reference != nil {
 			return gamma.CompareGrids(ctx, p.Reference, eval, s.Criteria, opt)
 		}
