@@ -11,6 +11,7 @@ import (
 	"os"
 	"strconv"
 	"strings"
+	"sync"
 
 	"voxgamma/dicomio"
 	"voxgamma/gamma"
@@ -164,33 +165,50 @@ func Load(in Inputs) (*Loaded, error) {
 	if err != nil {
 		return nil, err
 	}
+	// Both doses are read at once, the reference on its own goroutine:
+	// decoding and hashing each file is single-threaded work. Everything
+	// the reference's reading records goes into its own Loaded and joins
+	// this one afterwards, in the order a sequential reading gives (the
+	// evaluated dose's inputs and messages first); the errors come in that
+	// order too.
+	in.Seen = serialised(in.Seen)
+	structuresPath := in.Structures
+	planPath, planSource := in.Plan, "--plan"
+	var (
+		refPaths, refAccount []string
+		folderRS, folderPlan string
+		refErr               error
+		ref                  *doseRead
+	)
+	if len(refGiven) > 0 {
+		refPaths, folderRS, folderPlan, refAccount, refErr = in.resolveDoses("reference", "reference", refGiven, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
+			Exclude: evalPaths, ExcludeRole: dicomio.EvaluatedRole})
+		if refErr == nil {
+			refErr = distinctDoses(refPaths, evalPaths)
+		}
+		if refErr == nil {
+			ref = startDoseRead(in, "reference", "reference", refPaths)
+		}
+	}
 	l.Notes = append(l.Notes, evalAccount...)
 	if l.Evaluated, l.EvaluatedInfo, l.EvaluatedSet, err = l.loadDose(in, "evaluated", "evaluated dose", evalPaths); err != nil {
+		ref.wait()
 		return nil, err
 	}
 
-	structuresPath := in.Structures
-	planPath, planSource := in.Plan, "--plan"
 	if len(refGiven) > 0 {
-		refPaths, folderRS, folderPlan, account, err := in.resolveDoses("reference", "reference", refGiven, dicomio.ChooseOptions{Role: dicomio.ReferenceRole,
-			Exclude: evalPaths, ExcludeRole: dicomio.EvaluatedRole})
-		if err != nil {
-			return nil, err
+		if refErr != nil {
+			return nil, refErr
 		}
-		l.Notes = append(l.Notes, account...)
+		l.Notes = append(l.Notes, refAccount...)
 		if planPath == "" && folderPlan != "" {
 			planPath, planSource = folderPlan, "reference folder"
 		}
-		for _, r := range refPaths {
-			for _, e := range evalPaths {
-				if r == e || sameFile(r, e) {
-					return nil, badInput("%s is both the reference and the evaluated dose", r)
-				}
-			}
-		}
-		if l.Reference, l.ReferenceInfo, l.ReferenceSet, err = l.loadDose(in, "reference", "reference", refPaths); err != nil {
+		if err := ref.wait(); err != nil {
 			return nil, err
 		}
+		l.join(ref.part)
+		l.Reference, l.ReferenceInfo, l.ReferenceSet = ref.g, ref.info, ref.set
 		if structuresPath == "" && !in.NoStructures {
 			structuresPath = folderRS
 		}
@@ -595,6 +613,83 @@ func (l *Loaded) loadDose(in Inputs, role, label string, paths []string) (*volum
 		l.Warnings = append(l.Warnings, fmt.Sprintf("the %s: %s", label, w))
 	}
 	return g, info, set, nil
+}
+
+// doseRead is a dose being read on its own goroutine (startDoseRead).
+type doseRead struct {
+	done chan struct{}
+	// part receives what reading the dose records (inputs, notes,
+	// warnings, paths, sums); the caller joins it to its Loaded.
+	part *Loaded
+	g    *volume.Grid
+	info *dicomio.DoseInfo
+	set  *dicomio.DoseSet
+	err  error
+}
+
+// startDoseRead starts reading the dose of one role from paths (see
+// loadDose). in.Seen must be safe for concurrent use (serialised).
+func startDoseRead(in Inputs, role, label string, paths []string) *doseRead {
+	r := &doseRead{done: make(chan struct{}), part: &Loaded{}}
+	go func() {
+		defer close(r.done)
+		defer func() {
+			// A fault is an error of this input, as it would be when the
+			// reading ran on the caller's goroutine (dicomio guards its
+			// decoders the same way).
+			if v := recover(); v != nil {
+				r.err = fmt.Errorf("%w: reading the %s %s: internal error: %v", ErrBadInput, label, strings.Join(paths, ", "), v)
+			}
+		}()
+		r.g, r.info, r.set, r.err = r.part.loadDose(in, role, label, paths)
+	}()
+	return r
+}
+
+// wait waits for the reading to end and returns its error; on a nil
+// doseRead it returns nil at once.
+func (r *doseRead) wait() error {
+	if r == nil {
+		return nil
+	}
+	<-r.done
+	return r.err
+}
+
+// join appends what another reading recorded to l, after l's own.
+func (l *Loaded) join(o *Loaded) {
+	l.Inputs = append(l.Inputs, o.Inputs...)
+	l.Warnings = append(l.Warnings, o.Warnings...)
+	l.Notes = append(l.Notes, o.Notes...)
+	l.Paths = append(l.Paths, o.Paths...)
+	l.DoseSums = append(l.DoseSums, o.DoseSums...)
+}
+
+// serialised returns seen made safe for concurrent use (one call at a
+// time), or nil for nil.
+func serialised(seen func(role, path string, dose *dicomio.DoseInfo, set *structure.Set)) func(role, path string, dose *dicomio.DoseInfo, set *structure.Set) {
+	if seen == nil {
+		return nil
+	}
+	var mu sync.Mutex
+	return func(role, path string, dose *dicomio.DoseInfo, set *structure.Set) {
+		mu.Lock()
+		defer mu.Unlock()
+		seen(role, path, dose, set)
+	}
+}
+
+// distinctDoses refuses a file given (or chosen in a folder) as both the
+// reference and the evaluated dose.
+func distinctDoses(refPaths, evalPaths []string) error {
+	for _, r := range refPaths {
+		for _, e := range evalPaths {
+			if r == e || sameFile(r, e) {
+				return badInput("%s is both the reference and the evaluated dose", r)
+			}
+		}
+	}
+	return nil
 }
 
 // partWhich names the beams or fraction group a part holds, e.g.
