@@ -15,6 +15,7 @@ import (
 
 	"voxgamma/dicomio"
 	"voxgamma/gamma"
+	"voxgamma/internal/fault"
 	"voxgamma/noise"
 	"voxgamma/result"
 	"voxgamma/structure"
@@ -192,7 +193,7 @@ func Load(in Inputs) (*Loaded, error) {
 	}
 	l.Notes = append(l.Notes, evalAccount...)
 	if l.Evaluated, l.EvaluatedInfo, l.EvaluatedSet, err = l.loadDose(in, "evaluated", "evaluated dose", evalPaths); err != nil {
-		ref.wait()
+		ref.wait() // nothing reads on after Load returns; its error comes second
 		return nil, err
 	}
 
@@ -634,13 +635,15 @@ func startDoseRead(in Inputs, role, label string, paths []string) *doseRead {
 	go func() {
 		defer close(r.done)
 		defer func() {
-			// A fault is an error of this input, as it would be when the
-			// reading ran on the caller's goroutine (dicomio guards its
-			// decoders the same way).
+			// A panic here cannot reach the command's own recovery, which
+			// runs on another goroutine: it ends as the same kind of
+			// message (dicomio already turns a malformed file's decoding
+			// faults into errors of that file).
 			if v := recover(); v != nil {
-				r.err = fmt.Errorf("%w: reading the %s %s: internal error: %v", ErrBadInput, label, strings.Join(paths, ", "), v)
+				r.err = fmt.Errorf("internal error reading the %s %s: %v", label, strings.Join(paths, ", "), v)
 			}
 		}()
+		fault.Point(fault.ReferenceReader)
 		r.g, r.info, r.set, r.err = r.part.loadDose(in, role, label, paths)
 	}()
 	return r

@@ -159,6 +159,7 @@ func TestCrashCodesPanics(t *testing.T) {
 	}{
 		{"compare", fault.Command + " compare", compareArgs(f.ref, f.eval, f.rs)},
 		{"compare_gamma_worker", fault.GammaWorker, compareArgs(f.ref, f.eval, f.rs)},
+		{"compare_reference_reader", fault.ReferenceReader, compareArgs(f.ref, f.eval, f.rs)},
 		{"sweep", fault.Command + " sweep", []string{"sweep", "--reference", f.ref, "--evaluated", f.eval, "--doses", "3", "--dtas", "2"}},
 		{"sweep_gamma_worker", fault.GammaWorker, []string{"sweep", "--reference", f.ref, "--evaluated", f.eval, "--doses", "3", "--dtas", "2"}},
 		{"demo", fault.Command + " demo", []string{"demo", "--out", demoDir}},

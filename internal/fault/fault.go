@@ -23,6 +23,9 @@ func SetForTest(f func(site string)) (restore func()) {
 const (
 	// GammaWorker: a gamma search worker goroutine, once per block.
 	GammaWorker = "gamma.worker"
+	// ReferenceReader: the goroutine that reads the reference dose while
+	// the evaluated dose is read (analysis.Load).
+	ReferenceReader = "analysis.reference-reader"
 	// KDTreeHelper: a helper goroutine of the k-d tree build.
 	KDTreeHelper = "kdtree.helper"
 	// BatchCase: a batch worker goroutine, before a case's memory estimate.
