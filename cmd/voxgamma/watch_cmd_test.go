@@ -14,6 +14,7 @@ import (
 
 	"voxgamma/batch"
 	"voxgamma/internal/batchtest"
+	"voxgamma/job"
 )
 
 // btSettleAll sets every file under dir an hour into the past: files that
@@ -217,9 +218,9 @@ func TestWatchCmdKeysCannotCollide(t *testing.T) {
 
 // TestWatchCmdMemoryBudget: watch has the batch memory budget. A case
 // whose dose grids are estimated to need more than --max-memory (24×24×16
-// voxels each: 90 + 37 bytes per voxel and 16 MiB, job.EstimateBytes,
-// about 17.1 MiB, against 1 MiB) is not loaded: it is moved aside with the
-// estimate and the budget, exit 1; with the default budget it passes.
+// voxels each, job.EstimateBytes: about 17 MiB, against 1 MiB) is not
+// loaded: it is moved aside with the estimate and the budget, exit 1; with
+// the default budget it passes.
 func TestWatchCmdMemoryBudget(t *testing.T) {
 	dir, out := t.TempDir(), filepath.Join(t.TempDir(), "out")
 	if _, err := batchtest.Write(filepath.Join(dir, "big"), batchtest.Spec{}); err != nil {
@@ -227,7 +228,9 @@ func TestWatchCmdMemoryBudget(t *testing.T) {
 	}
 	btSettleAll(t, dir)
 	status, _, stderr := btRun("watch", dir, "--out", out, "--once", "--settle", "1s", "--poll", "50ms", "--max-memory", "1MiB")
-	if status != exitError || !strings.Contains(stderr, "needs about 17.1 MiB of memory") || !strings.Contains(stderr, "memory budget of 1 MiB") {
+	n := int64(24 * 24 * 16)
+	need := "needs about " + job.FormatBytes(job.EstimateBytes(n, n)) + " of memory"
+	if status != exitError || !strings.Contains(stderr, need) || !strings.Contains(stderr, "memory budget of 1 MiB") {
 		t.Fatalf("exit %d\n%s", status, stderr)
 	}
 	errTxt, err := os.ReadFile(filepath.Join(dir, batch.FailedDir, "big", "error.txt"))
