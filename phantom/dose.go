@@ -12,7 +12,9 @@ type DoseFunc func(p [3]float64) float64
 
 // Fill sets every voxel of g to f at the voxel's centre (patient
 // coordinates), converted to float32. It returns an error when f gives a
-// value that is not finite (NaN or ±Inf), leaving g partly filled.
+// value that is not finite (NaN or ±Inf), leaving g partly filled. The
+// voxels are visited one at a time in storage order (i fastest, then j,
+// then k), so f may keep state, such as a seeded random source.
 func Fill(g *volume.Grid, f DoseFunc) error {
 	if g == nil || f == nil {
 		return errors.New("phantom: Fill needs a grid and a dose function")

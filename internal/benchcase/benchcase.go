@@ -98,7 +98,9 @@ func Reference(s Size) (*volume.Grid, error) {
 	if err != nil {
 		return nil, err
 	}
-	fill(g, plan(s), nil, 0)
+	if err := phantom.Fill(g, plan(s)); err != nil {
+		return nil, err
+	}
 	return g, nil
 }
 
@@ -117,31 +119,21 @@ func Evaluated(s Size, v Variant, seed uint64) (*volume.Grid, error) {
 	shifted := func(p [3]float64) float64 {
 		return v.Scale * f([3]float64{p[0] - v.ShiftMM*n[0], p[1] - v.ShiftMM*n[1], p[2] - v.ShiftMM*n[2]})
 	}
-	var rng *rand.Rand
 	if v.NoisePercent > 0 {
-		rng = rand.New(rand.NewPCG(seed, 15))
-	}
-	fill(g, shifted, rng, v.NoisePercent/100*60)
-	return g, nil
-}
-
-// fill sets every voxel to f at its centre, plus noise of σ = sigma·√(d/60)
-// (60 Gy, the plan's maximum) when rng is set, never below 0.
-func fill(g *volume.Grid, f func([3]float64) float64, rng *rand.Rand, sigma float64) {
-	d := g.Dims()
-	n := 0
-	for k := 0; k < d[2]; k++ {
-		for j := 0; j < d[1]; j++ {
-			for i := 0; i < d[0]; i++ {
-				v := f(g.WorldOf(i, j, k))
-				if rng != nil {
-					v = math.Max(0, v+sigma*math.Sqrt(math.Max(v, 0)/60)*rng.NormFloat64())
-				}
-				g.Data[n] = float32(v)
-				n++
-			}
+		// Noise of σ = σ₆₀·√(d/60 Gy) (60 Gy, the plan's maximum), never
+		// below 0, drawn voxel by voxel in the grid's storage order.
+		rng := rand.New(rand.NewPCG(seed, 15))
+		sigma := v.NoisePercent / 100 * 60
+		clean := shifted
+		shifted = func(p [3]float64) float64 {
+			d := clean(p)
+			return math.Max(0, d+sigma*math.Sqrt(math.Max(d, 0)/60)*rng.NormFloat64())
 		}
 	}
+	if err := phantom.Fill(g, shifted); err != nil {
+		return nil, err
+	}
+	return g, nil
 }
 
 // Files are the paths of one case's files.
