@@ -5,6 +5,7 @@ import (
 	"testing"
 
 	"voxgamma/gamma"
+	"voxgamma/volume"
 )
 
 // BenchmarkCorrectionAccuracy measures, on the fields with exact truth of
@@ -22,64 +23,50 @@ import (
 //	go test -run '^$' -bench CorrectionAccuracy -benchtime 1x ./noise/
 func BenchmarkCorrectionAccuracy(b *testing.B) {
 	c := gamma.Criteria{DosePercent: 3, DTA: 2, ThresholdPercent: 10, NormDose: testDmax}
-	for _, sph := range []bool{false, true} {
-		for _, pen := range []float64{3, 5} {
-			for _, h := range []float64{1, 2, 3} {
-				f := correctionCase(sph, pen)
-				size := 64.0
-				if h > 1 {
-					size = 80
-				}
-				ref, eval := newGrid(b, size, h, 0), newGrid(b, size, h, 0)
-				tc := buildTruth(b, f, ref, eval, c)
-				kind := "planar"
-				if sph {
-					kind = "sphere"
-				}
-				for _, sig := range []float64{0, 1, 2, 3} {
-					b.Run(fmt.Sprintf("%s/pen%gmm/grid%gmm/sigma%g%%", kind, pen, h, sig), func(b *testing.B) {
-						var raw, rawLS, corr gamma.Stats
-						issue := !sph && pen == 3 && h == 1
-						var e Estimate
-						for i := 0; i < b.N; i++ {
-							noisy := eval
-							if sig > 0 {
-								noisy, _ = addNoise(eval, sig, testDmax, uint64(17+10*h+pen+100*sig))
-							}
-							d := mustDose(b, noisy)
-							var err error
-							if e, err = d.Estimate(); err != nil {
-								b.Fatal(err)
-							}
-							rawLS = runGammaFast(b, ref, noisy, c)
-							if issue || sig == 0 {
-								raw = runGamma(b, ref, noisy, c)
-							}
-							corr = raw
-							if e.SigmaPercent >= 0.1 {
-								den, _, err := d.Denoise(d.ModelSigma(e.SigmaPercent, e.MaxDose), FilterOptions{Floor: 0.05 * e.MaxDose})
-								if err != nil {
-									b.Fatal(err)
-								}
-								corr = runGamma(b, ref, den, c)
-							}
+	eachCorrectionField(b, func(name string, sph bool, pen, h float64, f field1D, ref, eval *volume.Grid) {
+		tc := buildTruth(b, f, ref, eval, c)
+		for _, sig := range []float64{0, 1, 2, 3} {
+			b.Run(fmt.Sprintf("%s/sigma%g%%", name, sig), func(b *testing.B) {
+				var raw, rawLS, corr gamma.Stats
+				issue := !sph && pen == 3 && h == 1
+				var e Estimate
+				for i := 0; i < b.N; i++ {
+					noisy := eval
+					if sig > 0 {
+						noisy, _ = addNoise(eval, sig, testDmax, uint64(17+10*h+pen+100*sig))
+					}
+					d := mustDose(b, noisy)
+					var err error
+					if e, err = d.Estimate(); err != nil {
+						b.Fatal(err)
+					}
+					rawLS = runGammaFast(b, ref, noisy, c)
+					if issue || sig == 0 {
+						raw = runGamma(b, ref, noisy, c)
+					}
+					corr = raw
+					if e.SigmaPercent >= 0.1 {
+						den, _, err := d.Denoise(d.ModelSigma(e.SigmaPercent, e.MaxDose), FilterOptions{Floor: 0.05 * e.MaxDose})
+						if err != nil {
+							b.Fatal(err)
 						}
-						b.ReportMetric(tc.pass, "truth%")
-						if issue || sig == 0 {
-							b.ReportMetric(raw.PassRate, "raw%")
-							b.ReportMetric(raw.Mean, "rawΓ")
-						}
-						b.ReportMetric(rawLS.PassRate, "rawLS%")
-						b.ReportMetric(rawLS.Mean, "rawLSΓ")
-						b.ReportMetric(corr.PassRate, "corrected%")
-						b.ReportMetric(tc.mean, "truthΓ")
-						b.ReportMetric(corr.Mean, "correctedΓ")
-						b.ReportMetric(e.SigmaPercent, "σest%")
-					})
+						corr = runGamma(b, ref, den, c)
+					}
 				}
-			}
+				b.ReportMetric(tc.pass, "truth%")
+				if issue || sig == 0 {
+					b.ReportMetric(raw.PassRate, "raw%")
+					b.ReportMetric(raw.Mean, "rawΓ")
+				}
+				b.ReportMetric(rawLS.PassRate, "rawLS%")
+				b.ReportMetric(rawLS.Mean, "rawLSΓ")
+				b.ReportMetric(corr.PassRate, "corrected%")
+				b.ReportMetric(tc.mean, "truthΓ")
+				b.ReportMetric(corr.Mean, "correctedΓ")
+				b.ReportMetric(e.SigmaPercent, "σest%")
+			})
 		}
-	}
+	})
 }
 
 // BenchmarkCorrectionNoiseFree measures what the filter does to a
@@ -93,39 +80,47 @@ func BenchmarkCorrectionAccuracy(b *testing.B) {
 //	go test -run '^$' -bench CorrectionNoiseFree -benchtime 1x ./noise/
 func BenchmarkCorrectionNoiseFree(b *testing.B) {
 	c := gamma.Criteria{DosePercent: 3, DTA: 2, ThresholdPercent: 10, NormDose: testDmax}
+	eachCorrectionField(b, func(name string, _ bool, _, _ float64, f field1D, ref, eval *volume.Grid) {
+		fillField(ref, f, f.ref)
+		fillField(eval, f, f.eval)
+		clean := runGamma(b, ref, eval, c)
+		for _, sig := range []float64{1, 2, 3} {
+			b.Run(fmt.Sprintf("%s/sigma%g%%", name, sig), func(b *testing.B) {
+				var corr gamma.Stats
+				for i := 0; i < b.N; i++ {
+					d := mustDose(b, eval)
+					den, _, err := d.Denoise(d.ModelSigma(sig, testDmax), FilterOptions{Floor: 0.05 * testDmax})
+					if err != nil {
+						b.Fatal(err)
+					}
+					corr = runGamma(b, ref, den, c)
+				}
+				b.ReportMetric(clean.PassRate, "engine%")
+				b.ReportMetric(corr.PassRate, "filtered%")
+				b.ReportMetric(clean.Mean, "engineΓ")
+				b.ReportMetric(corr.Mean, "filteredΓ")
+			})
+		}
+	})
+}
+
+// eachCorrectionField calls fn for each field of the correction
+// benchmarks (planar and spherical, 3 and 5 mm penumbrae, grids of 1, 2
+// and 3 mm) with its name, its parameters, and empty reference and
+// evaluated grids for it.
+func eachCorrectionField(b *testing.B, fn func(name string, sph bool, pen, h float64, f field1D, ref, eval *volume.Grid)) {
 	for _, sph := range []bool{false, true} {
 		for _, pen := range []float64{3, 5} {
 			for _, h := range []float64{1, 2, 3} {
-				f := correctionCase(sph, pen)
 				size := 64.0
 				if h > 1 {
 					size = 80
 				}
-				ref, eval := newGrid(b, size, h, 0), newGrid(b, size, h, 0)
-				fillField(ref, f, f.ref)
-				fillField(eval, f, f.eval)
-				clean := runGamma(b, ref, eval, c)
 				kind := "planar"
 				if sph {
 					kind = "sphere"
 				}
-				for _, sig := range []float64{1, 2, 3} {
-					b.Run(fmt.Sprintf("%s/pen%gmm/grid%gmm/sigma%g%%", kind, pen, h, sig), func(b *testing.B) {
-						var corr gamma.Stats
-						for i := 0; i < b.N; i++ {
-							d := mustDose(b, eval)
-							den, _, err := d.Denoise(d.ModelSigma(sig, testDmax), FilterOptions{Floor: 0.05 * testDmax})
-							if err != nil {
-								b.Fatal(err)
-							}
-							corr = runGamma(b, ref, den, c)
-						}
-						b.ReportMetric(clean.PassRate, "engine%")
-						b.ReportMetric(corr.PassRate, "filtered%")
-						b.ReportMetric(clean.Mean, "engineΓ")
-						b.ReportMetric(corr.Mean, "filteredΓ")
-					})
-				}
+				fn(fmt.Sprintf("%s/pen%gmm/grid%gmm", kind, pen, h), sph, pen, h, correctionCase(sph, pen), newGrid(b, size, h, 0), newGrid(b, size, h, 0))
 			}
 		}
 	}
