@@ -537,14 +537,14 @@ func defaultColor(i int) [3]uint8 {
 func regionVolume(reg *roi.Region, sizes *roi.VoxelSize) float64 {
 	v := 0.0
 	for i, n := range reg.Index {
-		v += float64(reg.Fraction[i]) * sizes.Volume(n)
+		v += float64(reg.Fraction[i]) * sizes.Volume(int(n))
 	}
 	return v / 1000
 }
 
 // failing returns the volume (cm³) of the failing voxels among indices and
 // their volume-weighted centroid in patient coordinates (nil when none).
-func (p *Prepared) failing(indices []int, gres *gamma.Result) (float64, *[3]float64) {
+func (p *Prepared) failing(indices []int32, gres *gamma.Result) (float64, *[3]float64) {
 	vol := 0.0
 	var c [3]float64
 	for _, n := range indices {
@@ -552,8 +552,8 @@ func (p *Prepared) failing(indices []int, gres *gamma.Result) (float64, *[3]floa
 		if !(st == gamma.Capped || (st == gamma.Evaluated && gres.Gamma[n] > 1)) {
 			continue
 		}
-		v := p.sizes.Volume(n)
-		i, j, k := p.Reference.IJK(n)
+		v := p.sizes.Volume(int(n))
+		i, j, k := p.Reference.IJK(int(n))
 		w := p.Reference.WorldOf(i, j, k)
 		for a := 0; a < 3; a++ {
 			c[a] += v * w[a]
@@ -702,7 +702,7 @@ func (p *Prepared) coveredPercent(reg *roi.Region) *float64 {
 	}
 	var all, covered float64
 	for i, n := range reg.Index {
-		v := float64(reg.Fraction[i]) * p.sizes.Volume(n)
+		v := float64(reg.Fraction[i]) * p.sizes.Volume(int(n))
 		all += v
 		if !math.IsNaN(float64(p.EvaluatedOnRef.Data[n])) {
 			covered += v
@@ -711,7 +711,7 @@ func (p *Prepared) coveredPercent(reg *roi.Region) *float64 {
 	if all == 0 {
 		// Centres only (contours thinner than the sub-samples).
 		for _, n := range reg.Centres {
-			v := p.sizes.Volume(n)
+			v := p.sizes.Volume(int(n))
 			all += v
 			if !math.IsNaN(float64(p.EvaluatedOnRef.Data[n])) {
 				covered += v
@@ -900,7 +900,7 @@ func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, 
 	pts := make([]gamma.Point, 0, len(freg.Centres))
 	outside := 0
 	for _, n := range freg.Centres {
-		i, j, k := fine.IJK(n)
+		i, j, k := fine.IJK(int(n))
 		w := fine.WorldOf(i, j, k)
 		d, ok := ref.Sample(w)
 		if !ok {

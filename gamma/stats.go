@@ -37,9 +37,9 @@ func (r *Result) StatsAll() Stats { return r.stats(nil, true) }
 
 // StatsOver summarises the reference points listed in indices (none when
 // indices is empty).
-func (r *Result) StatsOver(indices []int) Stats { return r.stats(indices, false) }
+func (r *Result) StatsOver(indices []int32) Stats { return r.stats(indices, false) }
 
-func (r *Result) stats(indices []int, all bool) Stats {
+func (r *Result) stats(indices []int32, all bool) Stats {
 	var s Stats
 	n := 0
 	count := func(i int) {
@@ -53,7 +53,7 @@ func (r *Result) stats(indices []int, all bool) Stats {
 		}
 	} else {
 		for _, i := range indices {
-			count(i)
+			count(int(i))
 		}
 	}
 	values := make([]float64, 0, n)
@@ -81,7 +81,7 @@ func (r *Result) stats(indices []int, all bool) Stats {
 		}
 	} else {
 		for _, n := range indices {
-			add(n)
+			add(int(n))
 		}
 	}
 	s.Evaluated = len(values)

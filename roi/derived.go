@@ -83,6 +83,9 @@ func Isodose(ref *volume.Grid, percent, norm float64, opt Options) (*Region, err
 	if !(percent > 0) || math.IsInf(percent, 0) || !(norm > 0) || math.IsInf(norm, 0) {
 		return nil, fmt.Errorf("roi: isodose %g %% of %g Gy: want a positive percentage of a positive normalisation dose", percent, norm)
 	}
+	if err := indexable(ref); err != nil {
+		return nil, err
+	}
 	sizes, err := NewVoxelSize(ref, opt)
 	if err != nil {
 		return nil, err
@@ -98,8 +101,8 @@ func Isodose(ref *volume.Grid, percent, norm float64, opt Options) (*Region, err
 	}
 	for n, v := range ref.Data {
 		if float64(v) >= level {
-			r.Centres = append(r.Centres, n)
-			r.Index = append(r.Index, n)
+			r.Centres = append(r.Centres, int32(n))
+			r.Index = append(r.Index, int32(n))
 			r.Fraction = append(r.Fraction, 1)
 		}
 	}
@@ -111,8 +114,9 @@ func Isodose(ref *volume.Grid, percent, norm float64, opt Options) (*Region, err
 func (r *Region) setBox() {
 	r.Box = emptyBox()
 	d := r.grid.Dims()
-	for _, l := range [2][]int{r.Centres, r.Index} {
-		for _, n := range l {
+	for _, l := range [2][]int32{r.Centres, r.Index} {
+		for _, n32 := range l {
+			n := int(n32)
 			i := n % d[0]
 			m := n / d[0]
 			r.Box.add(i, m%d[1], m/d[1])
@@ -121,8 +125,8 @@ func (r *Region) setBox() {
 }
 
 // unionInts merges two increasing lists without duplicates.
-func unionInts(a, b []int) []int {
-	out := make([]int, 0, len(a)+len(b))
+func unionInts(a, b []int32) []int32 {
+	out := make([]int32, 0, len(a)+len(b))
 	i, j := 0, 0
 	for i < len(a) || j < len(b) {
 		switch {
@@ -143,8 +147,8 @@ func unionInts(a, b []int) []int {
 
 // unionMax merges two increasing index lists with their fractions, keeping
 // the larger fraction where both have the voxel.
-func unionMax(ia []int, fa []float32, ib []int, fb []float32) ([]int, []float32) {
-	oi := make([]int, 0, len(ia)+len(ib))
+func unionMax(ia []int32, fa []float32, ib []int32, fb []float32) ([]int32, []float32) {
+	oi := make([]int32, 0, len(ia)+len(ib))
 	of := make([]float32, 0, len(ia)+len(ib))
 	i, j := 0, 0
 	for i < len(ia) || j < len(ib) {

@@ -39,7 +39,7 @@ func TestDerivedRegions(t *testing.T) {
 	}
 	a, b := regs[0], regs[1]
 	// Centre union: every centre of either, nothing else.
-	want := map[int]bool{}
+	want := map[int32]bool{}
 	for _, n := range append(slices.Clone(a.Centres), b.Centres...) {
 		want[n] = true
 	}
@@ -48,7 +48,7 @@ func TestDerivedRegions(t *testing.T) {
 	}
 	// Fractions: the maximum of the two; the union's volume is below the sum
 	// (they overlap) and above either.
-	fr := func(r *Region, n int) float32 {
+	fr := func(r *Region, n int32) float32 {
 		if q, ok := slices.BinarySearch(r.Index, n); ok {
 			return r.Fraction[q]
 		}
@@ -95,7 +95,7 @@ func TestDerivedRegions(t *testing.T) {
 	}
 	r50 := 6 * math.Sqrt(2*math.Ln2)
 	for n, v := range g.Data {
-		_, in := slices.BinarySearch(iso.Centres, n)
+		_, in := slices.BinarySearch(iso.Centres, int32(n))
 		if in != (v >= 30) {
 			t.Fatalf("isodose membership of voxel %d (dose %g) is %v", n, v, in)
 		}

@@ -68,7 +68,7 @@ func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
 	// millions of voxels, and no intermediate copy of its doses is kept.
 	b := dvhBuilder{h: &DVH{Name: r.Name}, ps: make([]doseWeight, 0, len(r.Index))}
 	for q, n := range r.Index {
-		if err := b.add(q, float64(dose.Data[n]), float64(r.Fraction[q])*r.sizes.Volume(n)/1000); err != nil {
+		if err := b.add(q, float64(dose.Data[n]), float64(r.Fraction[q])*r.sizes.Volume(int(n))/1000); err != nil {
 			return nil, err
 		}
 	}

@@ -72,7 +72,7 @@ func TestDVHAgainstNumpy(t *testing.T) {
 	var d1, w1 []float64
 	for q, n := range reg.Index {
 		d1 = append(d1, float64(g.Data[n]))
-		w1 = append(w1, float64(reg.Fraction[q])*reg.Sizes().Volume(n)/1000)
+		w1 = append(w1, float64(reg.Fraction[q])*reg.Sizes().Volume(int(n))/1000)
 	}
 	d2, w2 := randomDVHInput(200_000, 11)
 

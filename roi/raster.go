@@ -85,6 +85,9 @@ func NewRasteriser(g *volume.Grid, opt Options) (*Rasteriser, error) {
 	if p := g.Axis(2).Patient; p != 2 {
 		return nil, fmt.Errorf("roi: the dose grid's frames (index axis k) run along patient %c, not z: axial contours cannot be rasterised onto it", "xyz"[p])
 	}
+	if err := indexable(g); err != nil {
+		return nil, err
+	}
 	single, err := singleThickness(g, opt)
 	if err != nil {
 		return nil, err
@@ -335,6 +338,17 @@ func (z *Rasteriser) measure(planes []plane, reg *Region) {
 	reg.OutsideCC = math.Max(0, total-inside) / 1000
 }
 
+// indexable refuses a grid whose voxels a Region's int32 positions cannot
+// all name (2³¹ or more voxels: 2048 × 1024 × 1024, far beyond any dose
+// grid).
+func indexable(g *volume.Grid) error {
+	d := g.Dims()
+	if n := int64(d[0]) * int64(d[1]) * int64(d[2]); n > math.MaxInt32 {
+		return fmt.Errorf("roi: the dose grid has %d voxels, more than the %d an ROI can index", n, int64(math.MaxInt32))
+	}
+	return nil
+}
+
 // expectedVoxels estimates how many voxels the ROI's centres will cover:
 // the volume its contours enclose inside the grid (measure) over the
 // grid's mean voxel volume. It sizes the region's lists once (reserve)
@@ -546,11 +560,11 @@ func (z *Rasteriser) fill(planes []plane, reg *Region) {
 				a := row + i - I0
 				f, c := acc[a], cen[a]
 				if c {
-					reg.Centres = append(reg.Centres, base+i)
+					reg.Centres = append(reg.Centres, int32(base+i))
 					reg.Box.add(i, j, k)
 				}
 				if f > 0 {
-					reg.Index = append(reg.Index, base+i)
+					reg.Index = append(reg.Index, int32(base+i))
 					reg.Fraction = append(reg.Fraction, float32(math.Min(f, 1)))
 					reg.Box.add(i, j, k)
 				}

@@ -47,7 +47,7 @@ func onPlanes(zs []float64, make func(z float64) []structure.Contour) structure.
 func frameCount(g *volume.Grid, reg *Region, k int) int {
 	n := 0
 	for _, idx := range reg.Centres {
-		if _, _, kk := g.IJK(idx); kk == k {
+		if _, _, kk := g.IJK(int(idx)); kk == k {
 			n++
 		}
 	}
@@ -56,7 +56,7 @@ func frameCount(g *volume.Grid, reg *Region, k int) int {
 
 // insideAt reports whether the centre of voxel (i, j, k) is in the region.
 func insideAt(g *volume.Grid, reg *Region, i, j, k int) bool {
-	_, ok := slices.BinarySearch(reg.Centres, g.Index(i, j, k))
+	_, ok := slices.BinarySearch(reg.Centres, int32(g.Index(i, j, k)))
 	return ok
 }
 
@@ -216,7 +216,7 @@ func TestPlaneRule(t *testing.T) {
 	// Fractions of the voxel (5, 5): frame −1 spans [−1.5, −0.5], half in;
 	// frame 5 spans [4.5, 5.5], half in; frame −2 and 6 out.
 	frac := func(k int) float64 {
-		q, ok := slices.BinarySearch(reg.Index, g.Index(5, 5, k))
+		q, ok := slices.BinarySearch(reg.Index, int32(g.Index(5, 5, k)))
 		if !ok {
 			return 0
 		}
@@ -303,10 +303,10 @@ func TestFlippedGrids(t *testing.T) {
 		c := map[world]bool{}
 		f := map[world]float32{}
 		for _, n := range reg.Centres {
-			c[key(g.WorldOf(g.IJK(n)))] = true
+			c[key(g.WorldOf(g.IJK(int(n))))] = true
 		}
 		for q, n := range reg.Index {
-			f[key(g.WorldOf(g.IJK(n)))] = reg.Fraction[q]
+			f[key(g.WorldOf(g.IJK(int(n))))] = reg.Fraction[q]
 		}
 		return c, f
 	}

@@ -87,13 +87,15 @@ type Region struct {
 
 	// Centres lists, increasing, the Data positions of the voxels whose
 	// centre is inside the ROI: the voxels that count for the ROI's pass
-	// rate. See also [Region.Mask].
-	Centres []int
+	// rate. See also [Region.Mask]. Positions are int32 (4 bytes a voxel
+	// for a body outline's millions): a grid the rasteriser accepts has
+	// fewer than 2³¹ voxels.
+	Centres []int32
 	// Index lists, increasing, the Data positions of the voxels with a
 	// partial-volume fraction > 0, and Fraction their fractions in (0, 1].
 	// A voxel may have its centre inside and a fraction of 0 (a contour
 	// thinner than the sub-sample spacing) or the reverse.
-	Index    []int
+	Index    []int32
 	Fraction []float32
 	// Box bounds every voxel of Centres and Index.
 	Box Box
@@ -147,7 +149,7 @@ func (r *Region) Mask() *volume.Mask {
 func (r *Region) VolumeCC() float64 {
 	var v float64
 	for q, n := range r.Index {
-		v += float64(r.Fraction[q]) * r.sizes.Volume(n)
+		v += float64(r.Fraction[q]) * r.sizes.Volume(int(n))
 	}
 	return v / 1000
 }
@@ -157,7 +159,7 @@ func (r *Region) VolumeCC() float64 {
 func (r *Region) CentreVolumeCC() float64 {
 	var v float64
 	for _, n := range r.Centres {
-		v += r.sizes.Volume(n)
+		v += r.sizes.Volume(int(n))
 	}
 	return v / 1000
 }
