@@ -469,7 +469,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 			r.Source, color = "derived", [3]uint8{90, 90, 200}
 		}
 		r.GammaStats = toGammaStats(gres.StatsOver(reg.Centres))
-		r.VolumeCC = regionVolume(reg, p.sizes)
+		r.VolumeCC = reg.VolumeCC()
 		r.CoveredPercent = p.coveredPercent(reg)
 		r.KindSource = p.kindSource[reg]
 		if src == nil {
@@ -532,14 +532,6 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 func defaultColor(i int) [3]uint8 {
 	palette := [][3]uint8{{220, 50, 50}, {50, 160, 50}, {50, 90, 220}, {200, 160, 0}, {160, 60, 200}, {0, 170, 170}}
 	return palette[i%len(palette)]
-}
-
-func regionVolume(reg *roi.Region, sizes *roi.VoxelSize) float64 {
-	v := 0.0
-	for i, n := range reg.Index {
-		v += float64(reg.Fraction[i]) * sizes.Volume(int(n))
-	}
-	return v / 1000
 }
 
 // failing returns the volume (cm³) of the failing voxels among indices and
