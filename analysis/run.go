@@ -124,14 +124,11 @@ type Outcome struct {
 	Colors [][3]uint8
 }
 
-// Prepared is a loaded comparison with its ROIs rasterised and the evaluated
-// dose resampled onto the reference grid: the part of the work shared by
-// every criteria set of a sweep.
+// Prepared is a loaded comparison with its ROIs rasterised, its scale and
+// noise settled: the part of the work shared by every criteria set of a
+// sweep.
 type Prepared struct {
 	*Loaded
-	// EvaluatedOnRef is the evaluated dose on the reference grid, NaN
-	// outside the evaluated grid.
-	EvaluatedOnRef *volume.Grid
 	// EvaluatedCorrected is the denoised evaluated dose, nil when no noise
 	// correction is made.
 	EvaluatedCorrected *volume.Grid
@@ -148,8 +145,8 @@ type Prepared struct {
 	scaleSource string
 }
 
-// Prepare rasterises the structure set's ROIs onto the reference grid and
-// resamples the evaluated dose onto it. It multiplies the evaluated dose by
+// Prepare rasterises the structure set's ROIs onto the reference grid. It
+// multiplies the evaluated dose by
 // s.ScaleEvaluated when asked, and refuses doses that differ by a
 // whole-number ratio of 2 or more (a per-fraction dose against a plan
 // total), naming the likely factor (see Scale).
@@ -157,7 +154,7 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}, kindSource: map[*roi.Region]string{}}
 	var err error
 	if l.Reference == nil {
-		if err := p.applyScale(s.ScaleEvaluated); err != nil {
+		if err := p.applyScale(s.ScaleEvaluated, nil); err != nil {
 			return nil, err
 		}
 		return p, p.prepareNoise(s)
@@ -175,11 +172,15 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 		}
 		p.warnings = append(p.warnings, msg)
 	}
-	p.EvaluatedOnRef, err = l.Evaluated.ResampleOnto(l.Reference, float32(math.NaN()))
-	if err != nil && err != volume.ErrNoOverlap {
+	// The evaluated dose on the reference grid serves the check of the
+	// doses' ratio here and is then dropped: Run resamples it again once
+	// the engine is done, so that it does not sit in memory beside the
+	// engine's own structures (BENCHMARKS.md, "Fast when it matters").
+	onRef, err := p.evaluatedOnRef()
+	if err != nil {
 		return nil, err
 	}
-	if err := p.applyScale(s.ScaleEvaluated); err != nil {
+	if err := p.applyScale(s.ScaleEvaluated, onRef); err != nil {
 		return nil, err
 	}
 	if err := p.prepareNoise(s); err != nil {
@@ -235,6 +236,16 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 		"volumes and DVHs weight each voxel by the fraction inside it, from %d×%d sub-samples in plane and %d sub-slices",
 		orDefault(s.Raster.InPlane, roi.DefaultInPlane), orDefault(s.Raster.InPlane, roi.DefaultInPlane), orDefault(s.Raster.SubSlices, roi.DefaultSubSlices)))
 	return p, nil
+}
+
+// evaluatedOnRef returns the evaluated dose (as scaled) resampled
+// trilinearly onto the reference grid, NaN outside the evaluated grid.
+func (p *Prepared) evaluatedOnRef() (*volume.Grid, error) {
+	g, err := p.Evaluated.ResampleOnto(p.Reference, float32(math.NaN()))
+	if err != nil && err != volume.ErrNoOverlap {
+		return nil, err
+	}
+	return g, nil
 }
 
 // skippedKinds says which kinds of contours were skipped, e.g.
@@ -375,13 +386,21 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		g := *p.Reference
 		g.Data = gres.Gamma
 		out.Gamma = &g
-		out.Difference = p.Reference.EmptyLike()
-		for n, e := range p.EvaluatedOnRef.Data {
-			out.Difference.Data[n] = e - p.Reference.Data[n]
-		}
-		if rawROIs, err = p.regionResults(ctx, s, gres, graw, out); err != nil {
+		onRef, err := p.evaluatedOnRef()
+		if err != nil {
 			return nil, err
 		}
+		out.Difference = p.Reference.EmptyLike()
+		for n, e := range onRef.Data {
+			out.Difference.Data[n] = e - p.Reference.Data[n]
+		}
+		if rawROIs, err = p.regionResults(ctx, s, gres, graw, onRef, out); err != nil {
+			return nil, err
+		}
+		// The resampled dose is garbage from here (onRef is not used
+		// again): collect it so that the cluster labels reuse its memory
+		// instead of growing the process.
+		runtime.GC()
 		var note string
 		res.Clusters, note = p.clusters(s, gres, out.Regions)
 		if note != "" {
@@ -425,7 +444,7 @@ func toGammaStats(st gamma.Stats) result.GammaStats {
 // and the dose-volume metrics of both doses. With graw (the comparison
 // against the evaluated dose as given, when a noise correction was made)
 // it also returns each ROI's raw Γ statistics, in result order.
-func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *gamma.Result, out *Outcome) ([]result.GammaStats, error) {
+func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *gamma.Result, onRef *volume.Grid, out *Outcome) ([]result.GammaStats, error) {
 	regions := append([]*roi.Region{}, p.regions...)
 	if t, err := roi.AllTargets(p.regions); err != nil {
 		return nil, err
@@ -470,7 +489,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 		}
 		r.GammaStats = toGammaStats(gres.StatsOver(reg.Centres))
 		r.VolumeCC = reg.VolumeCC()
-		r.CoveredPercent = p.coveredPercent(reg)
+		r.CoveredPercent = p.coveredPercent(reg, onRef)
 		r.KindSource = p.kindSource[reg]
 		if src == nil {
 			r.KindSource = "derived"
@@ -510,7 +529,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 			res.Notes = append(res.Notes, fmt.Sprintf("ROI %q evaluated on a %g mm sub-grid of reference points (reference dose interpolated trilinearly): %d points instead of %d voxels", reg.Name, step, st.Evaluated+st.BelowThreshold+st.Outside, len(reg.Centres)))
 		}
 		if r.VolumeCC > 0 {
-			dvh, err := p.dvhPair(reg, s, gres.Criteria.NormDose)
+			dvh, err := p.dvhPair(reg, onRef, s, gres.Criteria.NormDose)
 			if err != nil {
 				return nil, err
 			}
@@ -683,7 +702,7 @@ func regionStatusStats(prev result.ROIStatus, st result.GammaStats) result.ROISt
 // OutsideCC/ContourCC, exact from the contours) times the partial-volume
 // weighted share of its voxels inside the evaluated grid. Nil for a region
 // without volume.
-func (p *Prepared) coveredPercent(reg *roi.Region) *float64 {
+func (p *Prepared) coveredPercent(reg *roi.Region, onRef *volume.Grid) *float64 {
 	inRef := 1.0
 	if reg.ContourCC > 0 {
 		// Areas clipped and unclipped differ by rounding only when the
@@ -696,7 +715,7 @@ func (p *Prepared) coveredPercent(reg *roi.Region) *float64 {
 	for i, n := range reg.Index {
 		v := float64(reg.Fraction[i]) * p.sizes.Volume(int(n))
 		all += v
-		if !math.IsNaN(float64(p.EvaluatedOnRef.Data[n])) {
+		if !math.IsNaN(float64(onRef.Data[n])) {
 			covered += v
 		}
 	}
@@ -705,7 +724,7 @@ func (p *Prepared) coveredPercent(reg *roi.Region) *float64 {
 		for _, n := range reg.Centres {
 			v := p.sizes.Volume(int(n))
 			all += v
-			if !math.IsNaN(float64(p.EvaluatedOnRef.Data[n])) {
+			if !math.IsNaN(float64(onRef.Data[n])) {
 				covered += v
 			}
 		}
@@ -725,7 +744,7 @@ func (p *Prepared) coveredPercent(reg *roi.Region) *float64 {
 }
 
 // dvhPair computes the dose-volume metrics of both doses over reg.
-func (p *Prepared) dvhPair(reg *roi.Region, s Settings, norm float64) (*result.DVHPair, error) {
+func (p *Prepared) dvhPair(reg *roi.Region, onRef *volume.Grid, s Settings, norm float64) (*result.DVHPair, error) {
 	// Curves on common bins: 0.5 % of the normalisation dose.
 	bin := norm / 200
 	// One DVH at a time: each holds every voxel of the ROI (a body outline's
@@ -737,7 +756,7 @@ func (p *Prepared) dvhPair(reg *roi.Region, s Settings, norm float64) (*result.D
 	}
 	rm := rh.Metrics(s.VDoses)
 	rc, rcErr := rh.Curve(bin)
-	eh, err := roi.RegionDVH(p.EvaluatedOnRef, reg)
+	eh, err := roi.RegionDVH(onRef, reg)
 	if err != nil {
 		// The whole ROI lies outside the evaluated grid: no evaluated DVH.
 		return &result.DVHPair{Reference: toDVHStats(rm), Evaluated: nanDVHStats(s.VDoses), DifferenceGy: nanDVHStats(s.VDoses), DifferencePercent: nanDVHStats(s.VDoses)}, nil

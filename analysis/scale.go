@@ -7,6 +7,7 @@ import (
 	"strings"
 
 	"voxgamma/dicomio"
+	"voxgamma/volume"
 )
 
 // Scale is a factor the evaluated dose is multiplied by before the
@@ -62,9 +63,11 @@ const ScaleSample = dicomio.HighDoseFraction
 
 // doseMeans returns the mean reference and mean evaluated dose over the
 // reference points at or above ScaleSample of the reference maximum that
-// the evaluated dose covers, and how many points that is (0 when none). A
+// the evaluated dose covers (onRef: the evaluated dose on the reference
+// grid; unused for measured points), and how many points that is (0 when
+// none). A
 // uniform scale k of the evaluated dose makes their ratio exactly 1/k.
-func (p *Prepared) doseMeans() (ref, eval float64, n int) {
+func (p *Prepared) doseMeans(onRef *volume.Grid) (ref, eval float64, n int) {
 	var sr, se float64
 	if p.Reference != nil {
 		peak, at := p.Reference.Max()
@@ -73,7 +76,7 @@ func (p *Prepared) doseMeans() (ref, eval float64, n int) {
 		}
 		thr := float32(ScaleSample) * peak
 		for i, r := range p.Reference.Data {
-			e := p.EvaluatedOnRef.Data[i]
+			e := onRef.Data[i]
 			if r >= thr && e == e {
 				sr += float64(r)
 				se += float64(e)
@@ -103,12 +106,14 @@ func (p *Prepared) doseMeans() (ref, eval float64, n int) {
 }
 
 // applyScale multiplies the evaluated dose by the factor asked for (the
-// plan's number of fractions for Scale.Fractions), and refuses doses whose
+// plan's number of fractions for Scale.Fractions), and onRef (its
+// resampling onto the reference grid, nil for measured points) with it, and
+// refuses doses whose
 // ratio is close to a whole number of 2 or more: a per-fraction dose
 // against a plan total (or the reverse) is never compared silently, and the
 // likely factor is named. The band (within 5 % of a whole number, as for
 // the normalisation dose) is this tool's choice.
-func (p *Prepared) applyScale(s Scale) error {
+func (p *Prepared) applyScale(s Scale, onRef *volume.Grid) error {
 	factor, source := 1.0, ""
 	switch {
 	case s.Fractions:
@@ -125,9 +130,9 @@ func (p *Prepared) applyScale(s Scale) error {
 		for i := range p.Evaluated.Data {
 			p.Evaluated.Data[i] *= f32
 		}
-		if p.EvaluatedOnRef != nil {
-			for i := range p.EvaluatedOnRef.Data {
-				p.EvaluatedOnRef.Data[i] *= f32
+		if onRef != nil {
+			for i := range onRef.Data {
+				onRef.Data[i] *= f32
 			}
 		}
 		p.scale, p.scaleSource = factor, source
@@ -136,7 +141,7 @@ func (p *Prepared) applyScale(s Scale) error {
 		p.scale, p.scaleSource = 1, source
 		p.notes = append(p.notes, fmt.Sprintf("the evaluated dose was left as read: %s gives a factor of 1", source))
 	}
-	mr, me, n := p.doseMeans()
+	mr, me, n := p.doseMeans(onRef)
 	if n == 0 || !(mr > 0) || !(me > 0) {
 		return nil
 	}
