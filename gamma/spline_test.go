@@ -293,7 +293,7 @@ func TestBernsteinBounds(t *testing.T) {
 		lo, h := s.cellBox(c)
 		mn, mx := b.bounds()
 		ci := c[0] + s.sp.ax[0].nc*(c[1]+s.sp.ax[1].nc*c[2])
-		if slo, shi := s.sp.cellRange(ci); slo > mn || shi < mx {
+		if slo, shi := s.sp.cellRange(ci, c[0], c[1], c[2]); slo > mn || shi < mx {
 			t.Fatalf("cell %v: stored range %g…%g misses the control values %g…%g", c, slo, shi, mn, mx)
 		}
 		alpha, beta, delta := b.linearFit()
@@ -392,5 +392,33 @@ func TestNonFiniteEvaluatedRefused(t *testing.T) {
 				t.Errorf("%v with a %v sample: error %v", interp, bad, err)
 			}
 		}
+	}
+}
+
+// TestDevCode checks the one-byte code of a cell's distance from its
+// anchor: the code decodes to at least the distance (the stored bounds
+// stay bounds), and the code below it to less (the smallest such code).
+func TestDevCode(t *testing.T) {
+	r := rand.New(rand.NewPCG(5, 6))
+	var s spline
+	for u := range s.dev {
+		f := float64(u) / 255
+		s.dev[u] = 66 * f * f
+	}
+	for trial := 0; trial < 100000; trial++ {
+		d := 66 * r.Float64() * r.Float64() * r.Float64()
+		if trial%10 == 0 {
+			d = s.dev[r.IntN(256)] // exactly a table entry
+		}
+		u := s.devCode(d)
+		if s.dev[u] < d {
+			t.Fatalf("d = %g: code %d decodes to %g, below it", d, u, s.dev[u])
+		}
+		if u > 0 && s.dev[u-1] >= d {
+			t.Fatalf("d = %g: code %d is not the smallest (code %d decodes to %g)", d, u, u-1, s.dev[u-1])
+		}
+	}
+	if u := s.devCode(0); u != 0 {
+		t.Fatalf("d = 0: code %d, want 0", u)
 	}
 }

@@ -690,7 +690,7 @@ func (s *searcher) certify(pt *tpoint, ts *tscratch) {
 				if ds2 >= T {
 					continue
 				}
-				lo, hi := s.sp.cellRange(row + ci)
+				lo, hi := s.sp.cellRange(row+ci, ci, cj, ck)
 				gap := max(lo-pt.dr, pt.dr-hi, 0)
 				lb := ds2 + w2*gap*gap
 				if lb >= T {
