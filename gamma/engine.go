@@ -249,7 +249,24 @@ const maxDoseRatio = 1e100
 // blockSize is the number of reference points a worker takes at a time.
 const blockSize = 4096
 
+// compare computes Γ for every point of src against eval and summarises it.
 func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt Options) (*Result, error) {
+	res, err := search(ctx, src, eval, c, opt)
+	if err != nil {
+		return nil, err
+	}
+	// The search's structures (the spline's coefficients and cell bounds,
+	// the k-d tree: 6 bytes and more per evaluated voxel) are garbage now;
+	// collecting them lets the statistics' copy of Γ reuse their memory
+	// rather than raise the process's peak (BENCHMARKS.md, "Fast when it
+	// matters").
+	runtime.GC()
+	res.Stats = res.StatsAll()
+	return res, nil
+}
+
+// search computes Γ (without the statistics) for compare.
+func search(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt Options) (*Result, error) {
 	if err := c.Validate(); err != nil {
 		return nil, fmt.Errorf("gamma: %w", err)
 	}
@@ -437,7 +454,6 @@ func compare(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt
 	if err := ctx.Err(); err != nil {
 		return nil, fmt.Errorf("gamma: %w", err)
 	}
-	res.Stats = res.StatsAll()
 	return res, nil
 }
 
@@ -600,7 +616,9 @@ func (p *pool) run(report bool, fn func(i int, sc *scratch) bool) (int, error) {
 func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 	f := s.f
 	s.nodes = nil
-	mask := make([]bool, len(f.data))
+	// One bit a node: a byte each would be a tenth of the evaluated
+	// grid's size again, at the engine's peak.
+	mask := newBitset(len(f.data))
 	// Seeds, and the box that holds them and their dilation.
 	lo := [3]int{f.n[0], f.n[1], f.n[2]}
 	hi := [3]int{-1, -1, -1}
@@ -614,7 +632,7 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 			c[a] = f.cell(a, q[a])
 			lo[a], hi[a] = min(lo[a], c[a]), max(hi[a], c[a])
 		}
-		mask[c[0]+f.n[0]*(c[1]+f.n[1]*c[2])] = true
+		mask.set(c[0] + f.n[0]*(c[1]+f.n[1]*c[2]))
 	}
 	if hi[0] < 0 {
 		s.tree = kdtree.Build(nil, wHint)
@@ -637,8 +655,8 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 	for k := lo[2]; k <= hi[2]; k++ {
 		for j := lo[1]; j <= hi[1]; j++ {
 			row := f.n[0] * (j + f.n[1]*k)
-			for _, in := range mask[row+lo[0] : row+hi[0]+1] {
-				if in {
+			for i := lo[0]; i <= hi[0]; i++ {
+				if mask.has(row + i) {
 					count++
 				}
 			}
@@ -650,7 +668,7 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 		for j := lo[1]; j <= hi[1]; j++ {
 			row := f.n[0] * (j + f.n[1]*k)
 			for i := lo[0]; i <= hi[0]; i++ {
-				if n := row + i; mask[n] {
+				if n := row + i; mask.has(n) {
 					s.nodes = append(s.nodes, int32(n))
 					coords = append(coords, float32(f.off[0][i]), float32(f.off[1][j]), float32(f.off[2][k]), f.data[n])
 				}
@@ -660,10 +678,22 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 	s.tree = kdtree.Build(coords, wHint)
 }
 
+// bitset is a set of small non-negative integers, one bit each.
+type bitset []uint64
+
+// newBitset returns an empty set for the integers 0 … n−1.
+func newBitset(n int) bitset { return make(bitset, (n+63)/64) }
+
+// has reports whether i is in the set.
+func (b bitset) has(i int) bool { return b[i>>6]&(1<<(i&63)) != 0 }
+
+// set adds i to the set.
+func (b bitset) set(i int) { b[i>>6] |= 1 << (i & 63) }
+
 // dilate sets every element of mask (a grid of dims n) within span samples
 // of a set element along axis a, within the box lo..hi (inclusive), in one
 // pass per line: the steps since the last set element seen from either side.
-func dilate(mask []bool, n, lo, hi [3]int, a, span int) {
+func dilate(mask bitset, n, lo, hi [3]int, a, span int) {
 	stride := [3]int{1, n[0], n[0] * n[1]}
 	// The two axes other than a index the lines.
 	b, c := (a+1)%3, (a+2)%3
@@ -673,22 +703,25 @@ func dilate(mask []bool, n, lo, hi [3]int, a, span int) {
 			base := ib*stride[b] + ic*stride[c]
 			last := -span - 1
 			for i := lo[a]; i <= hi[a]; i++ {
-				if mask[base+i*stride[a]] {
+				if mask.has(base + i*stride[a]) {
 					last = i
 				}
 				out[i-lo[a]] = i-last <= span
 			}
 			last = hi[a] + span + 1
 			for i := hi[a]; i >= lo[a]; i-- {
-				if mask[base+i*stride[a]] {
+				if mask.has(base + i*stride[a]) {
 					last = i
 				}
 				if last-i <= span {
 					out[i-lo[a]] = true
 				}
 			}
+			// out holds every element already set: setting is enough.
 			for i := lo[a]; i <= hi[a]; i++ {
-				mask[base+i*stride[a]] = out[i-lo[a]]
+				if out[i-lo[a]] {
+					mask.set(base + i*stride[a])
+				}
 			}
 		}
 	}

@@ -567,14 +567,17 @@ func TestPercentileSelect(t *testing.T) {
 	r := rand.New(rand.NewPCG(11, 12))
 	for trial := 0; trial < 200; trial++ {
 		n := 1 + r.IntN(300)
-		v := make([]float64, n)
+		// Γ is stored as float32; the sort-based definition works on the
+		// same values in float64.
+		v := make([]float32, n)
+		sorted := make([]float64, n)
 		for i := range v {
-			v[i] = float64(r.IntN(20)) / 7 // many ties
+			v[i] = float32(r.IntN(20)) / 7 // many ties
+			sorted[i] = float64(v[i])
 		}
-		sorted := append([]float64(nil), v...)
 		slices.Sort(sorted)
 		for _, p := range []float64{0, 1, 50, 95, 99, 100} {
-			w := append([]float64(nil), v...)
+			w := append([]float32(nil), v...)
 			if got, want := percentileSelect(w, p), Percentile(sorted, p); got != want {
 				t.Fatalf("n=%d p=%g: select %g, sort %g", n, p, got, want)
 			}

@@ -56,7 +56,10 @@ func (r *Result) stats(indices []int32, all bool) Stats {
 			count(int(i))
 		}
 	}
-	values := make([]float64, 0, n)
+	// Γ is stored as float32: its values are kept so (half the memory of
+	// float64 for a whole grid's points), every sum and difference below is
+	// taken in float64.
+	values := make([]float32, 0, n)
 	add := func(n int) {
 		switch r.Status[n] {
 		case NotSelected:
@@ -67,9 +70,9 @@ func (r *Result) stats(indices []int32, all bool) Stats {
 			s.Outside++
 		case Capped:
 			s.Capped++
-			values = append(values, float64(r.Gamma[n]))
+			values = append(values, r.Gamma[n])
 		case Evaluated:
-			values = append(values, float64(r.Gamma[n]))
+			values = append(values, r.Gamma[n])
 			if r.Gamma[n] <= 1 {
 				s.Passed++
 			}
@@ -90,14 +93,15 @@ func (r *Result) stats(indices []int32, all bool) Stats {
 	return s
 }
 
-func fillDistribution(s *Stats, values []float64) {
+func fillDistribution(s *Stats, values []float32) {
 	nan := math.NaN()
 	s.PassRate, s.Mean, s.Median, s.P95, s.P99, s.Max, s.AboveOneHalf = nan, nan, nan, nan, nan, nan, nan
 	if len(values) == 0 {
 		return
 	}
-	sum, above, mx := 0.0, 0, values[0]
-	for _, v := range values {
+	sum, above, mx := 0.0, 0, float64(values[0])
+	for _, v32 := range values {
+		v := float64(v32)
 		sum += v
 		if v > 1.5 {
 			above++
@@ -119,10 +123,10 @@ func fillDistribution(s *Stats, values []float64) {
 // percentileSelect returns Percentile(sorted(v), p) without sorting v: it
 // selects the two order statistics the linear interpolation needs
 // (Hyndman and Fan definition 7). v is reordered.
-func percentileSelect(v []float64, p float64) float64 {
+func percentileSelect(v []float32, p float64) float64 {
 	h := (float64(len(v)) - 1) * p / 100
 	lo := int(math.Floor(h))
-	a := selection.Kth(v, lo)
+	a := float64(selection.Kth(v, lo))
 	if lo >= len(v)-1 {
 		return a
 	}
@@ -134,7 +138,7 @@ func percentileSelect(v []float64, p float64) float64 {
 			b = x
 		}
 	}
-	return a + (h-float64(lo))*(b-a)
+	return a + (h-float64(lo))*(float64(b)-a)
 }
 
 // Percentile returns the p-th percentile (0–100) of sorted values,

@@ -7,7 +7,7 @@ package selection
 // everything before it ≤ and everything after it ≥, and returns v[k]
 // (Hoare's selection with a median-of-three pivot; expected linear time).
 // v must hold no NaN and 0 ≤ k < len(v).
-func Kth(v []float64, k int) float64 {
+func Kth[T float32 | float64](v []T, k int) T {
 	lo, hi := 0, len(v)-1
 	for lo < hi {
 		mid := lo + (hi-lo)/2

@@ -31,6 +31,14 @@ func TestKthAgainstSort(t *testing.T) {
 			if got != want[k] || v[k] != got {
 				t.Fatalf("%v: k=%d got %g (v[k] %g), sorted %g", c, k, got, v[k], want[k])
 			}
+			// The same values as float32 (Γ's storage type).
+			v32 := make([]float32, len(c))
+			for i, x := range c {
+				v32[i] = float32(x)
+			}
+			if got := Kth(v32, k); got != slices.Sorted(slices.Values(v32))[k] {
+				t.Fatalf("%v: float32 k=%d got %g", c, k, got)
+			}
 			for i := range v {
 				if i < k && v[i] > got || i > k && v[i] < got {
 					t.Fatalf("%v: k=%d not partitioned at %d: %v", c, k, i, v)
