@@ -18,26 +18,26 @@ import (
 const (
 	// BytesPerReferenceVoxel: the reference grid (4, float32), Γ per point
 	// (4, which the Γ map shares) and its status (1), the evaluated dose
-	// resampled onto the reference grid (4), the difference map (4), the
-	// sorted Γ values for the statistics (8, float64), the cluster labels
-	// (4), a margin of 26 for the ROIs (a body-sized ROI with its centre
-	// and partial-volume positions and fractions, 12 bytes per ROI voxel,
-	// and the DVH being built, 32) and, with a noise correction, the raw
-	// comparison's Γ and status (5). The ROI margin is measured, not
-	// derived: comparisons of 256×256×160 and 400×400×200 voxels with
-	// three targets and a body outline filling 63 % of the grid, run with
-	// --max-memory set to the estimate, peaked 14–17 % below it
-	// (BENCHMARKS.md, "Fast when it matters"); a body outline filling the
-	// whole grid needs up to about 16 bytes per voxel more at the moment
-	// its DVH is built.
-	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 8 + 4 + 26 + 5
-	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), the k-d tree
-	// selection mask (1), a margin of 8 for the k-d tree over the evaluated
-	// nodes near points that need it, the cubic B-spline's padded
-	// coefficients (4, float32) and per-cell dose bounds (4, two 16-bit
-	// steps), and for the noise handling the smoothed dose, σ, the denoised
+	// resampled onto the reference grid (4, made after the engine), the
+	// difference map (4), the Γ values selected for the statistics (4,
+	// float32), the cluster labels (4), a margin of 26 for the ROIs (a
+	// body-sized ROI with its centre and partial-volume positions and
+	// fractions, 12 bytes per ROI voxel, and the DVH being built, 32) and,
+	// with a noise correction, the raw comparison's Γ and status (5). The
+	// ROI margin is measured, not derived: comparisons of 256×256×160 and
+	// 400×400×200 voxels with three targets and a body outline filling 63 %
+	// of the grid, run with --max-memory set to the estimate, peaked 10–12 %
+	// below it (BENCHMARKS.md, "Fast when it matters"); a body outline
+	// filling the whole grid needs up to about 16 bytes per voxel more at
+	// the moment its DVH is built.
+	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 4 + 26 + 5
+	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), a margin of
+	// 8 for the k-d tree over the evaluated nodes near points that need it
+	// (and its selection mask, one bit a node), the cubic B-spline's padded
+	// coefficients (4, float32) and per-cell dose bounds (2, a byte each
+	// side), and for the noise handling the smoothed dose, σ, the denoised
 	// dose and its variance (4 each).
-	BytesPerEvaluatedVoxel = 4 + 1 + 8 + 4 + 4 + 16
+	BytesPerEvaluatedVoxel = 4 + 8 + 4 + 2 + 16
 	// FixedBytesPerCase covers decoding buffers, the result document and
 	// the review page's figures.
 	FixedBytesPerCase = 16 << 20
@@ -53,7 +53,7 @@ const (
 // reference grid has nr voxels and whose evaluated grid has ne voxels:
 //
 //	BytesPerReferenceVoxel·nr + BytesPerEvaluatedVoxel·ne + FixedBytesPerCase
-//	= 60·nr + 37·ne + 16 MiB
+//	= 56·nr + 34·ne + 16 MiB
 //
 // It is an admission estimate of the live heap's peak with a body-sized
 // ROI, measured (BENCHMARKS.md, "Fast when it matters"); with small ROIs
