@@ -8,7 +8,6 @@ import (
 	"strings"
 
 	"voxgamma/dicomio"
-	"voxgamma/gamma"
 	"voxgamma/metaimage"
 	"voxgamma/noise"
 	"voxgamma/result"
@@ -260,7 +259,7 @@ const noiseModelText = "σ(D) = σ_max·√(D/D_max) (Monte Carlo variance grows
 // corrected pass rates and the warning, once both comparisons are done.
 // raw is nil when no correction was made (the raw figures are then the
 // result's own).
-func finishNoise(res *result.Result, raw *gamma.Result, rawROIs []result.GammaStats) {
+func finishNoise(res *result.Result, raw *rawFigures, rawROIs []result.GammaStats) {
 	n := res.Noise
 	if n == nil {
 		return
@@ -275,7 +274,7 @@ func finishNoise(res *result.Result, raw *gamma.Result, rawROIs []result.GammaSt
 		}
 		return
 	}
-	n.RawOverall = toGammaStats(raw.Stats)
+	n.RawOverall = toGammaStats(raw.overall)
 	for i, r := range res.ROIs {
 		n.ROIs = append(n.ROIs, result.NoiseROI{Name: r.Name, GammaStats: rawROIs[i]})
 	}

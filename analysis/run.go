@@ -154,7 +154,7 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}, kindSource: map[*roi.Region]string{}}
 	var err error
 	if l.Reference == nil {
-		if err := p.applyScale(s.ScaleEvaluated, nil); err != nil {
+		if err := p.applyScale(s.ScaleEvaluated); err != nil {
 			return nil, err
 		}
 		return p, p.prepareNoise(s)
@@ -172,15 +172,10 @@ func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 		}
 		p.warnings = append(p.warnings, msg)
 	}
-	// The evaluated dose on the reference grid serves the check of the
-	// doses' ratio here and is then dropped: Run resamples it again once
-	// the engine is done, so that it does not sit in memory beside the
+	// The evaluated dose on the reference grid is made by Run once the
+	// engine is done, so that it does not sit in memory beside the
 	// engine's own structures (BENCHMARKS.md, "Fast when it matters").
-	onRef, err := p.evaluatedOnRef()
-	if err != nil {
-		return nil, err
-	}
-	if err := p.applyScale(s.ScaleEvaluated, onRef); err != nil {
+	if err := p.applyScale(s.ScaleEvaluated); err != nil {
 		return nil, err
 	}
 	if err := p.prepareNoise(s); err != nil {
@@ -328,20 +323,31 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		return gamma.ComparePoints(ctx, p.Points, eval, s.Criteria, opt)
 	}
 	// With a noise correction the comparison is made twice: against the
-	// denoised evaluated dose (the result's figures) and against the dose
-	// as given (the raw figures).
-	var gres, graw *gamma.Result
+	// dose as given (the raw figures, of which only the statistics are
+	// kept) and against the denoised evaluated dose (the result's figures).
+	var gres *gamma.Result
+	var raw *rawFigures
+	var regions []*roi.Region
 	var err error
 	if p.EvaluatedCorrected != nil {
-		if graw, err = compare(p.Evaluated); err != nil {
+		if raw, regions, err = p.rawComparison(s, compare); err != nil {
 			return nil, err
 		}
+		// The raw comparison's Γ and status (5 bytes a reference point)
+		// are garbage now: hand their memory back before the second
+		// comparison's is taken.
+		debug.FreeOSMemory()
 		gres, err = compare(p.EvaluatedCorrected)
 	} else {
 		gres, err = compare(p.Evaluated)
 	}
 	if err != nil {
 		return nil, err
+	}
+	if p.Reference != nil && raw == nil {
+		if regions, err = p.resultRegions(s, gres.Criteria.NormDose); err != nil {
+			return nil, err
+		}
 	}
 	gammaSeconds := time.Since(t0).Seconds()
 
@@ -394,7 +400,7 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		for n, e := range onRef.Data {
 			out.Difference.Data[n] = e - p.Reference.Data[n]
 		}
-		if rawROIs, err = p.regionResults(ctx, s, gres, graw, onRef, out); err != nil {
+		if rawROIs, err = p.regionResults(ctx, s, gres, raw, regions, onRef, out); err != nil {
 			return nil, err
 		}
 		// The resampled dose is garbage from here (onRef is not used
@@ -408,7 +414,7 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		}
 	}
 
-	finishNoise(res, graw, rawROIs)
+	finishNoise(res, raw, rawROIs)
 	if s.Checker != nil {
 		res.Rules, res.Verdict = s.Checker.Evaluate(judgedView(res))
 	} else {
@@ -439,12 +445,40 @@ func toGammaStats(st gamma.Stats) result.GammaStats {
 	}
 }
 
-// regionResults adds the derived regions and fills one result.ROI per
-// region: Γ statistics over its centre voxels, failing volume and centroid,
-// and the dose-volume metrics of both doses. With graw (the comparison
-// against the evaluated dose as given, when a noise correction was made)
-// it also returns each ROI's raw Γ statistics, in result order.
-func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *gamma.Result, onRef *volume.Grid, out *Outcome) ([]result.GammaStats, error) {
+// rawFigures is what a result keeps of the comparison against the
+// evaluated dose as given when a noise correction is made: its statistics
+// overall and over each region of resultRegions, in that order.
+type rawFigures struct {
+	overall gamma.Stats
+	rois    []result.GammaStats
+}
+
+// rawComparison runs the comparison against the evaluated dose as given
+// and keeps its figures (and, for a reference grid, the regions they were
+// taken over); its Γ map and status are not kept.
+func (p *Prepared) rawComparison(s Settings, compare func(*volume.Grid) (*gamma.Result, error)) (*rawFigures, []*roi.Region, error) {
+	graw, err := compare(p.Evaluated)
+	if err != nil {
+		return nil, nil, err
+	}
+	raw := &rawFigures{overall: graw.Stats}
+	if p.Reference == nil {
+		return raw, nil, nil
+	}
+	regions, err := p.resultRegions(s, graw.Criteria.NormDose)
+	if err != nil {
+		return nil, nil, err
+	}
+	for _, reg := range regions {
+		raw.rois = append(raw.rois, toGammaStats(graw.StatsOver(reg.Centres)))
+	}
+	return raw, regions, nil
+}
+
+// resultRegions returns the regions a result reports on, in its order: the
+// structure set's ROIs, then the derived ones (all targets, the body) and
+// the isodose regions asked for, at percentages of normDose.
+func (p *Prepared) resultRegions(s Settings, normDose float64) ([]*roi.Region, error) {
 	regions := append([]*roi.Region{}, p.regions...)
 	if t, err := roi.AllTargets(p.regions); err != nil {
 		return nil, err
@@ -457,20 +491,28 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 		regions = append(regions, b)
 	}
 	for _, pct := range s.IsodosePercents {
-		iso, err := roi.Isodose(p.Reference, pct, gres.Criteria.NormDose, s.Raster)
+		iso, err := roi.Isodose(p.Reference, pct, normDose, s.Raster)
 		if err != nil {
 			return nil, err
 		}
 		regions = append(regions, iso)
 	}
+	return regions, nil
+}
+
+// regionResults fills one result.ROI per region of resultRegions: Γ
+// statistics over its centre voxels, failing volume and centroid, and the
+// dose-volume metrics of both doses. With raw (when a noise correction was
+// made) it also returns each ROI's raw Γ statistics, in result order.
+func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Result, raw *rawFigures, regions []*roi.Region, onRef *volume.Grid, out *Outcome) ([]result.GammaStats, error) {
 	subgrid := map[string]bool{}
 	for _, name := range s.SubGridROIs {
 		subgrid[strings.ToLower(name)] = true
 	}
 	found := map[string]bool{}
 	res := out.Result
-	var raw []result.GammaStats
-	for _, reg := range regions {
+	var rawROIs []result.GammaStats
+	for ri, reg := range regions {
 		src := p.sources[reg]
 		r := result.ROI{Name: reg.Name, Number: reg.Number, Kind: reg.Kind.String(), Voxels: len(reg.Centres)}
 		var color [3]uint8
@@ -497,8 +539,8 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 		r.FailingVolumeCC, r.WorstCentroidMM = p.failing(reg.Centres, gres)
 		r.Status, r.StatusDetail = regionStatus(reg, src, r.GammaStats)
 		var rawStats result.GammaStats
-		if graw != nil {
-			rawStats = toGammaStats(graw.StatsOver(reg.Centres))
+		if raw != nil {
+			rawStats = raw.rois[ri]
 		}
 
 		if src != nil && subgrid[strings.ToLower(reg.Name)] && len(reg.Centres) > 0 {
@@ -513,7 +555,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 			if err != nil {
 				return nil, err
 			}
-			if graw != nil {
+			if raw != nil {
 				rst, _, err := p.subGrid(ctx, s, src, reg, gres.Criteria, p.Evaluated)
 				if err != nil {
 					return nil, err
@@ -536,7 +578,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 			r.DVH = dvh
 		}
 		res.ROIs = append(res.ROIs, r)
-		raw = append(raw, rawStats)
+		rawROIs = append(rawROIs, rawStats)
 		out.Regions = append(out.Regions, reg)
 		out.Colors = append(out.Colors, color)
 	}
@@ -545,7 +587,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres, graw *ga
 			res.Warnings = append(res.Warnings, fmt.Sprintf("sub-grid evaluation asked for ROI %q, which is not a rasterised ROI of the structure set", name))
 		}
 	}
-	return raw, nil
+	return rawROIs, nil
 }
 
 func defaultColor(i int) [3]uint8 {

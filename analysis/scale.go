@@ -7,7 +7,6 @@ import (
 	"strings"
 
 	"voxgamma/dicomio"
-	"voxgamma/volume"
 )
 
 // Scale is a factor the evaluated dose is multiplied by before the
@@ -63,11 +62,11 @@ const ScaleSample = dicomio.HighDoseFraction
 
 // doseMeans returns the mean reference and mean evaluated dose over the
 // reference points at or above ScaleSample of the reference maximum that
-// the evaluated dose covers (onRef: the evaluated dose on the reference
-// grid; unused for measured points), and how many points that is (0 when
-// none). A
-// uniform scale k of the evaluated dose makes their ratio exactly 1/k.
-func (p *Prepared) doseMeans(onRef *volume.Grid) (ref, eval float64, n int) {
+// the evaluated dose covers, and how many points that is (0 when none). A
+// uniform scale k of the evaluated dose makes their ratio exactly 1/k. The
+// evaluated dose is sampled (trilinearly) at those points only, not
+// resampled onto the whole reference grid.
+func (p *Prepared) doseMeans() (ref, eval float64, n int) {
 	var sr, se float64
 	if p.Reference != nil {
 		peak, at := p.Reference.Max()
@@ -76,10 +75,13 @@ func (p *Prepared) doseMeans(onRef *volume.Grid) (ref, eval float64, n int) {
 		}
 		thr := float32(ScaleSample) * peak
 		for i, r := range p.Reference.Data {
-			e := onRef.Data[i]
-			if r >= thr && e == e {
+			if r < thr {
+				continue
+			}
+			x, y, z := p.Reference.IJK(i)
+			if e, ok := p.Evaluated.Sample(p.Reference.WorldOf(x, y, z)); ok {
 				sr += float64(r)
-				se += float64(e)
+				se += float64(float32(e)) // as a resampled grid would hold it
 				n++
 			}
 		}
@@ -106,14 +108,12 @@ func (p *Prepared) doseMeans(onRef *volume.Grid) (ref, eval float64, n int) {
 }
 
 // applyScale multiplies the evaluated dose by the factor asked for (the
-// plan's number of fractions for Scale.Fractions), and onRef (its
-// resampling onto the reference grid, nil for measured points) with it, and
-// refuses doses whose
+// plan's number of fractions for Scale.Fractions), and refuses doses whose
 // ratio is close to a whole number of 2 or more: a per-fraction dose
 // against a plan total (or the reverse) is never compared silently, and the
 // likely factor is named. The band (within 5 % of a whole number, as for
 // the normalisation dose) is this tool's choice.
-func (p *Prepared) applyScale(s Scale, onRef *volume.Grid) error {
+func (p *Prepared) applyScale(s Scale) error {
 	factor, source := 1.0, ""
 	switch {
 	case s.Fractions:
@@ -130,18 +130,13 @@ func (p *Prepared) applyScale(s Scale, onRef *volume.Grid) error {
 		for i := range p.Evaluated.Data {
 			p.Evaluated.Data[i] *= f32
 		}
-		if onRef != nil {
-			for i := range onRef.Data {
-				onRef.Data[i] *= f32
-			}
-		}
 		p.scale, p.scaleSource = factor, source
 		p.warnings = append(p.warnings, fmt.Sprintf("the evaluated dose was multiplied by %s before the comparison (%s)", num(factor), source))
 	} else if source != "" {
 		p.scale, p.scaleSource = 1, source
 		p.notes = append(p.notes, fmt.Sprintf("the evaluated dose was left as read: %s gives a factor of 1", source))
 	}
-	mr, me, n := p.doseMeans(onRef)
+	mr, me, n := p.doseMeans()
 	if n == 0 || !(mr > 0) || !(me > 0) {
 		return nil
 	}
