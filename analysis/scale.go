@@ -79,7 +79,7 @@ func (p *Prepared) doseMeans() (ref, eval float64, n int) {
 				continue
 			}
 			x, y, z := p.Reference.IJK(i)
-			if e, ok := p.Evaluated.Sample(p.Reference.WorldOf(x, y, z)); ok {
+			if e, ok := p.Evaluated.Sample(p.Reference.WorldOf(x, y, z)); ok && e == e {
 				sr += float64(r)
 				se += float64(float32(e)) // as a resampled grid would hold it
 				n++
