@@ -146,10 +146,9 @@ type Prepared struct {
 }
 
 // Prepare rasterises the structure set's ROIs onto the reference grid. It
-// multiplies the evaluated dose by
-// s.ScaleEvaluated when asked, and refuses doses that differ by a
-// whole-number ratio of 2 or more (a per-fraction dose against a plan
-// total), naming the likely factor (see Scale).
+// multiplies the evaluated dose by s.ScaleEvaluated when asked, and refuses
+// doses that differ by a whole-number ratio of 2 or more (a per-fraction
+// dose against a plan total), naming the likely factor (see Scale).
 func Prepare(l *Loaded, s Settings) (*Prepared, error) {
 	p := &Prepared{Loaded: l, sources: map[*roi.Region]*structure.ROI{}, kindSource: map[*roi.Region]string{}}
 	var err error
