@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 
+	"voxgamma/internal/selection"
 	"voxgamma/volume"
 )
 
@@ -242,15 +243,76 @@ func (d *Dose) Denoise(sigma []float32, opt FilterOptions) (*volume.Grid, Filter
 			out.Data[n] += d.smooth[n]
 		}
 	}
-	ratios := make([]float64, 0, counted)
-	for n, s := range sigma {
-		if s >= smax/10 && s > 0 && float64(d.smooth[n]) >= floor {
-			ratios = append(ratios, math.Sqrt(float64(v[n]))/float64(s))
+	// The median without holding every ratio (8 bytes a voxel, beside
+	// the dose, σ, the output and its variance: the denoising's peak).
+	st.ResidualSigmaRatio = streamMedian(func(yield func(float64)) {
+		for n, s := range sigma {
+			if s >= smax/10 && s > 0 && float64(d.smooth[n]) >= floor {
+				yield(math.Sqrt(float64(v[n])) / float64(s))
+			}
 		}
-	}
-	st.ResidualSigmaRatio = median(ratios)
+	})
 	return out, st, nil
 }
+
+// streamMedian returns median of the values each visits (none NaN), the
+// same number bit for bit, without holding them all: each is called three
+// times and must visit the same values each time. The first pass finds
+// their count and range, the second counts them in medianBins equal bins,
+// the third keeps only the values of the bins that hold the middle ranks.
+func streamMedian(each func(yield func(float64))) float64 {
+	n, lo, hi := 0, math.Inf(1), math.Inf(-1)
+	each(func(x float64) {
+		n++
+		lo, hi = math.Min(lo, x), math.Max(hi, x)
+	})
+	if n <= medianBins || !(hi > lo) {
+		all := make([]float64, 0, n)
+		each(func(x float64) { all = append(all, x) })
+		return median(all)
+	}
+	// bin is monotone in x, so the bins order the values.
+	width := hi - lo
+	bin := func(x float64) int { return min(medianBins-1, int((x-lo)/width*medianBins)) }
+	var counts [medianBins]int
+	each(func(x float64) { counts[bin(x)]++ })
+	// The ranks median needs: n/2 and, for an even n, n/2 − 1.
+	k := n / 2
+	first := k
+	if n%2 == 0 {
+		first = k - 1
+	}
+	below, b0, b1 := 0, -1, -1
+	for b, c := 0, 0; b < medianBins; b++ {
+		if b0 < 0 && c+counts[b] > first {
+			b0, below = b, c
+		}
+		if c+counts[b] > k {
+			b1 = b
+			break
+		}
+		c += counts[b]
+	}
+	var part []float64
+	each(func(x float64) {
+		if b := bin(x); b >= b0 && b <= b1 {
+			part = append(part, x)
+		}
+	})
+	m := selection.Kth(part, k-below)
+	if n%2 == 1 {
+		return m
+	}
+	// The largest of the lower half, as median takes it.
+	prev := part[0]
+	for _, x := range part[:k-below] {
+		prev = math.Max(prev, x)
+	}
+	return (prev + m) / 2
+}
+
+// medianBins is the number of bins streamMedian counts values in.
+const medianBins = 1 << 12
 
 // line is one line of samples along an axis, with what the fit at each
 // sample needs.
