@@ -309,3 +309,74 @@ func TestReadPoints(t *testing.T) {
 		}
 	}
 }
+
+// TestRawFiguresPerROI checks the figures a noise-corrected comparison
+// keeps of its raw comparison (only statistics are kept, its Γ map is
+// dropped before the second comparison): the raw overall and each ROI's
+// raw statistics, structure-set ROIs, derived ROIs and an isodose region
+// alike, equal those of a comparison of the reference against the
+// evaluated dose as given, recounted over each region's voxels. The doses:
+// the flat field of TestPerROIFromOneMap with a 3 % error in the target
+// and a given σ of 2 %, so that a correction is made.
+func TestRawFiguresPerROI(t *testing.T) {
+	target := phantom.Sphere{Centre: [3]float64{-6, 0, 0}, Radius: 6}
+	oar := phantom.Sphere{Centre: [3]float64{8, 0, 0}, Radius: 3}
+	field := func(p [3]float64) float64 { return 10 - 0.2*p[0] }
+	ref := grid(t, [3]int{31, 21, 21}, [3]float64{-15, -10, -10}, 1, field)
+	eval := grid(t, [3]int{31, 21, 21}, [3]float64{-15, -10, -10}, 1, func(p [3]float64) float64 {
+		d := field(p)
+		if target.Inside(p) {
+			d *= 1.03
+		}
+		return d
+	})
+	in := writeCase(t, ref, eval, []structure.ROI{sphereROI(t, "PTV", "PTV", 1, target), sphereROI(t, "Cord", "ORGAN", 2, oar)})
+	s := Settings{
+		Criteria:        gamma.Criteria{DosePercent: 2, DTA: 2, NormDose: 10, ThresholdPercent: 10},
+		Noise:           NoiseSettings{Handling: NoiseGiven, Percent: 2},
+		IsodosePercents: []float64{110},
+	}
+	l, err := Load(in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := Prepare(l, s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out, err := p.Run(context.Background(), s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	n := out.Result.Noise
+	if n == nil || !n.Corrected {
+		t.Fatalf("no noise correction made: %+v", n)
+	}
+	// The raw comparison, made here on its own.
+	raw, err := gamma.CompareGrids(context.Background(), p.Reference, p.Evaluated, s.Criteria, gamma.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got, want := n.RawOverall, toGammaStats(raw.Stats); got.Evaluated != want.Evaluated || got.Passed != want.Passed || *got.GammaMean != *want.GammaMean {
+		t.Fatalf("raw overall %+v, direct %+v", got, want)
+	}
+	var names []string
+	for _, reg := range out.Regions {
+		names = append(names, reg.Name)
+	}
+	if len(n.ROIs) != len(out.Regions) || len(out.Regions) != 4 || !strings.HasPrefix(names[3], "isodose") {
+		t.Fatalf("%d raw ROI entries for the regions %q (want PTV, Cord, all targets, an isodose region)", len(n.ROIs), names)
+	}
+	// The corrected figures differ from the raw ones (else this test could
+	// not tell them apart).
+	if *out.Result.Overall.GammaMean == *n.RawOverall.GammaMean {
+		t.Fatalf("corrected and raw mean Γ are the same, %v: the case does not tell them apart", *n.RawOverall.GammaMean)
+	}
+	for i, reg := range out.Regions {
+		got, want := n.ROIs[i], toGammaStats(raw.StatsOver(reg.Centres))
+		sameMean := (got.GammaMean == nil) == (want.GammaMean == nil) && (want.GammaMean == nil || *got.GammaMean == *want.GammaMean)
+		if got.Name != reg.Name || got.Evaluated != want.Evaluated || got.Passed != want.Passed || !sameMean {
+			t.Fatalf("ROI %d %q: raw %+v, direct %+v", i, reg.Name, got, want)
+		}
+	}
+}
