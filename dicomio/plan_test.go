@@ -1,12 +1,14 @@
 package dicomio_test
 
 import (
+	"bytes"
 	"encoding/json"
 	"errors"
 	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"runtime"
 	"strings"
 	"testing"
 
@@ -440,5 +442,59 @@ func TestReadPlanBadInput(t *testing.T) {
 				t.Errorf("error %q: want ErrInvalid naming %q and the file", err, c.want)
 			}
 		})
+	}
+}
+
+// TestDelimiterLengths: an Item Delimitation Item or a Sequence
+// Delimitation Item whose value length is not 0 (DICOM PS3.5 section 7.5
+// requires 0) is refused as invalid, in both little-endian encodings,
+// quickly and without a large allocation. FuzzReadPlan found a 1.9 kB plan
+// with a sequence delimiter of length 5 that made the DICOM library read
+// the following bytes out of step and allocate 4 GiB for a misread
+// element before failing.
+func TestDelimiterLengths(t *testing.T) {
+	for _, enc := range []struct {
+		name     string
+		ts       string
+		explicit bool
+	}{{"explicit VR", explicitLE, true}, {"implicit VR", implicitLE, false}} {
+		good := encodeFile(baseRTPlan(), enc.ts, enc.explicit)
+		for _, d := range []struct {
+			name  string
+			bytes []byte
+		}{
+			{"item delimitation", []byte{0xFE, 0xFF, 0x0D, 0xE0, 0, 0, 0, 0}},
+			{"sequence delimitation", []byte{0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0}},
+		} {
+			t.Run(enc.name+"/"+d.name, func(t *testing.T) {
+				at := bytes.Index(good, d.bytes)
+				if at < 0 {
+					t.Fatalf("the encoded plan has no %s item", d.name)
+				}
+				bad := bytes.Clone(good)
+				bad[at+4] = 5
+				path := filepath.Join(t.TempDir(), "RP.dcm")
+				if err := os.WriteFile(path, bad, 0o644); err != nil {
+					t.Fatal(err)
+				}
+				var m0, m1 runtime.MemStats
+				runtime.ReadMemStats(&m0)
+				_, err := dicomio.ReadPlan(path)
+				runtime.ReadMemStats(&m1)
+				if !errors.Is(err, dicomio.ErrInvalid) || !strings.Contains(err.Error(), "value length 5") || !strings.Contains(err.Error(), path) {
+					t.Fatalf("error %v, want ErrInvalid naming the file and the length", err)
+				}
+				if a := m1.TotalAlloc - m0.TotalAlloc; a > 16<<20 {
+					t.Fatalf("refusing a %d-byte file allocated %d MB", len(bad), a>>20)
+				}
+				// The file as written reads.
+				if err := os.WriteFile(path, good, 0o644); err != nil {
+					t.Fatal(err)
+				}
+				if _, err := dicomio.ReadPlan(path); err != nil {
+					t.Fatalf("the unaltered plan: %v", err)
+				}
+			})
+		}
 	}
 }

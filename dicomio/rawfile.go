@@ -440,6 +440,9 @@ func (w *walker) walkElements(off, end int64, depth int, top *topInfo) (int64, e
 			return 0, err
 		}
 		if end < 0 && h.t == tagItemDelimitation {
+			if h.vl != 0 {
+				return 0, delimiterLength(h.t, off, h.vl)
+			}
 			return off + 8, nil
 		}
 		if h.t.Group == 0xFFFE {
@@ -500,6 +503,16 @@ func (w *walker) walkElements(off, end int64, depth int, top *topInfo) (int64, e
 	return off, nil
 }
 
+// delimiterLength is the error for an Item or Sequence Delimitation Item
+// whose value length is not 0, as DICOM PS3.5 section 7.5 requires. Read
+// past such a delimiter, the DICOM library and this walk would disagree
+// about where the following elements start, and the library could then
+// take a misread length of up to 4 GiB as an element's and allocate it
+// before finding the file too short (found by FuzzReadPlan).
+func delimiterLength(t tag.Tag, off int64, vl uint32) error {
+	return invalid(t, "delimitation item at offset %d has value length %d: DICOM PS3.5 section 7.5 requires 0", off, vl)
+}
+
 // walkItems walks the items of a sequence (seq) or the fragments of
 // encapsulated pixel data (!seq) from off; end < 0 means the sequence has
 // undefined length and ends with a Sequence Delimitation Item.
@@ -525,6 +538,11 @@ func (w *walker) walkItems(off, end int64, depth int, seq bool) (int64, error) {
 		t := tag.Tag{Group: binary.LittleEndian.Uint16(b[0:]), Element: binary.LittleEndian.Uint16(b[2:])}
 		vl := binary.LittleEndian.Uint32(b[4:])
 		if t == tagSequenceDelimitation {
+			// Pixel data fragments are never decoded by the library;
+			// a sequence of items is, and must end where the walk ends.
+			if seq && vl != 0 {
+				return 0, delimiterLength(t, off, vl)
+			}
 			return off + 8, nil
 		}
 		if t != tagItem {
