@@ -60,7 +60,8 @@ func sphereROI(t *testing.T, name, typ string, number int, s phantom.Sphere) str
 	return r
 }
 
-func runCase(t *testing.T, in Inputs, s Settings) *Outcome {
+// prepareCase loads and prepares the inputs.
+func prepareCase(t *testing.T, in Inputs, s Settings) *Prepared {
 	t.Helper()
 	l, err := Load(in)
 	if err != nil {
@@ -70,7 +71,12 @@ func runCase(t *testing.T, in Inputs, s Settings) *Outcome {
 	if err != nil {
 		t.Fatal(err)
 	}
-	out, err := p.Run(context.Background(), s)
+	return p
+}
+
+func runCase(t *testing.T, in Inputs, s Settings) *Outcome {
+	t.Helper()
+	out, err := prepareCase(t, in, s).Run(context.Background(), s)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -336,14 +342,7 @@ func TestRawFiguresPerROI(t *testing.T) {
 		Noise:           NoiseSettings{Handling: NoiseGiven, Percent: 2},
 		IsodosePercents: []float64{110},
 	}
-	l, err := Load(in)
-	if err != nil {
-		t.Fatal(err)
-	}
-	p, err := Prepare(l, s)
-	if err != nil {
-		t.Fatal(err)
-	}
+	p := prepareCase(t, in, s)
 	out, err := p.Run(context.Background(), s)
 	if err != nil {
 		t.Fatal(err)
