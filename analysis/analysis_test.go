@@ -60,6 +60,23 @@ func sphereROI(t *testing.T, name, typ string, number int, s phantom.Sphere) str
 	return r
 }
 
+// sphereErrorCase writes a 31 × 21 × 21 grid of 1 mm voxels (x −15 … 15 mm)
+// holding dose field as the reference, the same field multiplied by factor
+// inside the target sphere as the evaluated dose, and a structure set with
+// the target as "PTV" and oar as "Cord".
+func sphereErrorCase(t *testing.T, field phantom.DoseFunc, target, oar phantom.Sphere, factor float64) Inputs {
+	t.Helper()
+	ref := grid(t, [3]int{31, 21, 21}, [3]float64{-15, -10, -10}, 1, field)
+	eval := grid(t, [3]int{31, 21, 21}, [3]float64{-15, -10, -10}, 1, func(p [3]float64) float64 {
+		d := field(p)
+		if target.Inside(p) {
+			d *= factor
+		}
+		return d
+	})
+	return writeCase(t, ref, eval, []structure.ROI{sphereROI(t, "PTV", "PTV", 1, target), sphereROI(t, "Cord", "ORGAN", 2, oar)})
+}
+
 // prepareCase loads and prepares the inputs.
 func prepareCase(t *testing.T, in Inputs, s Settings) *Prepared {
 	t.Helper()
@@ -107,15 +124,7 @@ func TestPerROIFromOneMap(t *testing.T) {
 		}
 		return 10
 	}
-	ref := grid(t, [3]int{31, 21, 21}, [3]float64{-15, -10, -10}, 1, flat)
-	eval := grid(t, [3]int{31, 21, 21}, [3]float64{-15, -10, -10}, 1, func(p [3]float64) float64 {
-		d := flat(p)
-		if target.Inside(p) {
-			d *= 0.95
-		}
-		return d
-	})
-	in := writeCase(t, ref, eval, []structure.ROI{sphereROI(t, "PTV", "PTV", 1, target), sphereROI(t, "Cord", "ORGAN", 2, oar)})
+	in := sphereErrorCase(t, flat, target, oar, 0.95)
 	s := Settings{Criteria: gamma.Criteria{DosePercent: 3, DTA: 2, NormDose: 10, ThresholdPercent: 10}}
 	out := runCase(t, in, s)
 	r := out.Result
@@ -322,21 +331,13 @@ func TestReadPoints(t *testing.T) {
 // raw statistics, structure-set ROIs, derived ROIs and an isodose region
 // alike, equal those of a comparison of the reference against the
 // evaluated dose as given, recounted over each region's voxels. The doses:
-// the flat field of TestPerROIFromOneMap with a 3 % error in the target
-// and a given σ of 2 %, so that a correction is made.
+// a field sloping 0.2 Gy/mm along x, 3 % high in the target sphere, and a
+// given σ of 2 %, so that a correction is made.
 func TestRawFiguresPerROI(t *testing.T) {
 	target := phantom.Sphere{Centre: [3]float64{-6, 0, 0}, Radius: 6}
 	oar := phantom.Sphere{Centre: [3]float64{8, 0, 0}, Radius: 3}
 	field := func(p [3]float64) float64 { return 10 - 0.2*p[0] }
-	ref := grid(t, [3]int{31, 21, 21}, [3]float64{-15, -10, -10}, 1, field)
-	eval := grid(t, [3]int{31, 21, 21}, [3]float64{-15, -10, -10}, 1, func(p [3]float64) float64 {
-		d := field(p)
-		if target.Inside(p) {
-			d *= 1.03
-		}
-		return d
-	})
-	in := writeCase(t, ref, eval, []structure.ROI{sphereROI(t, "PTV", "PTV", 1, target), sphereROI(t, "Cord", "ORGAN", 2, oar)})
+	in := sphereErrorCase(t, field, target, oar, 1.03)
 	s := Settings{
 		Criteria:        gamma.Criteria{DosePercent: 2, DTA: 2, NormDose: 10, ThresholdPercent: 10},
 		Noise:           NoiseSettings{Handling: NoiseGiven, Percent: 2},
