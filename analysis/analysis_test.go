@@ -5,7 +5,9 @@ import (
 	"errors"
 	"math"
 	"path/filepath"
+	"runtime"
 	"strings"
+	"sync/atomic"
 	"testing"
 
 	"voxgamma/dicomio"
@@ -378,5 +380,57 @@ func TestRawFiguresPerROI(t *testing.T) {
 		if got.Name != reg.Name || got.Evaluated != want.Evaluated || got.Passed != want.Passed || !sameMean {
 			t.Fatalf("ROI %d %q: raw %+v, direct %+v", i, reg.Name, got, want)
 		}
+	}
+}
+
+// TestDenoisedDoseReleased checks the memory order of a noise-corrected
+// comparison: the denoised dose is made after the raw comparison and is
+// collected while the second comparison runs (the engine keeps only its
+// interpolant), so that it never sits beside the engine's structures; with
+// a sub-grid ROI, which compares against it again, it is kept to the end.
+// A finalizer on its samples says when it is collected; the engine's
+// progress calls collect garbage. Either way the figures are the same.
+func TestDenoisedDoseReleased(t *testing.T) {
+	target := phantom.Sphere{Centre: [3]float64{-6, 0, 0}, Radius: 6}
+	oar := phantom.Sphere{Centre: [3]float64{8, 0, 0}, Radius: 3}
+	field := func(p [3]float64) float64 { return 10 - 0.2*p[0] }
+	in := sphereErrorCase(t, field, target, oar, 1.03)
+	t.Cleanup(func() { denoisedHook = nil })
+	var means []float64
+	for _, keep := range []bool{false, true} {
+		var made, freed, freedDuring atomic.Bool
+		denoisedHook = func(g *volume.Grid) {
+			made.Store(true)
+			runtime.SetFinalizer(&g.Data[0], func(*float32) { freed.Store(true) })
+		}
+		s := Settings{
+			Criteria: gamma.Criteria{DosePercent: 2, DTA: 2, NormDose: 10, ThresholdPercent: 10},
+			Noise:    NoiseSettings{Handling: NoiseGiven, Percent: 2},
+			Workers:  1,
+			Progress: func(done, total int) {
+				if !made.Load() {
+					return // the raw comparison
+				}
+				runtime.GC()
+				runtime.GC() // one cycle queues the finalizer, the next has run it
+				if freed.Load() {
+					freedDuring.Store(true)
+				}
+			},
+		}
+		if keep {
+			s.SubGridROIs = []string{"PTV"}
+		}
+		out := runCase(t, in, s)
+		if !made.Load() || out.Result.Noise == nil || !out.Result.Noise.Corrected {
+			t.Fatalf("keep %v: no noise correction made", keep)
+		}
+		if freedDuring.Load() == keep {
+			t.Errorf("keep %v: denoised dose collected during the second comparison: %v", keep, freedDuring.Load())
+		}
+		means = append(means, *out.Result.Overall.GammaMean)
+	}
+	if means[0] != means[1] {
+		t.Errorf("overall mean Γ %v without a sub-grid ROI, %v with one", means[0], means[1])
 	}
 }

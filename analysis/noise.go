@@ -84,10 +84,43 @@ const (
 
 // noisePrep is what Prepare found about the evaluated dose's noise.
 type noisePrep struct {
-	info      *result.Noise // without the raw figures, filled in by Run
-	corrected *volume.Grid  // nil when no correction is made
-	warnings  []string
-	notes     []string
+	info *result.Noise // without the raw figures, filled in by Run
+	// correct says that the evaluated dose is to be denoised, which Run
+	// does once the comparison against the dose as given is done (denoise),
+	// so that the denoised dose is not held beside that comparison: with σ
+	// from sigmaMap (Gy, per evaluated voxel) or, when it is nil, from the
+	// noise model at sigmaPercent of dmax.
+	correct            bool
+	sigmaMap           []float32
+	sigmaPercent, dmax float64
+	filter             noise.FilterOptions
+	warnings           []string
+	notes              []string
+}
+
+// denoise returns the evaluated dose eval denoised as Prepare decided, and
+// records the filter's figures in the noise information. It is made anew
+// at each Run (a sweep's criteria sets each run it: a few seconds against
+// the two comparisons' minutes) rather than kept, so that it never sits in
+// memory beside a comparison that does not use it (BENCHMARKS.md, "Fast
+// when it matters").
+func (np *noisePrep) denoise(eval *volume.Grid) (*volume.Grid, error) {
+	d, err := noise.NewDose(eval, np.filter.Workers)
+	if err != nil {
+		return nil, fmt.Errorf("%w: evaluated dose: %w", ErrBadInput, err)
+	}
+	var out *volume.Grid
+	var st noise.FilterStats
+	if np.sigmaMap != nil {
+		out, st, err = d.Denoise(np.sigmaMap, np.filter)
+	} else {
+		out, st, err = d.DenoiseModel(np.sigmaPercent, np.dmax, np.filter)
+	}
+	if err != nil {
+		return nil, err
+	}
+	np.info.Filter = &result.NoiseFilter{MeanWindowSamples: st.MeanWidth, ResidualSigmaRatio: result.Ptr(st.ResidualSigmaRatio), FloorGy: np.filter.Floor}
+	return out, nil
 }
 
 // readUncertaintyMap reads an uncertainty map: an RT Dose (its DoseUnits
@@ -121,7 +154,7 @@ func (p *Prepared) prepareNoise(s Settings) error {
 	if err != nil {
 		return err
 	}
-	p.noise, p.EvaluatedCorrected = np, np.corrected
+	p.noise = np
 	p.warnings = append(p.warnings, np.warnings...)
 	p.notes = append(p.notes, np.notes...)
 	return nil
@@ -196,7 +229,7 @@ func prepareNoise(l *Loaded, s Settings, scale float64) (*noisePrep, error) {
 			np.notes = append(np.notes, "the evaluated dose was declared noise-free (--evaluated-noise 0): no noise correction")
 			return np, nil
 		}
-		sigma = d.ModelSigma(ns.Percent, dmax)
+		np.sigmaPercent = ns.Percent
 	default: // auto
 		info.Model = noiseModelText
 		np.notes = append(np.notes, fmt.Sprintf("evaluated-dose noise handling auto (the default): σ is estimated from the evaluated dose and corrected for from %g %% at the maximum; "+
@@ -220,7 +253,7 @@ func prepareNoise(l *Loaded, s Settings, scale float64) (*noisePrep, error) {
 				est.SigmaPercent, est.UncertaintyPercent, info.Model, MinCorrectedSigmaPercent))
 			return np, nil
 		}
-		sigma = d.ModelSigma(est.SigmaPercent, dmax)
+		np.sigmaPercent = est.SigmaPercent
 	}
 	if info.Source != "estimated" && estErr == nil && *info.SigmaPercent > 0 && est.SigmaPercent > 3*est.UncertaintyPercent {
 		if r := *info.SigmaPercent / est.SigmaPercent; r > 2 || r < 0.5 {
@@ -234,22 +267,17 @@ func prepareNoise(l *Loaded, s Settings, scale float64) (*noisePrep, error) {
 	}
 	np.notes = append(np.notes, "with the noise correction, Γ statistics, the Γ map and the failing clusters come from the comparison against the denoised evaluated dose; "+
 		"DVH metrics and the difference map use the evaluated dose as given, whose noise lowers D98 and D95 and raises D2 and D0.03cc")
-	opt := ns.Filter
-	opt.Workers = s.Workers
+	np.filter = ns.Filter
+	np.filter.Workers = s.Workers
 	// Voxels below half the low-dose threshold are far from any point
 	// evaluated and are left as they are.
-	opt.Floor = s.Criteria.ThresholdPercent / 200 * dmax
-	out, st, err := d.Denoise(sigma, opt)
-	if err != nil {
-		return nil, err
-	}
-	np.corrected = out
+	np.filter.Floor = s.Criteria.ThresholdPercent / 200 * dmax
+	np.correct, np.sigmaMap, np.dmax = true, sigma, dmax
 	info.Corrected = true
 	if info.Method != "" {
 		info.Method += "; "
 	}
 	info.Method += "correction: " + noiseFilterText
-	info.Filter = &result.NoiseFilter{MeanWindowSamples: st.MeanWidth, ResidualSigmaRatio: result.Ptr(st.ResidualSigmaRatio), FloorGy: opt.Floor}
 	return np, nil
 }
 

@@ -129,16 +129,13 @@ type Outcome struct {
 // sweep.
 type Prepared struct {
 	*Loaded
-	// EvaluatedCorrected is the denoised evaluated dose, nil when no noise
-	// correction is made.
-	EvaluatedCorrected *volume.Grid
-	noise              *noisePrep
-	regions            []*roi.Region
-	sources            map[*roi.Region]*structure.ROI
-	kindSource         map[*roi.Region]string
-	sizes              *roi.VoxelSize
-	notes              []string
-	warnings           []string
+	noise      *noisePrep
+	regions    []*roi.Region
+	sources    map[*roi.Region]*structure.ROI
+	kindSource map[*roi.Region]string
+	sizes      *roi.VoxelSize
+	notes      []string
+	warnings   []string
 	// scale is the factor the evaluated dose was multiplied by and
 	// scaleSource who asked for it ("" when nobody did).
 	scale       float64
@@ -327,28 +324,31 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 	var gres *gamma.Result
 	var raw *rawFigures
 	var regions []*roi.Region
+	var corrected *volume.Grid // the denoised evaluated dose, kept for sub-grid ROIs only
+	var denoising time.Duration
 	var err error
-	if p.EvaluatedCorrected != nil {
+	if p.noise.correct {
 		if raw, regions, err = p.rawComparison(s, compare); err != nil {
 			return nil, err
 		}
 		// The raw comparison's Γ and status (5 bytes a reference point)
-		// are garbage now: hand their memory back before the second
-		// comparison's is taken.
+		// are garbage now: hand their memory back before the denoised
+		// dose and the second comparison take theirs.
 		debug.FreeOSMemory()
-		gres, err = compare(p.EvaluatedCorrected)
+		if gres, corrected, denoising, err = p.correctedComparison(compare, len(s.SubGridROIs) > 0); err != nil {
+			return nil, err
+		}
 	} else {
-		gres, err = compare(p.Evaluated)
-	}
-	if err != nil {
-		return nil, err
+		if gres, err = compare(p.Evaluated); err != nil {
+			return nil, err
+		}
 	}
 	if p.Reference != nil && raw == nil {
 		if regions, err = p.resultRegions(s, gres.Criteria.NormDose); err != nil {
 			return nil, err
 		}
 	}
-	gammaSeconds := time.Since(t0).Seconds()
+	gammaSeconds := (time.Since(t0) - denoising).Seconds()
 
 	c := gres.Criteria
 	source := s.NormDoseSource
@@ -399,7 +399,7 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		for n, e := range onRef.Data {
 			out.Difference.Data[n] = e - p.Reference.Data[n]
 		}
-		if rawROIs, err = p.regionResults(ctx, s, gres, raw, regions, onRef, out); err != nil {
+		if rawROIs, err = p.regionResults(ctx, s, gres, raw, regions, onRef, corrected, out); err != nil {
 			return nil, err
 		}
 		// The resampled dose is garbage from here (onRef is not used
@@ -452,6 +452,37 @@ type rawFigures struct {
 	rois    []result.GammaStats
 }
 
+// correctedComparison denoises the evaluated dose and runs the comparison
+// against it. The engine keeps the evaluated samples only while it builds
+// its interpolant, and nothing here holds the denoised dose beyond the call
+// unless keep is set (sub-grid ROIs compare against it again; it is then
+// returned): the second comparison then takes the memory of one
+// (BENCHMARKS.md, "Fast when it matters"). took is the denoising's time.
+func (p *Prepared) correctedComparison(compare func(*volume.Grid) (*gamma.Result, error), keep bool) (gres *gamma.Result, kept *volume.Grid, took time.Duration, err error) {
+	t := time.Now()
+	den, err := p.noise.denoise(p.Evaluated)
+	if err != nil {
+		return nil, nil, 0, err
+	}
+	took = time.Since(t)
+	if denoisedHook != nil {
+		denoisedHook(den)
+	}
+	// The denoising's working maps (the smoothed dose, the variance) are
+	// garbage: return them before the engine takes its memory.
+	debug.FreeOSMemory()
+	if keep {
+		gres, err = compare(den)
+		return gres, den, took, err
+	}
+	gres, err = compare(den)
+	return gres, nil, took, err
+}
+
+// denoisedHook, when set (by tests), is given the denoised dose as it is
+// made.
+var denoisedHook func(*volume.Grid)
+
 // rawComparison runs the comparison against the evaluated dose as given
 // and keeps its figures (and, for a reference grid, the regions they were
 // taken over); its Γ map and status are not kept.
@@ -503,7 +534,7 @@ func (p *Prepared) resultRegions(s Settings, normDose float64) ([]*roi.Region, e
 // statistics over its centre voxels, failing volume and centroid, and the
 // dose-volume metrics of both doses. With raw (when a noise correction was
 // made) it also returns each ROI's raw Γ statistics, in result order.
-func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Result, raw *rawFigures, regions []*roi.Region, onRef *volume.Grid, out *Outcome) ([]result.GammaStats, error) {
+func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Result, raw *rawFigures, regions []*roi.Region, onRef, corrected *volume.Grid, out *Outcome) ([]result.GammaStats, error) {
 	subgrid := map[string]bool{}
 	for _, name := range s.SubGridROIs {
 		subgrid[strings.ToLower(name)] = true
@@ -547,8 +578,8 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 			res.Choices.SubGridROIs = append(res.Choices.SubGridROIs, reg.Name)
 			res.Choices.SubGridStepMM = s.SubGridStep
 			eval := p.Evaluated
-			if p.EvaluatedCorrected != nil {
-				eval = p.EvaluatedCorrected
+			if corrected != nil {
+				eval = corrected
 			}
 			st, step, err := p.subGrid(ctx, s, src, reg, gres.Criteria, eval)
 			if err != nil {

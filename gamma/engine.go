@@ -306,6 +306,13 @@ func search(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt 
 	if err != nil {
 		return nil, fmt.Errorf("gamma: %w", err)
 	}
+	if opt.Method != Exhaustive && f.sp != nil {
+		// The fast search reads the interpolant only: a caller that does
+		// not keep the evaluated grid frees it now, and Γ and the status
+		// made next reuse its memory instead of growing the process.
+		f.releaseSamples()
+		runtime.GC()
+	}
 	src.bind(f, c.DTA)
 	n := src.len()
 	res := &Result{Criteria: c, Method: opt.Method, Interpolation: opt.Interpolation, Gamma: make([]float32, n), Status: make([]Status, n)}
@@ -618,7 +625,7 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 	s.nodes = nil
 	// One bit a node: a byte each would be a tenth of the evaluated
 	// grid's size again, at the engine's peak.
-	mask := newBitset(len(f.data))
+	mask := newBitset(f.n[0] * f.n[1] * f.n[2])
 	// Seeds, and the box that holds them and their dilation.
 	lo := [3]int{f.n[0], f.n[1], f.n[2]}
 	hi := [3]int{-1, -1, -1}
@@ -670,7 +677,7 @@ func (s *searcher) buildTree(src source, status []Status, wHint float64) {
 			for i := lo[0]; i <= hi[0]; i++ {
 				if n := row + i; mask.has(n) {
 					s.nodes = append(s.nodes, int32(n))
-					coords = append(coords, float32(f.off[0][i]), float32(f.off[1][j]), float32(f.off[2][k]), f.data[n])
+					coords = append(coords, float32(f.off[0][i]), float32(f.off[1][j]), float32(f.off[2][k]), float32(f.nodeDose(n, [3]int{i, j, k})))
 				}
 			}
 		}

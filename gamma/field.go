@@ -66,6 +66,33 @@ func newField(g *volume.Grid, dta float64, interp Interpolation, workers int) (*
 	return f, nil
 }
 
+// releaseSamples lets go of the field's samples once its tensor-product
+// interpolant is built (the spline's coefficients hold all that the fast
+// search reads): a caller that does not keep the evaluated grid then frees
+// its memory, 4 bytes a voxel, for the rest of the search. The linear-simplex
+// interpolant and the exhaustive method read the samples themselves.
+func (f *field) releaseSamples() {
+	if f.sp != nil {
+		f.data = nil
+	}
+}
+
+// nodeDose returns the evaluated dose at node ijk (index n): its sample or,
+// once the samples are released, the interpolant's value there (the sample
+// to the rounding of the spline's float32 coefficients).
+func (f *field) nodeDose(n int, ijk [3]int) float64 {
+	if f.data != nil {
+		return float64(f.data[n])
+	}
+	var c [3]int
+	var t [3]float64
+	for a := 0; a < 3; a++ {
+		c[a] = min(ijk[a], f.sp.ax[a].nc-1)
+		t[a] = float64(ijk[a] - c[a])
+	}
+	return f.sp.value(c, t)
+}
+
 // firstNonFinite returns the index of the first NaN or infinite sample.
 func firstNonFinite(d []float32) (int, bool) {
 	for n, v := range d {

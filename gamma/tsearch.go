@@ -1154,8 +1154,9 @@ func (pt *tpoint) giveUp(lb float64) {
 
 // treeSeed offers the point the k-d tree's nearest evaluated node in the
 // renormalised space (x, y, z, D/ΔD) (Yuan and Chen, Med Phys 37 (2010)
-// 4868): a node's dose is a value of the interpolant, so the node bounds
-// the minimum, and Newton's method from it may lower the bound further.
+// 4868): a node's dose (nodeDose) is a value of the interpolant, so the
+// node bounds the minimum, and Newton's method from it may lower the bound
+// further.
 func (s *searcher) treeSeed(pt *tpoint) {
 	f := s.f
 	idx, _, ok := s.tree.Nearest([4]float64{pt.q[0], pt.q[1], pt.q[2], pt.dr}, pt.w, pt.best2)
@@ -1167,7 +1168,7 @@ func (s *searcher) treeSeed(pt *tpoint) {
 	j := (n / f.n[0]) % f.n[1]
 	k := n / (f.n[0] * f.n[1])
 	p := [3]float64{f.off[0][i], f.off[1][j], f.off[2][k]}
-	if pt.gOf(p, float64(f.data[n])) < pt.best2 {
+	if pt.gOf(p, f.nodeDose(n, [3]int{i, j, k})) < pt.best2 {
 		c, _ := s.locate(p)
 		s.improve(pt, p, c)
 	}

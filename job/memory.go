@@ -29,14 +29,22 @@ const (
 	// of the grid, run with --max-memory set to the estimate, peaked 10–12 %
 	// below it (BENCHMARKS.md, "Fast when it matters"); a body outline
 	// filling the whole grid needs up to about 16 bytes per voxel more at
-	// the moment its DVH is built.
+	// the moment its DVH is built. The raw comparison's Γ and status are
+	// no longer held beside the second comparison (only its statistics
+	// are), but the 5 bytes stay in the estimate, whose total is what was
+	// measured against the peaks.
 	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 4 + 26 + 5
 	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), a margin of
 	// 8 for the k-d tree over the evaluated nodes near points that need it
 	// (and its selection mask, one bit a node), the cubic B-spline's padded
 	// coefficients (4, float32) and per-cell dose bounds (2, a byte each
-	// side), and for the noise handling the smoothed dose, σ, the denoised
-	// dose and its variance (4 each).
+	// side), and 16 for the noise handling: its maps (the smoothed dose,
+	// the denoised dose and its variance, 4 each) are made between the two
+	// comparisons, when the engine's structures are gone, and the denoised
+	// dose is let go of once the engine has built its interpolant, so that
+	// the noise correction's peak is now that of one comparison
+	// (BENCHMARKS.md, "Fourth round"); the 16 bytes stay in the estimate,
+	// whose total was measured against the peaks.
 	BytesPerEvaluatedVoxel = 4 + 8 + 4 + 2 + 16
 	// FixedBytesPerCase covers decoding buffers, the result document and
 	// the review page's figures.

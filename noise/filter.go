@@ -141,18 +141,33 @@ const maxHalfWidth = 32
 // grid's order; see the package documentation). The dose and sigma are not
 // modified.
 func (d *Dose) Denoise(sigma []float32, opt FilterOptions) (*volume.Grid, FilterStats, error) {
+	if len(sigma) != len(d.Grid.Data) {
+		return nil, FilterStats{}, fmt.Errorf("noise: %d σ values for a grid of %d voxels", len(sigma), len(d.Grid.Data))
+	}
+	return d.denoise(sigmaSource{m: sigma}, opt)
+}
+
+// DenoiseModel is Denoise with σ from the Monte Carlo model of ModelSigma
+// (sigmaPercent % of dmax at dmax), the same values bit for bit, computed
+// voxel by voxel as the filter needs them instead of held in a map of
+// their own (4 bytes a voxel at the denoising's peak of memory).
+func (d *Dose) DenoiseModel(sigmaPercent, dmax float64, opt FilterOptions) (*volume.Grid, FilterStats, error) {
+	return d.denoise(d.model(sigmaPercent, dmax), opt)
+}
+
+// denoise is Denoise with σ from sig.
+func (d *Dose) denoise(sig sigmaSource, opt FilterOptions) (*volume.Grid, FilterStats, error) {
 	var st FilterStats
 	g := d.Grid
-	if len(sigma) != len(g.Data) {
-		return nil, st, fmt.Errorf("noise: %d σ values for a grid of %d voxels", len(sigma), len(g.Data))
-	}
 	if err := opt.fill(); err != nil {
 		return nil, st, err
 	}
+	n := len(g.Data)
 	smax := float32(0)
-	for n, s := range sigma {
+	for i := 0; i < n; i++ {
+		s := sig.at(i)
 		if !(s >= 0) || math.IsInf(float64(s), 0) {
-			return nil, st, fmt.Errorf("noise: σ of voxel %d is %g: want a finite value ≥ 0", n, s)
+			return nil, st, fmt.Errorf("noise: σ of voxel %d is %g: want a finite value ≥ 0", i, s)
 		}
 		smax = max(smax, s)
 	}
@@ -164,18 +179,13 @@ func (d *Dose) Denoise(sigma []float32, opt FilterOptions) (*volume.Grid, Filter
 			out.Data[n] -= d.smooth[n]
 		}
 	}
-	v := make([]float32, len(sigma)) // variance of out
-	counted := 0
-	for n, s := range sigma {
-		v[n] = s * s
-		if s > 0 {
-			counted++
-		}
-	}
+	v := make([]float32, n) // variance of out
 	floor := opt.Floor
-	counted = 0
-	for n, s := range sigma {
-		if s > 0 && float64(d.smooth[n]) >= floor {
+	counted := 0
+	for i := range v {
+		s := sig.at(i)
+		v[i] = s * s
+		if s > 0 && float64(d.smooth[i]) >= floor {
 			counted++
 		}
 	}
@@ -212,8 +222,8 @@ func (d *Dose) Denoise(sigma []float32, opt FilterOptions) (*volume.Grid, Filter
 				ln.t[i] = off[i] / h
 				ln.guide[i] = float64(d.smooth[n])
 				ln.scale[i] = 0
-				if opt.Range > 0 && sigma[n] > 0 {
-					r := opt.Range * float64(sigma[n])
+				if sg := sig.at(n); opt.Range > 0 && sg > 0 {
+					r := opt.Range * float64(sg)
 					ln.scale[i] = 1 / (r * r)
 				}
 			}
@@ -246,9 +256,9 @@ func (d *Dose) Denoise(sigma []float32, opt FilterOptions) (*volume.Grid, Filter
 	// The median without holding every ratio (8 bytes a voxel, beside
 	// the dose, σ, the output and its variance: the denoising's peak).
 	st.ResidualSigmaRatio = streamMedian(func(yield func(float64)) {
-		for n, s := range sigma {
-			if s >= smax/10 && s > 0 && float64(d.smooth[n]) >= floor {
-				yield(math.Sqrt(float64(v[n])) / float64(s))
+		for i := range v {
+			if s := sig.at(i); s >= smax/10 && s > 0 && float64(d.smooth[i]) >= floor {
+				yield(math.Sqrt(float64(v[i])) / float64(s))
 			}
 		}
 	})

@@ -290,6 +290,38 @@ func TestDenoiseDeterministic(t *testing.T) {
 	}
 }
 
+// DenoiseModel, which computes the model's σ voxel by voxel, gives the
+// same dose and statistics bit for bit as Denoise given the map of
+// ModelSigma (an identity of this package, no outside source), on a fine
+// grid (the dose's detail filtered) and a coarse one (quartic windows).
+func TestDenoiseModelMatchesMap(t *testing.T) {
+	for _, h := range []float64{1, 2.5} {
+		g := newGrid(t, 30, h, 0)
+		f := field1D{spherical: true, eval: func(u float64) float64 { return erfEdge(testDmax, 10, 3, u) }}
+		fillField(g, f, f.eval)
+		noisy, _ := addNoise(g, 2, 60, 11)
+		d := mustDose(t, noisy)
+		dmax := d.SmoothedMax()
+		opt := FilterOptions{Floor: 0.05 * dmax}
+		want, wst, err := d.Denoise(d.ModelSigma(2, dmax), opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, gst, err := d.DenoiseModel(2, dmax, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if gst != wst {
+			t.Errorf("%g mm: statistics %+v, want %+v", h, gst, wst)
+		}
+		for n := range want.Data {
+			if math.Float32bits(got.Data[n]) != math.Float32bits(want.Data[n]) {
+				t.Fatalf("%g mm: voxel %d: %g, want %g", h, n, got.Data[n], want.Data[n])
+			}
+		}
+	}
+}
+
 // Bad σ values are refused.
 func TestDenoiseRefusesBadSigma(t *testing.T) {
 	g := newGrid(t, 10, 1, 0)
