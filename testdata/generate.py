@@ -323,8 +323,11 @@ def gradient(out):
     ev = dict(ipp=(24.5, -25.25, 20.25), iop=[-1, 0, 0, 0, 1, 0], ps=(1.5, 1.5), gfov=offsets(28, 0, 1.5), rows=35, cols=34)
     pr = positions(ref["ipp"], ref["iop"], ref["ps"], ref["gfov"], ref["rows"], ref["cols"])
     pe = positions(ev["ipp"], ev["iop"], ev["ps"], ev["gfov"], ev["rows"], ev["cols"])
-    dr = a + g * (pr @ n)
-    de = a + g * (pe @ n) - g * s
+    # n·x summed term by term, in this order: a matrix product (BLAS) may
+    # sum in another order or fuse the multiply-adds, as the processor's
+    # kernel chooses, and so write another last bit on another machine.
+    dr = a + g * (pr[..., 0] * n[0] + pr[..., 1] * n[1] + pr[..., 2] * n[2])
+    de = a + g * (pe[..., 0] * n[0] + pe[..., 1] * n[1] + pe[..., 2] * n[2]) - g * s
     info["reference"] = rtdose(os.path.join(d, "RD_reference.dcm"), case, "reference", dr, ref["ipp"], ref["ps"], ref["gfov"], iop=ref["iop"])
     info["evaluated"] = rtdose(os.path.join(d, "RD_evaluated.dcm"), case, "evaluated", de, ev["ipp"], ev["ps"], ev["gfov"], iop=ev["iop"])
     # The analytic reference dose of every voxel, frame-major, row-major
