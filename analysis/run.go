@@ -820,14 +820,18 @@ func (p *Prepared) dvhPair(reg *roi.Region, onRef *volume.Grid, s Settings, norm
 	// Curves on common bins: 0.5 % of the normalisation dose.
 	bin := norm / 200
 	// One DVH at a time: each holds every voxel of the ROI (a body outline's
-	// millions), and only its metrics and binned curve are kept; the
-	// reference's is not used once the evaluated one is being built.
-	rh, err := roi.RegionDVH(p.Reference, reg)
+	// millions, 16 bytes each), and only its metrics and binned curve are
+	// kept; the reference's is garbage before the evaluated one is built,
+	// and for a large ROI it is collected so that the second reuses its
+	// memory (BENCHMARKS.md, "Fast when it matters").
+	ref, err := dvhSummary(p.Reference, reg, s.VDoses, bin)
 	if err != nil {
 		return nil, err
 	}
-	rm := rh.Metrics(s.VDoses)
-	rc, rcErr := rh.Curve(bin)
+	rm, rc, rcErr := ref.metrics, ref.curve, ref.curveErr
+	if len(reg.Index) >= largeROIVoxels {
+		runtime.GC()
+	}
 	eh, err := roi.RegionDVH(onRef, reg)
 	if err != nil {
 		// The whole ROI lies outside the evaluated grid: no evaluated DVH.
@@ -849,6 +853,29 @@ func (p *Prepared) dvhPair(reg *roi.Region, onRef *volume.Grid, s Settings, norm
 	}
 	pair.Curves = commonCurves(rc, ec)
 	return pair, nil
+}
+
+// largeROIVoxels is the size from which an ROI's first DVH is collected
+// before its second is built (16 bytes a voxel).
+const largeROIVoxels = 1 << 20
+
+// dvhSum is what is kept of one DVH: its metrics and binned curve (or
+// why the curve could not be made).
+type dvhSum struct {
+	metrics  roi.Metrics
+	curve    roi.Curve
+	curveErr error
+}
+
+// dvhSummary returns the metrics and the binned curve of dose's DVH over
+// reg, without keeping the DVH itself.
+func dvhSummary(dose *volume.Grid, reg *roi.Region, vDoses []float64, bin float64) (dvhSum, error) {
+	h, err := roi.RegionDVH(dose, reg)
+	if err != nil {
+		return dvhSum{}, err
+	}
+	c, cErr := h.Curve(bin)
+	return dvhSum{metrics: h.Metrics(vDoses), curve: c, curveErr: cErr}, nil
 }
 
 func toDVHStats(m roi.Metrics) result.DVHStats {

@@ -20,7 +20,7 @@ func TestSearchReleasesEvaluatedSamples(t *testing.T) {
 		method  Method
 		release bool
 	}{{Fast, true}, {Exhaustive, false}} {
-		ref := mustGrid(t, [3]int{3, 3, 2}, [3]float64{8, 8, 4}, [3]float64{2, 2, 2}, volume.Identity)
+		ref := mustGrid(t, [3]int{2, 2, 1}, [3]float64{10, 10, 6}, [3]float64{2, 2, 2}, volume.Identity)
 		fill(ref, func(p [3]float64) float64 { return 10 + p[0] })
 		var freed atomic.Bool
 		var freedDuring atomic.Bool

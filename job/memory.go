@@ -20,32 +20,27 @@ const (
 	// (4, which the Γ map shares) and its status (1), the evaluated dose
 	// resampled onto the reference grid (4, made after the engine), the
 	// difference map (4), the Γ values selected for the statistics (4,
-	// float32), the cluster labels (4), a margin of 26 for the ROIs (a
+	// float32), the cluster labels (4) and a margin of 18 for the ROIs (a
 	// body-sized ROI with its centre and partial-volume positions and
-	// fractions, 12 bytes per ROI voxel, and the DVH being built, 32) and,
-	// with a noise correction, the raw comparison's Γ and status (5). The
-	// ROI margin is measured, not derived: comparisons of 256×256×160 and
-	// 400×400×200 voxels with three targets and a body outline filling 63 %
-	// of the grid, run with --max-memory set to the estimate, peaked 10–12 %
-	// below it (BENCHMARKS.md, "Fast when it matters"); a body outline
-	// filling the whole grid needs up to about 16 bytes per voxel more at
-	// the moment its DVH is built. The raw comparison's Γ and status are
-	// no longer held beside the second comparison (only its statistics
-	// are), but the 5 bytes stay in the estimate, whose total is what was
-	// measured against the peaks.
-	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 4 + 26 + 5
+	// fractions, 12 bytes per ROI voxel, and the DVH being built, 24: one
+	// sort key, the doses and the cumulative volumes; the other dose's DVH
+	// is collected first). The ROI margin is measured, not derived:
+	// comparisons of 256×256×160 and 400×400×200 voxels with three targets
+	// and a body outline filling 63 % of the grid, run with --max-memory
+	// set to the estimate, peaked 10–15 % below it (BENCHMARKS.md, "Fast
+	// when it matters"); a body outline filling the whole grid needs up to
+	// about 13 bytes per voxel more at the moment its DVH is built.
+	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 4 + 18
 	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), a margin of
 	// 8 for the k-d tree over the evaluated nodes near points that need it
 	// (and its selection mask, one bit a node), the cubic B-spline's padded
 	// coefficients (4, float32) and per-cell dose bounds (2, a byte each
-	// side), and 16 for the noise handling: its maps (the smoothed dose,
-	// the denoised dose and its variance, 4 each) are made between the two
-	// comparisons, when the engine's structures are gone, and the denoised
-	// dose is let go of once the engine has built its interpolant, so that
-	// the noise correction's peak is now that of one comparison
-	// (BENCHMARKS.md, "Fourth round"); the 16 bytes stay in the estimate,
-	// whose total was measured against the peaks.
-	BytesPerEvaluatedVoxel = 4 + 8 + 4 + 2 + 16
+	// side). The noise correction's maps (the smoothed dose, the denoised
+	// dose and its variance) are made between its two comparisons, when
+	// neither the engine's structures nor the DVHs are held, and its
+	// second comparison lets go of the denoised dose once the engine has
+	// built its interpolant: its peak is that of one comparison.
+	BytesPerEvaluatedVoxel = 4 + 8 + 4 + 2
 	// FixedBytesPerCase covers decoding buffers, the result document and
 	// the review page's figures.
 	FixedBytesPerCase = 16 << 20
@@ -61,7 +56,7 @@ const (
 // reference grid has nr voxels and whose evaluated grid has ne voxels:
 //
 //	BytesPerReferenceVoxel·nr + BytesPerEvaluatedVoxel·ne + FixedBytesPerCase
-//	= 56·nr + 34·ne + 16 MiB
+//	= 43·nr + 18·ne + 16 MiB
 //
 // It is an admission estimate of the live heap's peak with a body-sized
 // ROI, measured (BENCHMARKS.md, "Fast when it matters"); with small ROIs

@@ -251,3 +251,80 @@ func TestCumSumInPlace(t *testing.T) {
 		}
 	}
 }
+
+// RegionDVH, which sorts one key per voxel and reads the weights again,
+// builds the same DVH as NewDVH given the region's doses and weights (an
+// identity of this package): the same doses in the same order, ties among
+// them (doses rounded to 0.25 Gy), negative and zero doses and NaN voxels
+// included; cumulative volumes (at the end of each run of equal doses) and
+// the mean to the rounding of a sum taken in another order; every metric
+// alike.
+func TestRegionDVHMatchesNewDVH(t *testing.T) {
+	sph := phantom.Sphere{Centre: [3]float64{0.4, -0.3, 0.2}, Radius: 9}
+	roi := mustROI(t, sph, phantom.ROISpec{Name: "PTV", PlaneSpacing: 2})
+	g := boxGrid(t, [3]float64{-10, -10, -10}, [3]float64{10, 10, 10}, [3]float64{1.5, 1.5, 1.5}, [3]float64{0.2, 0.3, 0.4})
+	rng := rand.New(rand.NewPCG(7, 11))
+	for n := range g.Data {
+		switch v := rng.Float64(); {
+		case v < 0.02:
+			g.Data[n] = float32(math.NaN())
+		case v < 0.05:
+			g.Data[n] = float32(math.Copysign(0, v-0.035))
+		default:
+			g.Data[n] = float32(math.Round((rng.Float64()*12-1)*4) / 4)
+		}
+	}
+	reg := mustRasterise(t, g, &roi, Options{})
+	h, err := RegionDVH(g, reg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var d, w []float64
+	for q, n := range reg.Index {
+		d = append(d, float64(g.Data[n]))
+		w = append(w, float64(reg.Fraction[q])*reg.sizes.Volume(int(n))/1000)
+	}
+	want, err := NewDVH("PTV", d, w)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(h.Dose) != len(want.Dose) || h.ExcludedCC != want.ExcludedCC {
+		t.Fatalf("%d voxels, %g cm³ excluded; want %d, %g", len(h.Dose), h.ExcludedCC, len(want.Dose), want.ExcludedCC)
+	}
+	for m := range h.Dose {
+		if h.Dose[m] != want.Dose[m] {
+			t.Fatalf("Dose[%d] = %g, want %g", m, h.Dose[m], want.Dose[m])
+		}
+		// Within a run of equal doses the voxels may come in another
+		// order: the cumulative volumes agree where the dose changes.
+		last := m == len(h.Dose)-1 || h.Dose[m+1] != h.Dose[m]
+		if last && math.Abs(h.Cum[m]-want.Cum[m]) > 1e-12*want.TotalCC {
+			t.Fatalf("Cum[%d] = %.17g, want %.17g", m, h.Cum[m], want.Cum[m])
+		}
+	}
+	if math.Abs(h.Mean-want.Mean) > 1e-12*math.Abs(want.Mean) || h.Max != want.Max || h.Min != want.Min {
+		t.Errorf("mean, max, min %g, %g, %g; want %g, %g, %g", h.Mean, h.Max, h.Min, want.Mean, want.Max, want.Min)
+	}
+	vd := []float64{0, 2.25, 5, 10.5}
+	got, exp := h.Metrics(vd), want.Metrics(vd)
+	for name, p := range map[string][2]float64{"D98": {got.D98, exp.D98}, "D95": {got.D95, exp.D95}, "D50": {got.D50, exp.D50}, "D2": {got.D2, exp.D2}, "D0.03cc": {got.D003cc, exp.D003cc}} {
+		if p[0] != p[1] {
+			t.Errorf("%s = %g, want %g", name, p[0], p[1])
+		}
+	}
+	for i := range vd {
+		if math.Abs(got.V[i].CC-exp.V[i].CC) > 1e-12*want.TotalCC {
+			t.Errorf("V%gGy = %g cm³, want %g", vd[i], got.V[i].CC, exp.V[i].CC)
+		}
+	}
+	// The keys order every float32 as the floats are ordered, descending.
+	vals := []float32{float32(math.Inf(1)), math.MaxFloat32, 2, 1e-45, 0, float32(math.Copysign(0, -1)), -1e-45, -2, -math.MaxFloat32, float32(math.Inf(-1))}
+	for i, v := range vals {
+		if back := doseOfKey(descendingKey(v)); math.Float32bits(back) != math.Float32bits(v) {
+			t.Errorf("key of %g gives back %g", v, back)
+		}
+		if i > 0 && !(descendingKey(vals[i-1]) < descendingKey(v)) {
+			t.Errorf("key of %g not before key of %g", vals[i-1], v)
+		}
+	}
+}
