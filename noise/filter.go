@@ -189,11 +189,13 @@ func (d *Dose) denoise(sig sigmaSource, opt FilterOptions) (*volume.Grid, Filter
 			counted++
 		}
 	}
+	filtered := false // some axis had lines long enough to filter
 	for a := 0; a < 3; a++ {
 		st.MeanWidth[a] = 1
 		if dims[a] < 5 {
 			continue
 		}
+		filtered = true
 		off := g.Offsets(a)
 		h, _ := g.Spacing(a)
 		hw := opt.MaxHalfWidth
@@ -249,7 +251,14 @@ func (d *Dose) denoise(sig sigmaSource, opt FilterOptions) (*volume.Grid, Filter
 		}
 	}
 	if st.Detail {
+		// A voxel the lines left alone (σ 0, below the floor, or no axis
+		// long enough to filter) gets its own value back: the detail's
+		// round trip through float32 would move it by a rounding.
 		for n := range out.Data {
+			if s := sig.at(n); !filtered || s*s == 0 || float64(d.smooth[n]) < floor {
+				out.Data[n] = g.Data[n]
+				continue
+			}
 			out.Data[n] += d.smooth[n]
 		}
 	}

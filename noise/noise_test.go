@@ -322,6 +322,53 @@ func TestDenoiseModelMatchesMap(t *testing.T) {
 	}
 }
 
+// Voxels the filter leaves alone keep their values bit for bit: every voxel
+// when σ is 0, and the voxels whose smoothed dose is below the floor,
+// on a fine grid (where the dose's detail is filtered, and the detail's
+// round trip through float32 once moved them by a rounding) and a coarse
+// one. The package's own contract (FilterOptions.Floor), no outside source.
+func TestDenoiseLeavesUnfilteredVoxels(t *testing.T) {
+	for _, h := range []float64{1, 2.5} {
+		g := newGrid(t, 30, h, 0)
+		f := field1D{spherical: true, eval: func(u float64) float64 { return erfEdge(testDmax, 10, 3, u) }}
+		fillField(g, f, f.eval)
+		noisy, _ := addNoise(g, 2, 60, 13)
+		d := mustDose(t, noisy)
+		dmax := d.SmoothedMax()
+		same, st, err := d.DenoiseModel(0, dmax, FilterOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if st.Detail != (h == 1) {
+			t.Fatalf("%g mm: detail %v", h, st.Detail)
+		}
+		for n := range same.Data {
+			if math.Float32bits(same.Data[n]) != math.Float32bits(noisy.Data[n]) {
+				t.Fatalf("%g mm, σ 0: voxel %d %g, want %g", h, n, same.Data[n], noisy.Data[n])
+			}
+		}
+		floor := 0.3 * dmax
+		out, _, err := d.DenoiseModel(2, dmax, FilterOptions{Floor: floor})
+		if err != nil {
+			t.Fatal(err)
+		}
+		below, changed := 0, 0
+		for n := range out.Data {
+			if float64(d.smooth[n]) < floor {
+				below++
+				if math.Float32bits(out.Data[n]) != math.Float32bits(noisy.Data[n]) {
+					t.Fatalf("%g mm: voxel %d below the floor %g, want %g", h, n, out.Data[n], noisy.Data[n])
+				}
+			} else if out.Data[n] != noisy.Data[n] {
+				changed++
+			}
+		}
+		if below == 0 || changed == 0 {
+			t.Fatalf("%g mm: %d voxels below the floor, %d filtered: the case tests nothing", h, below, changed)
+		}
+	}
+}
+
 // Bad σ values are refused.
 func TestDenoiseRefusesBadSigma(t *testing.T) {
 	g := newGrid(t, 10, 1, 0)
