@@ -78,18 +78,10 @@ func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
 	}
 	keys := make([]uint64, 0, len(r.Index))
 	for q, n := range r.Index {
-		w := weight(q)
 		d := dose.Data[n]
-		if !(w >= 0) || math.IsInf(w, 0) {
-			return nil, fmt.Errorf("roi: DVH of %q: voxel %d has volume %g, want a finite value ≥ 0", r.Name, q, w)
-		}
-		switch {
-		case w == 0:
-		case d != d:
-			h.ExcludedCC += w
-		case math.IsInf(float64(d), 0):
-			return nil, fmt.Errorf("roi: DVH of %q: voxel %d has dose %g", r.Name, q, d)
-		default:
+		if keep, err := h.admit(q, float64(d), weight(q)); err != nil {
+			return nil, err
+		} else if keep {
 			keys = append(keys, uint64(descendingKey(d))<<32|uint64(q))
 		}
 	}
@@ -147,19 +139,30 @@ type dvhBuilder struct {
 
 // add takes voxel q with dose d (Gy) and volume w (cm³).
 func (b *dvhBuilder) add(q int, d, w float64) error {
-	if !(w >= 0) || math.IsInf(w, 0) {
-		return fmt.Errorf("roi: DVH of %q: voxel %d has volume %g, want a finite value ≥ 0", b.h.Name, q, w)
-	}
-	switch {
-	case w == 0:
-	case math.IsNaN(d):
-		b.h.ExcludedCC += w
-	case math.IsInf(d, 0):
-		return fmt.Errorf("roi: DVH of %q: voxel %d has dose %g", b.h.Name, q, d)
-	default:
+	keep, err := b.h.admit(q, d, w)
+	if keep {
 		b.ps = append(b.ps, doseWeight{d, w})
 	}
-	return nil
+	return err
+}
+
+// admit applies the rules of [NewDVH] to voxel q with dose d (Gy) and
+// volume w (cm³): it reports whether the voxel is kept, counts a NaN
+// dose's volume in ExcludedCC, and refuses a bad volume or an infinite
+// dose.
+func (h *DVH) admit(q int, d, w float64) (bool, error) {
+	switch {
+	case !(w >= 0) || math.IsInf(w, 0):
+		return false, fmt.Errorf("roi: DVH of %q: voxel %d has volume %g, want a finite value ≥ 0", h.Name, q, w)
+	case w == 0:
+		return false, nil
+	case math.IsNaN(d):
+		h.ExcludedCC += w
+		return false, nil
+	case math.IsInf(d, 0):
+		return false, fmt.Errorf("roi: DVH of %q: voxel %d has dose %g", h.Name, q, d)
+	}
+	return true, nil
 }
 
 // finish sorts the voxels by decreasing dose and fills the DVH.
