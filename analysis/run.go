@@ -395,16 +395,18 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 		if err != nil {
 			return nil, err
 		}
-		out.Difference = p.Reference.EmptyLike()
-		for n, e := range onRef.Data {
-			out.Difference.Data[n] = e - p.Reference.Data[n]
-		}
 		if rawROIs, err = p.regionResults(ctx, s, gres, raw, regions, onRef, corrected, out); err != nil {
 			return nil, err
 		}
-		// The resampled dose is garbage from here (onRef is not used
-		// again): collect it so that the cluster labels reuse its memory
-		// instead of growing the process.
+		// The resampled dose is not read again: it becomes the difference
+		// map in place (the same float32 subtraction), rather than a map of
+		// its own beside it while the DVHs were built (4 bytes a voxel).
+		for n, r := range p.Reference.Data {
+			onRef.Data[n] -= r
+		}
+		out.Difference = onRef
+		// The DVHs' memory is garbage: collect it so that the cluster
+		// labels reuse it instead of growing the process.
 		runtime.GC()
 		var note string
 		res.Clusters, note = p.clusters(s, gres, out.Regions)

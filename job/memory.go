@@ -18,8 +18,9 @@ import (
 const (
 	// BytesPerReferenceVoxel: the reference grid (4, float32), Γ per point
 	// (4, which the Γ map shares) and its status (1), the evaluated dose
-	// resampled onto the reference grid (4, made after the engine), the
-	// difference map (4), the Γ values selected for the statistics (4,
+	// resampled onto the reference grid (4, made after the engine, and
+	// turned into the difference map in place once the DVHs are built),
+	// the Γ values selected for the statistics (4,
 	// float32), the cluster labels (4) and a margin of 18 for the ROIs (a
 	// body-sized ROI with its centre and partial-volume positions and
 	// fractions, 12 bytes per ROI voxel, and the DVH being built, 24: one
@@ -27,10 +28,10 @@ const (
 	// is collected first). The ROI margin is measured, not derived:
 	// comparisons of 256×256×160 and 400×400×200 voxels with three targets
 	// and a body outline filling 63 % of the grid, run with --max-memory
-	// set to the estimate, peaked 10–15 % below it (BENCHMARKS.md, "Fast
+	// set to the estimate, peaked 11–17 % below it (BENCHMARKS.md, "Fast
 	// when it matters"); a body outline filling the whole grid needs up to
 	// about 13 bytes per voxel more at the moment its DVH is built.
-	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 4 + 18
+	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 18
 	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), a margin of
 	// 8 for the k-d tree over the evaluated nodes near points that need it
 	// (and its selection mask, one bit a node), the cubic B-spline's padded
@@ -56,7 +57,7 @@ const (
 // reference grid has nr voxels and whose evaluated grid has ne voxels:
 //
 //	BytesPerReferenceVoxel·nr + BytesPerEvaluatedVoxel·ne + FixedBytesPerCase
-//	= 43·nr + 18·ne + 16 MiB
+//	= 39·nr + 18·ne + 16 MiB
 //
 // It is an admission estimate of the live heap's peak with a body-sized
 // ROI, measured (BENCHMARKS.md, "Fast when it matters"); with small ROIs
