@@ -290,17 +290,24 @@ func TestDenoiseDeterministic(t *testing.T) {
 	}
 }
 
+// noisyEdge returns a spherical 3 mm error-function edge on a 30 mm grid of
+// spacing h with 2 % noise (seeded), and its Dose.
+func noisyEdge(t *testing.T, h float64, seed uint64) (*volume.Grid, *Dose) {
+	t.Helper()
+	g := newGrid(t, 30, h, 0)
+	f := field1D{spherical: true, eval: func(u float64) float64 { return erfEdge(testDmax, 10, 3, u) }}
+	fillField(g, f, f.eval)
+	noisy, _ := addNoise(g, 2, 60, seed)
+	return noisy, mustDose(t, noisy)
+}
+
 // DenoiseModel, which computes the model's σ voxel by voxel, gives the
 // same dose and statistics bit for bit as Denoise given the map of
 // ModelSigma (an identity of this package, no outside source), on a fine
 // grid (the dose's detail filtered) and a coarse one (quartic windows).
 func TestDenoiseModelMatchesMap(t *testing.T) {
 	for _, h := range []float64{1, 2.5} {
-		g := newGrid(t, 30, h, 0)
-		f := field1D{spherical: true, eval: func(u float64) float64 { return erfEdge(testDmax, 10, 3, u) }}
-		fillField(g, f, f.eval)
-		noisy, _ := addNoise(g, 2, 60, 11)
-		d := mustDose(t, noisy)
+		_, d := noisyEdge(t, h, 11)
 		dmax := d.SmoothedMax()
 		opt := FilterOptions{Floor: 0.05 * dmax}
 		want, wst, err := d.Denoise(d.ModelSigma(2, dmax), opt)
@@ -329,11 +336,7 @@ func TestDenoiseModelMatchesMap(t *testing.T) {
 // one. The package's own contract (FilterOptions.Floor), no outside source.
 func TestDenoiseLeavesUnfilteredVoxels(t *testing.T) {
 	for _, h := range []float64{1, 2.5} {
-		g := newGrid(t, 30, h, 0)
-		f := field1D{spherical: true, eval: func(u float64) float64 { return erfEdge(testDmax, 10, 3, u) }}
-		fillField(g, f, f.eval)
-		noisy, _ := addNoise(g, 2, 60, 13)
-		d := mustDose(t, noisy)
+		noisy, d := noisyEdge(t, h, 13)
 		dmax := d.SmoothedMax()
 		same, st, err := d.DenoiseModel(0, dmax, FilterOptions{})
 		if err != nil {
