@@ -93,15 +93,12 @@ func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
 	for m, k := range keys {
 		h.Dose[m] = float64(doseOfKey(uint32(k >> 32)))
 	}
-	h.Cum = make([]float64, len(keys))
+	w := make([]float64, len(keys))
 	for m, k := range keys {
-		h.Cum[m] = weight(int(uint32(k)))
+		w[m] = weight(int(uint32(k)))
 	}
 	keys = nil
-	h.Mean = stat.Mean(h.Dose, h.Cum)
-	h.Cum = floats.CumSum(h.Cum, h.Cum)
-	h.TotalCC = h.Cum[len(h.Cum)-1]
-	h.Max, h.Min = h.Dose[0], h.Dose[len(h.Dose)-1]
+	h.summarise(w)
 	return h, nil
 }
 
@@ -187,6 +184,14 @@ func (b *dvhBuilder) finish() (*DVH, error) {
 		h.Dose[q], w[q] = p.d, p.w
 	}
 	b.ps = nil
+	h.summarise(w)
+	return h, nil
+}
+
+// summarise fills in the DVH from its doses, sorted in decreasing order,
+// and their volumes w (cm³), which become the cumulative volumes Cum: the
+// mean, the total volume, the maximum and the minimum.
+func (h *DVH) summarise(w []float64) {
 	h.Mean = stat.Mean(h.Dose, w)
 	// The cumulative volumes take the weights' place (gonum's CumSum reads
 	// each s[i] before it writes dst[i], in Go and in assembly); the
@@ -194,7 +199,6 @@ func (b *dvhBuilder) finish() (*DVH, error) {
 	h.Cum = floats.CumSum(w, w)
 	h.TotalCC = h.Cum[len(h.Cum)-1]
 	h.Max, h.Min = h.Dose[0], h.Dose[len(h.Dose)-1]
-	return h, nil
 }
 
 // RankTolerance is the share of a DVH's total volume by which a cumulative
