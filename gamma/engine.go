@@ -306,11 +306,10 @@ func search(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt 
 	if err != nil {
 		return nil, fmt.Errorf("gamma: %w", err)
 	}
-	if opt.Method != Exhaustive && f.sp != nil {
-		// The fast search reads the interpolant only: a caller that does
-		// not keep the evaluated grid frees it now, and Γ and the status
-		// made next reuse its memory instead of growing the process.
-		f.releaseSamples()
+	// The fast search reads the interpolant only: a caller that does not
+	// keep the evaluated grid frees it now, and Γ and the status made next
+	// reuse its memory instead of growing the process.
+	if opt.Method != Exhaustive && f.releaseSamples() {
 		runtime.GC()
 	}
 	src.bind(f, c.DTA)

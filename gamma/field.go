@@ -70,11 +70,14 @@ func newField(g *volume.Grid, dta float64, interp Interpolation, workers int) (*
 // interpolant is built (the spline's coefficients hold all that the fast
 // search reads): a caller that does not keep the evaluated grid then frees
 // its memory, 4 bytes a voxel, for the rest of the search. The linear-simplex
-// interpolant and the exhaustive method read the samples themselves.
-func (f *field) releaseSamples() {
-	if f.sp != nil {
-		f.data = nil
+// interpolant and the exhaustive method read the samples themselves. It
+// reports whether it let go of them (a tensor-product interpolant only).
+func (f *field) releaseSamples() bool {
+	if f.sp == nil {
+		return false
 	}
+	f.data = nil
+	return true
 }
 
 // nodeDose returns the evaluated dose at node ijk (index n): its sample or,
