@@ -66,16 +66,11 @@ func NewDVH(name string, dose, weight []float64) (*DVH, error) {
 // grid's float32 values, so nothing is rounded; voxels of equal dose come
 // in the order of the region's index.
 func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
-	if dose == nil || r == nil || r.grid == nil || r.sizes == nil {
-		return nil, errors.New("roi: RegionDVH needs a dose grid and a region made by this package")
-	}
-	if !dose.SameGeometry(r.grid) {
-		return nil, fmt.Errorf("roi: DVH of %q: the dose grid's geometry differs from the grid the ROI was rasterised on; resample the dose onto it first", r.Name)
+	if err := checkRegionDose(dose, r); err != nil {
+		return nil, err
 	}
 	h := &DVH{Name: r.Name}
-	weight := func(q int) float64 {
-		return float64(r.Fraction[q]) * r.sizes.Volume(int(r.Index[q])) / 1000
-	}
+	weight := r.voxelCC
 	keys := make([]uint64, 0, len(r.Index))
 	for q, n := range r.Index {
 		d := dose.Data[n]
@@ -100,6 +95,18 @@ func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
 	keys = nil
 	h.summarise(w)
 	return h, nil
+}
+
+// checkRegionDose checks that dose can be read over region r: both given,
+// r made by this package, on the same geometry.
+func checkRegionDose(dose *volume.Grid, r *Region) error {
+	if dose == nil || r == nil || r.grid == nil || r.sizes == nil {
+		return errors.New("roi: a region's DVH needs a dose grid and a region made by this package")
+	}
+	if !dose.SameGeometry(r.grid) {
+		return fmt.Errorf("roi: DVH of %q: the dose grid's geometry differs from the grid the ROI was rasterised on; resample the dose onto it first", r.Name)
+	}
+	return nil
 }
 
 // descendingKey maps a float32 that is not NaN to a uint32 whose ascending
@@ -261,21 +268,10 @@ const MaxCurvePoints = 1_000_000
 // binWidth above the maximum dose, where the volume is 0. binWidth ≤ 0 means
 // 0.1 % of the maximum dose (1 Gy when the maximum is not positive).
 func (h *DVH) Curve(binWidth float64) (Curve, error) {
-	if math.IsNaN(binWidth) || math.IsInf(binWidth, 0) {
-		return Curve{}, fmt.Errorf("roi: DVH curve of %q: bin width %g Gy", h.Name, binWidth)
+	k0, n, binWidth, err := h.curveSpan(binWidth)
+	if err != nil {
+		return Curve{}, err
 	}
-	if binWidth <= 0 {
-		binWidth = 0.001 * h.Max
-		if !(binWidth > 0) {
-			binWidth = 1
-		}
-	}
-	k0 := math.Min(0, math.Floor(h.Min/binWidth))
-	k1 := math.Floor(h.Max/binWidth) + 1
-	if k1-k0+1 > MaxCurvePoints {
-		return Curve{}, fmt.Errorf("roi: DVH curve of %q: %g points at %g Gy per bin, more than %d", h.Name, k1-k0+1, binWidth, MaxCurvePoints)
-	}
-	n := int(k1-k0) + 1
 	c := Curve{Dose: make([]float64, n), CC: make([]float64, n), Percent: make([]float64, n)}
 	for q := 0; q < n; q++ {
 		d := (k0 + float64(q)) * binWidth
@@ -283,6 +279,27 @@ func (h *DVH) Curve(binWidth float64) (Curve, error) {
 		c.CC[q], c.Percent[q] = h.V(d)
 	}
 	return c, nil
+}
+
+// curveSpan returns the curve's first dose as a multiple k0 of the bin
+// width, its number of points and the bin width itself (the default when
+// binWidth ≤ 0), by the rules of Curve.
+func (h *DVH) curveSpan(binWidth float64) (k0 float64, n int, width float64, err error) {
+	if math.IsNaN(binWidth) || math.IsInf(binWidth, 0) {
+		return 0, 0, 0, fmt.Errorf("roi: DVH curve of %q: bin width %g Gy", h.Name, binWidth)
+	}
+	if binWidth <= 0 {
+		binWidth = 0.001 * h.Max
+		if !(binWidth > 0) {
+			binWidth = 1
+		}
+	}
+	k0 = math.Min(0, math.Floor(h.Min/binWidth))
+	k1 := math.Floor(h.Max/binWidth) + 1
+	if k1-k0+1 > MaxCurvePoints {
+		return 0, 0, 0, fmt.Errorf("roi: DVH curve of %q: %g points at %g Gy per bin, more than %d", h.Name, k1-k0+1, binWidth, MaxCurvePoints)
+	}
+	return k0, int(k1-k0) + 1, binWidth, nil
 }
 
 // VolumeAt is V_d at one dose level.

@@ -53,7 +53,8 @@ print('total', repr(float(total)))
 // TestDVHAgainstNumpy compares D_x, the mean and V_d with the same
 // definitions computed by numpy on the same voxel data: a rasterised sphere
 // under an invented Gaussian dose (partial-volume weights) and 200 000
-// random voxels.
+// random voxels; the sphere's D98, D95, D50, D2, mean, volume and V_d also
+// as RegionSummary computes them.
 func TestDVHAgainstNumpy(t *testing.T) {
 	py := numpyPython(t)
 	dir := t.TempDir()
@@ -85,6 +86,16 @@ func TestDVHAgainstNumpy(t *testing.T) {
 		h, err := NewDVH(c.name, c.d, c.w)
 		if err != nil {
 			t.Fatal(err)
+		}
+		// The region's summary, by radix selection and in one pass per
+		// digit (RegionSummary), is held to numpy's values too.
+		var sum *Metrics
+		if c.name == "rasterised sphere" {
+			s, err := RegionSummary(g, reg, levels, 0)
+			if err != nil {
+				t.Fatal(err)
+			}
+			sum = &s.Metrics
 		}
 		var buf bytes.Buffer
 		if err := binary.Write(&buf, binary.LittleEndian, c.d); err != nil {
@@ -129,12 +140,39 @@ func TestDVHAgainstNumpy(t *testing.T) {
 			if math.Abs(got-val) > tol {
 				t.Errorf("%s: %s = %.17g, numpy %.17g", c.name, what, got, val)
 			}
+			if sum != nil {
+				if s, ok := summaryValue(sum, f[0], f[1], levels); ok && math.Abs(s-val) > tol {
+					t.Errorf("%s: summary's %s = %.17g, numpy %.17g", c.name, what, s, val)
+				}
+			}
 			checked++
 		}
 		if checked != len(pcts)+len(levels)+2 {
 			t.Errorf("%s: %d values compared, want %d", c.name, checked, len(pcts)+len(levels)+2)
 		}
 	}
+}
+
+// summaryValue returns the value of m that a line of numpyScript's output
+// gives (kind "D", "V", "mean" or "total", at arg), if m has it.
+func summaryValue(m *Metrics, kind, arg string, levels []float64) (float64, bool) {
+	x, _ := strconv.ParseFloat(arg, 64)
+	switch kind {
+	case "D":
+		v, ok := map[float64]float64{98: m.D98, 95: m.D95, 50: m.D50, 2: m.D2}[x]
+		return v, ok
+	case "V":
+		for i, l := range levels {
+			if l == x {
+				return m.V[i].CC, true
+			}
+		}
+	case "mean":
+		return m.Mean, true
+	case "total":
+		return m.VolumeCC, true
+	}
+	return 0, false
 }
 
 func joinFloats(v []float64) string {

@@ -126,6 +126,12 @@ type Region struct {
 // are not used by the region).
 func (r *Region) Grid() *volume.Grid { return r.grid }
 
+// voxelCC returns the volume (cm³) that voxel q of the region's index
+// counts for: its fraction of its voxel's volume.
+func (r *Region) voxelCC(q int) float64 {
+	return float64(r.Fraction[q]) * r.sizes.Volume(int(r.Index[q])) / 1000
+}
+
 // Sizes returns the voxel sizes of the region's grid.
 func (r *Region) Sizes() *VoxelSize { return r.sizes }
 
