@@ -819,65 +819,35 @@ func (p *Prepared) coveredPercent(reg *roi.Region, onRef *volume.Grid) *float64 
 
 // dvhPair computes the dose-volume metrics of both doses over reg.
 func (p *Prepared) dvhPair(reg *roi.Region, onRef *volume.Grid, s Settings, norm float64) (*result.DVHPair, error) {
-	// Curves on common bins: 0.5 % of the normalisation dose.
+	// Curves on common bins: 0.5 % of the normalisation dose. The DVHs
+	// are summarised as they are read (roi.RegionSummary): a body
+	// outline's millions of voxels are never held sorted.
 	bin := norm / 200
-	// One DVH at a time: each holds every voxel of the ROI (a body outline's
-	// millions, 16 bytes each), and only its metrics and binned curve are
-	// kept; the reference's is garbage before the evaluated one is built,
-	// and for a large ROI it is collected so that the second reuses its
-	// memory (BENCHMARKS.md, "Fast when it matters").
-	ref, err := dvhSummary(p.Reference, reg, s.VDoses, bin)
+	ref, err := roi.RegionSummary(p.Reference, reg, s.VDoses, bin)
 	if err != nil {
 		return nil, err
 	}
-	rm, rc, rcErr := ref.metrics, ref.curve, ref.curveErr
-	if len(reg.Index) >= largeROIVoxels {
-		runtime.GC()
-	}
-	eh, err := roi.RegionDVH(onRef, reg)
+	rm := ref.Metrics
+	ev, err := roi.RegionSummary(onRef, reg, s.VDoses, bin)
 	if err != nil {
 		// The whole ROI lies outside the evaluated grid: no evaluated DVH.
 		return &result.DVHPair{Reference: toDVHStats(rm), Evaluated: nanDVHStats(s.VDoses), DifferenceGy: nanDVHStats(s.VDoses), DifferencePercent: nanDVHStats(s.VDoses)}, nil
 	}
-	em := eh.Metrics(s.VDoses)
+	em := ev.Metrics
 	pair := &result.DVHPair{Reference: toDVHStats(rm), Evaluated: toDVHStats(em)}
 	diffs, err := roi.CompareMetrics(rm, em, 0)
 	if err != nil {
 		return nil, err
 	}
 	pair.DifferenceGy, pair.DifferencePercent = differenceStats(diffs, s.VDoses)
-	if rcErr != nil {
-		return nil, rcErr
+	if ref.CurveErr != nil {
+		return nil, ref.CurveErr
 	}
-	ec, err := eh.Curve(bin)
-	if err != nil {
-		return nil, err
+	if ev.CurveErr != nil {
+		return nil, ev.CurveErr
 	}
-	pair.Curves = commonCurves(rc, ec)
+	pair.Curves = commonCurves(ref.Curve, ev.Curve)
 	return pair, nil
-}
-
-// largeROIVoxels is the size from which an ROI's first DVH is collected
-// before its second is built (16 bytes a voxel).
-const largeROIVoxels = 1 << 20
-
-// dvhSum is what is kept of one DVH: its metrics and binned curve (or
-// why the curve could not be made).
-type dvhSum struct {
-	metrics  roi.Metrics
-	curve    roi.Curve
-	curveErr error
-}
-
-// dvhSummary returns the metrics and the binned curve of dose's DVH over
-// reg, without keeping the DVH itself.
-func dvhSummary(dose *volume.Grid, reg *roi.Region, vDoses []float64, bin float64) (dvhSum, error) {
-	h, err := roi.RegionDVH(dose, reg)
-	if err != nil {
-		return dvhSum{}, err
-	}
-	c, cErr := h.Curve(bin)
-	return dvhSum{metrics: h.Metrics(vDoses), curve: c, curveErr: cErr}, nil
 }
 
 func toDVHStats(m roi.Metrics) result.DVHStats {

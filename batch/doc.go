@@ -43,16 +43,19 @@
 // dose headers (dicomio.ReadDoseInfo: Rows × Columns × NumberOfFrames), see
 // [job.EstimateBytes]:
 //
-//	need = 62·Nref + 29·Neval + 16 MiB
+//	need = max(21·Nref + 18·Neval, 29·Nref + 4·Neval) + 16 MiB
 //
-// with, per reference voxel, the reference grid (4 bytes), Γ (4) and its
-// status (1), the Γ map (4), the resampled evaluated dose (4), the
-// difference map (4), the sorted Γ values of the statistics (8), cluster
-// labels (4), a 24-byte margin for the ROI masks and the raw comparison
-// of a noise correction (5); per evaluated voxel the grid (4), the k-d
-// tree selection mask (1), an 8-byte k-d tree margin and the noise
-// handling's smoothed dose, σ, denoised dose and its variance (16). Cases run at once while the sum of their needs fits the budget
-// (a weighted semaphore, first come first served); a case needing more than
+// the larger of a comparison's two phases: while the engine runs (per
+// reference voxel the reference grid, Γ and its status, and a 12-byte margin
+// for the ROIs; per evaluated voxel the grid, the spline's coefficients and
+// cell bounds, and an 8-byte k-d tree margin) and after it (per reference
+// voxel the reference grid, Γ and its status, the resampled evaluated dose
+// that becomes the difference map, the Γ values of one ROI's statistics or
+// the cluster labels, and the ROIs' margin; per evaluated voxel the grid).
+// The coefficients are job's (memory.go), measured against the peak.
+//
+// Cases run at once while the sum of their needs fits the budget (a
+// weighted semaphore, first come first served); a case needing more than
 // the whole budget is an error naming its need and the budget. The default
 // budget ([job.DefaultBudget]) is 70 % of MemAvailable from /proc/meminfo, or
 // of the room under the process's cgroup memory limit when that is less

@@ -14,34 +14,39 @@ import (
 	"voxgamma/dicomio"
 )
 
-// Memory estimate coefficients (bytes). See [EstimateBytes].
+// Memory estimate coefficients (bytes). See [EstimateBytes]: a comparison
+// peaks either while the engine runs or after it, while the ROIs'
+// figures, the statistics and the clusters are made.
 const (
-	// BytesPerReferenceVoxel: the reference grid (4, float32), Γ per point
-	// (4, which the Γ map shares) and its status (1), the evaluated dose
-	// resampled onto the reference grid (4, made after the engine, and
-	// turned into the difference map in place once the DVHs are built),
-	// the Γ values selected for the statistics (4,
-	// float32), the cluster labels (4) and a margin of 18 for the ROIs (a
-	// body-sized ROI with its centre and partial-volume positions and
-	// fractions, 12 bytes per ROI voxel, and the DVH being built, 24: one
-	// sort key, the doses and the cumulative volumes; the other dose's DVH
-	// is collected first). The ROI margin is measured, not derived:
-	// comparisons of 256×256×160 and 400×400×200 voxels with three targets
-	// and a body outline filling 63 % of the grid, run with --max-memory
-	// set to the estimate, peaked 11–17 % below it (BENCHMARKS.md, "Fast
-	// when it matters"); a body outline filling the whole grid needs up to
-	// about 13 bytes per voxel more at the moment its DVH is built.
-	BytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 4 + 18
-	// BytesPerEvaluatedVoxel: the evaluated grid (4, float32), a margin of
-	// 8 for the k-d tree over the evaluated nodes near points that need it
-	// (and its selection mask, one bit a node), the cubic B-spline's padded
-	// coefficients (4, float32) and per-cell dose bounds (2, a byte each
-	// side). The noise correction's maps (the smoothed dose, the denoised
-	// dose and its variance) are made between its two comparisons, when
-	// neither the engine's structures nor the DVHs are held, and its
-	// second comparison lets go of the denoised dose once the engine has
-	// built its interpolant: its peak is that of one comparison.
-	BytesPerEvaluatedVoxel = 4 + 8 + 4 + 2
+	// EngineBytesPerReferenceVoxel: while the engine runs, the reference
+	// grid (4, float32), Γ per point (4, which the Γ map shares) and its
+	// status (1), and a margin of 12 for the ROIs (a body-sized ROI's
+	// centre and partial-volume positions and fractions, 12 bytes per ROI
+	// voxel), which the noise correction rasterises before its second
+	// comparison.
+	EngineBytesPerReferenceVoxel = 4 + 4 + 1 + 12
+	// EngineBytesPerEvaluatedVoxel: while the engine runs, the evaluated
+	// grid (4, float32), a margin of 8 for the k-d tree over the evaluated
+	// nodes near points that need it (and its selection mask, one bit a
+	// node), the cubic B-spline's padded coefficients (4, float32) and
+	// per-cell dose bounds (2, a byte each side). The noise correction's
+	// maps (the smoothed dose, the denoised dose and its variance) are
+	// made between its two comparisons, when neither the engine's
+	// structures nor the ROIs' figures are held, and its second comparison
+	// lets go of the denoised dose once the engine has built its
+	// interpolant: its peak is that of one comparison.
+	EngineBytesPerEvaluatedVoxel = 4 + 8 + 4 + 2
+	// AfterBytesPerReferenceVoxel: after the engine, the reference grid
+	// (4), Γ (4) and its status (1), the evaluated dose resampled onto the
+	// reference grid (4, turned into the difference map in place once the
+	// ROIs' figures are made), the Γ values selected for an ROI's
+	// statistics or the cluster labels (4, one at a time) and the ROIs'
+	// margin (12). The DVHs are summarised as they are read, in a few
+	// megabytes (roi.RegionSummary).
+	AfterBytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 12
+	// AfterBytesPerEvaluatedVoxel: after the engine, the evaluated grid as
+	// read (4), which the report and sub-grid ROIs read again.
+	AfterBytesPerEvaluatedVoxel = 4
 	// FixedBytesPerCase covers decoding buffers, the result document and
 	// the review page's figures.
 	FixedBytesPerCase = 16 << 20
@@ -54,10 +59,12 @@ const (
 )
 
 // EstimateBytes is the estimated peak memory of one comparison whose
-// reference grid has nr voxels and whose evaluated grid has ne voxels:
+// reference grid has nr voxels and whose evaluated grid has ne voxels, the
+// larger of its two phases:
 //
-//	BytesPerReferenceVoxel·nr + BytesPerEvaluatedVoxel·ne + FixedBytesPerCase
-//	= 39·nr + 18·ne + 16 MiB
+//	max(EngineBytesPerReferenceVoxel·nr + EngineBytesPerEvaluatedVoxel·ne,
+//	    AfterBytesPerReferenceVoxel·nr + AfterBytesPerEvaluatedVoxel·ne) + FixedBytesPerCase
+//	= max(21·nr + 18·ne, 29·nr + 4·ne) + 16 MiB
 //
 // It is an admission estimate of the live heap's peak with a body-sized
 // ROI, measured (BENCHMARKS.md, "Fast when it matters"); with small ROIs
@@ -66,7 +73,9 @@ const (
 // settings); every command sets the runtime's soft memory limit to the
 // budget so that it collects before exceeding it.
 func EstimateBytes(nr, ne int64) int64 {
-	return BytesPerReferenceVoxel*nr + BytesPerEvaluatedVoxel*ne + FixedBytesPerCase
+	engine := EngineBytesPerReferenceVoxel*nr + EngineBytesPerEvaluatedVoxel*ne
+	after := AfterBytesPerReferenceVoxel*nr + AfterBytesPerEvaluatedVoxel*ne
+	return max(engine, after) + FixedBytesPerCase
 }
 
 // DoseVoxels returns the voxel count of the RT Dose at path, read from its

@@ -137,6 +137,11 @@
 //   - D0.03cc (a near-maximum quoted in common practice; no published
 //     definition is cited) is D_x for x = 0.03 cm³.
 //
+// [RegionSummary] gives the same metrics and curve for a rasterised region
+// without holding its voxels sorted: a radix selection on the doses'
+// float32 bits, in two passes over the region and a few megabytes, for
+// body outlines of millions of voxels.
+//
 // Differences between an evaluated and a reference dose are evaluated −
 // reference, in Gy (cm³ for volumes) and in percent of the normalisation
 // dose when one is given, else of the reference value; V_d differences are
