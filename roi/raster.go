@@ -572,4 +572,5 @@ func (z *Rasteriser) fill(planes []plane, reg *Region) {
 			}
 		}
 	}
+	reg.trim()
 }

@@ -614,3 +614,22 @@ func TestContoursThatCancel(t *testing.T) {
 		})
 	}
 }
+
+// TestRegionListsTrimmed: a region's voxel lists keep no more than a
+// thirty-second of their length as spare room once rasterised (they are held
+// to the end of a comparison), whatever the estimate that sized them.
+func TestRegionListsTrimmed(t *testing.T) {
+	for _, radius := range []float64{3, 20} {
+		sph := phantom.Sphere{Centre: [3]float64{0.3, -0.2, 0.1}, Radius: radius}
+		roi := mustROI(t, sph, phantom.ROISpec{Name: "sphere", PlaneSpacing: 2})
+		g := boxGrid(t, [3]float64{-22, -22, -22}, [3]float64{22, 22, 22}, [3]float64{1, 1, 1}, [3]float64{0.25, 0.25, 0.25})
+		reg := mustRasterise(t, g, &roi, Options{})
+		for name, lc := range map[string][2]int{
+			"Centres": {len(reg.Centres), cap(reg.Centres)}, "Index": {len(reg.Index), cap(reg.Index)}, "Fraction": {len(reg.Fraction), cap(reg.Fraction)},
+		} {
+			if lc[0] == 0 || lc[1]-lc[0] > lc[0]/32 {
+				t.Errorf("radius %g: %s has length %d and capacity %d", radius, name, lc[0], lc[1])
+			}
+		}
+	}
+}

@@ -275,3 +275,24 @@ func (r *Region) reserve(n int) {
 	r.Index = slices.Grow(r.Index, n+n/5)
 	r.Fraction = slices.Grow(r.Fraction, n+n/5)
 }
+
+// trim gives back the room reserve left unused: a list with more than a
+// thirty-second of its length spare is copied to one of its own length (a
+// body outline's lists are held from rasterisation to the report, and their
+// spare room was a fifth of them).
+func (r *Region) trim() {
+	r.Centres = trimmed(r.Centres)
+	r.Index = trimmed(r.Index)
+	r.Fraction = trimmed(r.Fraction)
+}
+
+// trimmed returns s, or a copy of it without spare capacity when s has
+// more than len(s)/32 of it.
+func trimmed[S ~[]E, E any](s S) S {
+	if cap(s)-len(s) <= len(s)/32 {
+		return s
+	}
+	t := make(S, len(s))
+	copy(t, s)
+	return t
+}
