@@ -2,6 +2,7 @@ package analysis
 
 import (
 	"fmt"
+	"math/bits"
 	"strings"
 
 	"voxgamma/gamma"
@@ -20,8 +21,10 @@ func (p *Prepared) clusters(s Settings, gres *gamma.Result, regions []*roi.Regio
 		st := gres.Status[n]
 		return st == gamma.Capped || (st == gamma.Evaluated && gres.Gamma[n] > 1)
 	}
-	// label[n] = cluster number + 1; 0 unlabelled.
-	var label []int32
+	fl := newFailingLabels(len(gres.Status), failing)
+	if len(fl.label) == 0 {
+		return []result.Cluster{}, ""
+	}
 	type acc struct {
 		voxels int
 		volume float64
@@ -30,57 +33,55 @@ func (p *Prepared) clusters(s Settings, gres *gamma.Result, regions []*roi.Regio
 	}
 	var accs []acc
 	var stack []int
-	for n := range gres.Status {
-		if !failing(n) || (label != nil && label[n] != 0) {
-			continue
-		}
-		if label == nil {
-			label = make([]int32, len(gres.Status))
-		}
-		id := int32(len(accs) + 1)
-		a := acc{}
-		label[n] = id
-		stack = append(stack[:0], n)
-		for len(stack) > 0 {
-			m := stack[len(stack)-1]
-			stack = stack[:len(stack)-1]
-			v := p.sizes.Volume(m)
-			i, j, k := ref.IJK(m)
-			w := ref.WorldOf(i, j, k)
-			a.voxels++
-			a.volume += v
-			for q := 0; q < 3; q++ {
-				a.c[q] += v * w[q]
+	for w, word := range fl.bits {
+		for ; word != 0; word &= word - 1 {
+			n := w<<6 | bits.TrailingZeros64(word)
+			sl, _ := fl.slot(n)
+			if fl.label[sl] != 0 {
+				continue
 			}
-			a.gmax = max(a.gmax, float64(gres.Gamma[m]))
-			for dk := -1; dk <= 1; dk++ {
-				kk := k + dk
-				if kk < 0 || kk >= nz {
-					continue
+			id := int32(len(accs) + 1)
+			a := acc{}
+			fl.label[sl] = id
+			stack = append(stack[:0], n)
+			for len(stack) > 0 {
+				m := stack[len(stack)-1]
+				stack = stack[:len(stack)-1]
+				v := p.sizes.Volume(m)
+				i, j, k := ref.IJK(m)
+				wp := ref.WorldOf(i, j, k)
+				a.voxels++
+				a.volume += v
+				for q := 0; q < 3; q++ {
+					a.c[q] += v * wp[q]
 				}
-				for dj := -1; dj <= 1; dj++ {
-					jj := j + dj
-					if jj < 0 || jj >= ny {
+				a.gmax = max(a.gmax, float64(gres.Gamma[m]))
+				for dk := -1; dk <= 1; dk++ {
+					kk := k + dk
+					if kk < 0 || kk >= nz {
 						continue
 					}
-					for di := -1; di <= 1; di++ {
-						ii := i + di
-						if ii < 0 || ii >= nx {
+					for dj := -1; dj <= 1; dj++ {
+						jj := j + dj
+						if jj < 0 || jj >= ny {
 							continue
 						}
-						o := ii + nx*(jj+ny*kk)
-						if label[o] == 0 && failing(o) {
-							label[o] = id
-							stack = append(stack, o)
+						for di := -1; di <= 1; di++ {
+							ii := i + di
+							if ii < 0 || ii >= nx {
+								continue
+							}
+							o := ii + nx*(jj+ny*kk)
+							if so, ok := fl.slot(o); ok && fl.label[so] == 0 {
+								fl.label[so] = id
+								stack = append(stack, o)
+							}
 						}
 					}
 				}
 			}
+			accs = append(accs, a)
 		}
-		accs = append(accs, a)
-	}
-	if len(accs) == 0 {
-		return []result.Cluster{}, ""
 	}
 	// ROIs touched, per cluster.
 	touched := make([][]string, len(accs))
@@ -90,7 +91,11 @@ func (p *Prepared) clusters(s Settings, gres *gamma.Result, regions []*roi.Regio
 		}
 		seen := map[int32]bool{}
 		for _, n := range reg.Centres {
-			if id := label[n]; id != 0 && !seen[id] {
+			sl, ok := fl.slot(int(n))
+			if !ok {
+				continue
+			}
+			if id := fl.label[sl]; id != 0 && !seen[id] {
 				seen[id] = true
 				touched[id-1] = append(touched[id-1], reg.Name)
 			}
@@ -132,4 +137,45 @@ func (p *Prepared) clusters(s Settings, gres *gamma.Result, regions []*roi.Regio
 		out = []result.Cluster{}
 	}
 	return out, note
+}
+
+// failingLabels holds a cluster label for each failing reference point: a
+// bitset of the failing points, the number of failing points before each
+// word of it, and one label per failing point (0 until labelled). About 1.5
+// bits a reference point and 4 bytes a failing one, where a label per
+// reference point took 4 bytes each after the engine, at the comparison's
+// peak (BENCHMARKS.md, "Fast when it matters").
+type failingLabels struct {
+	bits   []uint64
+	before []int32
+	label  []int32
+}
+
+// newFailingLabels marks the points n < count for which failing is true.
+func newFailingLabels(count int, failing func(int) bool) *failingLabels {
+	f := &failingLabels{bits: make([]uint64, (count+63)/64), before: make([]int32, (count+63)/64)}
+	total := 0
+	for w := range f.bits {
+		f.before[w] = int32(total)
+		var word uint64
+		for b, n := 0, w<<6; b < 64 && n < count; b, n = b+1, n+1 {
+			if failing(n) {
+				word |= 1 << b
+			}
+		}
+		f.bits[w] = word
+		total += bits.OnesCount64(word)
+	}
+	f.label = make([]int32, total)
+	return f
+}
+
+// slot returns the place of point n's label, and whether n is failing.
+func (f *failingLabels) slot(n int) (int, bool) {
+	w, b := n>>6, uint(n&63)
+	word := f.bits[w]
+	if word&(1<<b) == 0 {
+		return 0, false
+	}
+	return int(f.before[w]) + bits.OnesCount64(word&(1<<b-1)), true
 }
