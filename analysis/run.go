@@ -405,8 +405,9 @@ func (p *Prepared) Run(ctx context.Context, s Settings) (*Outcome, error) {
 			onRef.Data[n] -= r
 		}
 		out.Difference = onRef
-		// The DVHs' memory is garbage: collect it so that the cluster
-		// labels reuse it instead of growing the process.
+		// What the ROIs' figures left (each ROI's selected Γ values, the
+		// DVH summaries' histograms) is garbage: collect it so that the
+		// clusters' labels reuse it instead of growing the process.
 		runtime.GC()
 		var note string
 		res.Clusters, note = p.clusters(s, gres, out.Regions)

@@ -26,23 +26,26 @@ const (
 	// comparison.
 	EngineBytesPerReferenceVoxel = 4 + 4 + 1 + 12
 	// EngineBytesPerEvaluatedVoxel: while the engine runs, the evaluated
-	// grid (4, float32), a margin of 8 for the k-d tree over the evaluated
-	// nodes near points that need it (and its selection mask, one bit a
-	// node), the cubic B-spline's padded coefficients (4, float32) and
-	// per-cell dose bounds (2, a byte each side). The noise correction's
-	// maps (the smoothed dose, the denoised dose and its variance) are
-	// made between its two comparisons, when neither the engine's
-	// structures nor the ROIs' figures are held, and its second comparison
-	// lets go of the denoised dose once the engine has built its
-	// interpolant: its peak is that of one comparison.
-	EngineBytesPerEvaluatedVoxel = 4 + 8 + 4 + 2
+	// grid (4, float32), the cubic B-spline's padded coefficients (4,
+	// float32) and per-cell dose bounds (2, a byte each side), and a margin
+	// of 4 for the k-d tree. The tree holds the evaluated nodes near the
+	// points that fail at home with no neighbour to start from (about 40
+	// bytes a node): under 1 byte an evaluated voxel on the sweep of
+	// BENCHMARKS.md, but a dose where most points were such would take
+	// more. The noise correction's maps (the smoothed dose, the denoised
+	// dose and its variance) are made between its two comparisons, when
+	// neither the engine's structures nor the ROIs' figures are held, and
+	// its second comparison lets go of the denoised dose once the engine
+	// has built its interpolant: its peak is that of one comparison.
+	EngineBytesPerEvaluatedVoxel = 4 + 4 + 2 + 4
 	// AfterBytesPerReferenceVoxel: after the engine, the reference grid
 	// (4), Γ (4) and its status (1), the evaluated dose resampled onto the
 	// reference grid (4, turned into the difference map in place once the
-	// ROIs' figures are made), the Γ values selected for an ROI's
-	// statistics or the cluster labels (4, one at a time) and the ROIs'
-	// margin (12). The DVHs are summarised as they are read, in a few
-	// megabytes (roi.RegionSummary).
+	// ROIs' figures are made), the Γ values selected for one ROI's
+	// statistics (up to 4, for a body-sized ROI with every point above the
+	// threshold) and the ROIs' margin (12). The DVHs are summarised as they
+	// are read, in a few megabytes (roi.RegionSummary), and the clusters
+	// label the failing points only.
 	AfterBytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 12
 	// AfterBytesPerEvaluatedVoxel: after the engine, the evaluated grid as
 	// read (4), which the report and sub-grid ROIs read again.
@@ -64,7 +67,7 @@ const (
 //
 //	max(EngineBytesPerReferenceVoxel·nr + EngineBytesPerEvaluatedVoxel·ne,
 //	    AfterBytesPerReferenceVoxel·nr + AfterBytesPerEvaluatedVoxel·ne) + FixedBytesPerCase
-//	= max(21·nr + 18·ne, 29·nr + 4·ne) + 16 MiB
+//	= max(21·nr + 14·ne, 29·nr + 4·ne) + 16 MiB
 //
 // It is an admission estimate of the live heap's peak with a body-sized
 // ROI, measured (BENCHMARKS.md, "Fast when it matters"); with small ROIs
