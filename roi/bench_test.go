@@ -1,6 +1,7 @@
 package roi
 
 import (
+	"fmt"
 	"testing"
 
 	"voxgamma/phantom"
@@ -38,41 +39,45 @@ func BenchmarkDVH1e6(b *testing.B) {
 }
 
 // BenchmarkRegionDose compares the two ways to a region's metrics and
-// curve: the sorted DVH (RegionDVH, Metrics, Curve) and RegionSummary, over
-// a 60 mm-radius sphere on a 1 mm grid (0.9 M voxels) under a Gaussian dose.
+// curve, the sorted DVH (RegionDVH, Metrics, Curve) and the radix selection,
+// over spheres of 5 mm (520 voxels) and 60 mm (0.9 M voxels) radius on a
+// 1 mm grid under a Gaussian dose. RegionSummary sorts regions under 2¹⁶
+// voxels and selects by radix from there.
 func BenchmarkRegionDose(b *testing.B) {
-	sph := phantom.Sphere{Centre: [3]float64{0.3, -0.2, 0.1}, Radius: 60}
-	roi := mustROI(b, sph, phantom.ROISpec{Name: "body", PlaneSpacing: 2})
-	g := boxGrid(b, [3]float64{-60, -60, -60}, [3]float64{60, 60, 60}, [3]float64{1, 1, 1}, [3]float64{0.25, 0.25, 0.25})
-	if err := phantom.Fill(g, phantom.Gaussian([3]float64{10, 0, 0}, 30, 60)); err != nil {
-		b.Fatal(err)
-	}
-	z, err := NewRasteriser(g, Options{})
-	if err != nil {
-		b.Fatal(err)
-	}
-	reg, err := z.Rasterise(&roi, Body)
-	if err != nil {
-		b.Fatal(err)
-	}
-	vDoses := []float64{20, 40}
-	b.Run("sorted", func(b *testing.B) {
-		for b.Loop() {
-			h, err := RegionDVH(g, reg)
-			if err != nil {
-				b.Fatal(err)
-			}
-			_ = h.Metrics(vDoses)
-			if _, err := h.Curve(0.3); err != nil {
-				b.Fatal(err)
-			}
+	for _, radius := range []float64{5, 60} {
+		sph := phantom.Sphere{Centre: [3]float64{0.3, -0.2, 0.1}, Radius: radius}
+		roi := mustROI(b, sph, phantom.ROISpec{Name: "sphere", PlaneSpacing: 2})
+		g := boxGrid(b, [3]float64{-radius, -radius, -radius}, [3]float64{radius, radius, radius}, [3]float64{1, 1, 1}, [3]float64{0.25, 0.25, 0.25})
+		if err := phantom.Fill(g, phantom.Gaussian([3]float64{radius / 6, 0, 0}, radius/2, 60)); err != nil {
+			b.Fatal(err)
 		}
-	})
-	b.Run("summary", func(b *testing.B) {
-		for b.Loop() {
-			if _, err := RegionSummary(g, reg, vDoses, 0.3); err != nil {
-				b.Fatal(err)
-			}
+		z, err := NewRasteriser(g, Options{})
+		if err != nil {
+			b.Fatal(err)
 		}
-	})
+		reg, err := z.Rasterise(&roi, Body)
+		if err != nil {
+			b.Fatal(err)
+		}
+		vDoses := []float64{20, 40}
+		b.Run(fmt.Sprintf("r%g/sorted", radius), func(b *testing.B) {
+			for b.Loop() {
+				h, err := RegionDVH(g, reg)
+				if err != nil {
+					b.Fatal(err)
+				}
+				_ = h.Metrics(vDoses)
+				if _, err := h.Curve(0.3); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+		b.Run(fmt.Sprintf("r%g/radix", radius), func(b *testing.B) {
+			for b.Loop() {
+				if _, err := radixSummary(g, reg, vDoses, 0.3); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	}
 }

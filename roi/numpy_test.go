@@ -54,7 +54,7 @@ print('total', repr(float(total)))
 // definitions computed by numpy on the same voxel data: a rasterised sphere
 // under an invented Gaussian dose (partial-volume weights) and 200 000
 // random voxels; the sphere's D98, D95, D50, D2, mean, volume and V_d also
-// as RegionSummary computes them.
+// as RegionSummary's radix selection computes them.
 func TestDVHAgainstNumpy(t *testing.T) {
 	py := numpyPython(t)
 	dir := t.TempDir()
@@ -87,11 +87,11 @@ func TestDVHAgainstNumpy(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		// The region's summary, by radix selection and in one pass per
-		// digit (RegionSummary), is held to numpy's values too.
+		// The region's summary by radix selection (RegionSummary's way
+		// for regions of 2¹⁶ voxels or more) is held to numpy's values too.
 		var sum *Metrics
 		if c.name == "rasterised sphere" {
-			s, err := RegionSummary(g, reg, levels, 0)
+			s, err := radixSummary(g, reg, levels, 0)
 			if err != nil {
 				t.Fatal(err)
 			}

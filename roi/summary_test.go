@@ -23,11 +23,13 @@ func summaryGrid(t *testing.T, radius float64, fill func(n int) float32) (*volum
 	return g, mustRasterise(t, g, &roi, Options{})
 }
 
-// TestRegionSummaryMatchesDVH checks RegionSummary's metrics and curve
-// against those of the sorted DVH (RegionDVH, itself checked against numpy
-// in TestDVHAgainstNumpy): the doses D_x, minimum, maximum and the curve's
+// TestRegionSummaryMatchesDVH checks the radix selection's metrics and
+// curve (RegionSummary's for regions of 2¹⁶ voxels or more) against those
+// of the sorted DVH (RegionDVH, itself checked against numpy in
+// TestDVHAgainstNumpy): the doses D_x, minimum, maximum and the curve's
 // doses exactly, volumes and the mean to 1e-12 (the sums run in another
-// order). The doses: ties on a quarter-gray lattice with NaN and signed
+// order). RegionSummary itself, on these smaller regions, gives the sorted
+// DVH's figures bit for bit. The doses: ties on a quarter-gray lattice with NaN and signed
 // zeros; continuous doses; all in a band of 0.2 Gy at 60 Gy, which shares
 // one or two buckets of the first digit and is settled by the second;
 // negative doses.
@@ -61,9 +63,12 @@ func TestRegionSummaryMatchesDVH(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			s, err := RegionSummary(g, reg, vDoses, bin)
+			s, err := radixSummary(g, reg, vDoses, bin)
 			if err != nil || s.CurveErr != nil {
 				t.Fatalf("%s: %v, %v", name, err, s.CurveErr)
+			}
+			if small, err := RegionSummary(g, reg, vDoses, bin); err != nil || small.Metrics.Mean != want.Mean || small.Metrics.VolumeCC != want.VolumeCC || small.Curve.CC[0] != wantCurve.CC[0] {
+				t.Errorf("%s: RegionSummary of %d voxels: %v, mean %g, volume %g; want the sorted DVH's %g, %g", name, len(reg.Index), err, small.Metrics.Mean, small.Metrics.VolumeCC, want.Mean, want.VolumeCC)
 			}
 			got := s.Metrics
 			tol := 1e-12 * want.VolumeCC
@@ -102,39 +107,49 @@ func TestRegionSummaryMatchesDVH(t *testing.T) {
 
 // TestRegionSummaryEdges: a region under 0.03 cm³, a region with no known
 // dose, a curve that cannot be made (its metrics still given), and a dose
-// on another grid.
+// on another grid, for RegionSummary (which sorts regions this small) and
+// the radix selection alike.
 func TestRegionSummaryEdges(t *testing.T) {
-	g, reg := summaryGrid(t, 1.8, func(n int) float32 { return float32(n % 7) })
-	h, err := RegionDVH(g, reg)
-	if err != nil {
-		t.Fatal(err)
+	ways := map[string]func(*volume.Grid, *Region, []float64, float64) (Summary, error){
+		"RegionSummary": RegionSummary, "radix selection": radixSummary,
 	}
-	s, err := RegionSummary(g, reg, nil, 0)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if want := h.Metrics(nil); !s.Metrics.Below003cc || s.Metrics.D003cc != want.D003cc || s.Metrics.D003cc != h.Min {
-		t.Errorf("tiny region: D0.03cc %g (below %v), want the minimum %g", s.Metrics.D003cc, s.Metrics.Below003cc, h.Min)
-	}
-
-	g, reg = summaryGrid(t, 5, func(int) float32 { return float32(math.NaN()) })
-	if _, err := RegionSummary(g, reg, nil, 0); !errors.Is(err, ErrEmpty) {
-		t.Errorf("no known dose: error %v, want ErrEmpty", err)
-	}
-
-	g, reg = summaryGrid(t, 5, func(n int) float32 { return float32(n % 50) })
-	for _, bin := range []float64{math.NaN(), math.Inf(1), 1e-9} {
-		s, err := RegionSummary(g, reg, []float64{10}, bin)
-		if err != nil || s.CurveErr == nil || len(s.Curve.Dose) != 0 {
-			t.Errorf("bin %g: error %v, curve error %v, %d points; want a curve error and no curve", bin, err, s.CurveErr, len(s.Curve.Dose))
+	for way, summary := range ways {
+		g, reg := summaryGrid(t, 1.8, func(n int) float32 { return float32(n % 7) })
+		h, err := RegionDVH(g, reg)
+		if err != nil {
+			t.Fatal(err)
 		}
-		if s.Metrics.Max != 49 || len(s.Metrics.V) != 1 {
-			t.Errorf("bin %g: metrics %+v lost with the curve", bin, s.Metrics)
+		s, err := summary(g, reg, nil, 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if want := h.Metrics(nil); !s.Metrics.Below003cc || s.Metrics.D003cc != want.D003cc || s.Metrics.D003cc != h.Min {
+			t.Errorf("%s, tiny region: D0.03cc %g (below %v), want the minimum %g", way, s.Metrics.D003cc, s.Metrics.Below003cc, h.Min)
+		}
+
+		g, reg = summaryGrid(t, 5, func(int) float32 { return float32(math.NaN()) })
+		if _, err := summary(g, reg, nil, 0); !errors.Is(err, ErrEmpty) {
+			t.Errorf("%s, no known dose: error %v, want ErrEmpty", way, err)
+		}
+
+		g, reg = summaryGrid(t, 5, func(n int) float32 { return float32(n % 50) })
+		for _, bin := range []float64{math.NaN(), math.Inf(1), 1e-9} {
+			s, err := summary(g, reg, []float64{10}, bin)
+			if err != nil || s.CurveErr == nil || len(s.Curve.Dose) != 0 {
+				t.Errorf("%s, bin %g: error %v, curve error %v, %d points; want a curve error and no curve", way, bin, err, s.CurveErr, len(s.Curve.Dose))
+			}
+			if s.Metrics.Max != 49 || len(s.Metrics.V) != 1 {
+				t.Errorf("%s, bin %g: metrics %+v lost with the curve", way, bin, s.Metrics)
+			}
 		}
 	}
 
+	g, reg := summaryGrid(t, 5, func(n int) float32 { return 1 })
 	other := boxGrid(t, [3]float64{-10, -10, -10}, [3]float64{10, 10, 10}, [3]float64{1, 1, 1}, [3]float64{})
 	if _, err := RegionSummary(other, reg, nil, 0); err == nil {
 		t.Error("a dose on another grid gave no error")
+	}
+	if _, err := RegionSummary(g, nil, nil, 0); err == nil {
+		t.Error("no region gave no error")
 	}
 }
