@@ -10,6 +10,7 @@ import (
 	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/stat"
 
+	"voxgamma/internal/selection"
 	"voxgamma/volume"
 )
 
@@ -111,26 +112,10 @@ func checkRegionDose(dose *volume.Grid, r *Region) error {
 
 // descendingKey maps a float32 that is not NaN to a uint32 whose ascending
 // order is the floats' descending order (−0 after +0).
-func descendingKey(d float32) uint32 {
-	b := math.Float32bits(d)
-	if b&(1<<31) != 0 {
-		b = ^b // negative: larger magnitude, smaller value
-	} else {
-		b |= 1 << 31
-	}
-	return ^b
-}
+func descendingKey(d float32) uint32 { return ^selection.AscendingKey(d) }
 
 // doseOfKey inverts descendingKey.
-func doseOfKey(k uint32) float32 {
-	b := ^k
-	if b&(1<<31) != 0 {
-		b &^= 1 << 31
-	} else {
-		b = ^b
-	}
-	return math.Float32frombits(b)
-}
+func doseOfKey(k uint32) float32 { return selection.FloatOfKey(^k) }
 
 // doseWeight is one voxel of a DVH being built: its dose and volume.
 type doseWeight struct{ d, w float64 }

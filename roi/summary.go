@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 
+	"voxgamma/internal/selection"
 	"voxgamma/volume"
 )
 
@@ -25,10 +26,6 @@ type Summary struct {
 // time and memory than the selection's histograms (3 MB, a few
 // milliseconds).
 const radixFrom = 1 << 16
-
-// radixBits is the width of each of the two digits into which
-// RegionSummary splits a dose's 32-bit ordering key.
-const radixBits = 16
 
 // RegionSummary returns the metrics (with V_d at each dose of vDoses, Gy)
 // and the curve (every binWidth Gy, ≤ 0 for the default; see [DVH.Curve])
@@ -69,7 +66,7 @@ func RegionSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth floa
 // and r are checked.
 func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float64) (Summary, error) {
 	h := &DVH{Name: r.Name}
-	hist := make([]float64, 1<<radixBits)
+	sel := selection.NewRadix()
 	vcc := make([]float64, len(vDoses))
 	var total, sumDW float64
 	lo, hi := math.Inf(1), math.Inf(-1)
@@ -86,7 +83,7 @@ func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float
 		total += w
 		sumDW += w * x
 		lo, hi = min(lo, x), max(hi, x)
-		hist[descendingKey(d)>>radixBits] += w
+		sel.Add(descendingKey(d), w)
 		for i, v := range vDoses {
 			if !(x < v) { // as DVH.V: the volume with dose ≥ v
 				vcc[i] += w
@@ -101,15 +98,14 @@ func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float
 	// The D_x to find: D98, D95, D50, D2 and D0.03cc, each as the
 	// smallest dose rank whose cumulative volume reaches its threshold
 	// (DVH.rank), located first by bucket.
-	sel := radixSelection{hist: hist}
 	pcts := [4]float64{98, 95, 50, 2}
 	var at [5]int
 	for i, p := range pcts {
-		at[i] = sel.want(p/100*total - RankTolerance*total)
+		at[i] = sel.Want(p/100*total - RankTolerance*total)
 	}
 	below003 := 0.03 > total
 	if !below003 {
-		at[4] = sel.want(0.03 - RankTolerance*total)
+		at[4] = sel.Want(0.03 - RankTolerance*total)
 	}
 
 	s := Summary{}
@@ -122,7 +118,7 @@ func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float
 		if !(w > 0) || d != d { // left out in the first pass
 			continue
 		}
-		sel.add(descendingKey(d), w)
+		sel.AddLow(descendingKey(d), w)
 		curve.add(float64(d), w)
 	}
 
@@ -131,7 +127,7 @@ func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float
 		if at[i] < 0 {
 			return lo // beyond the total: the last voxel (DVH.rank clamps)
 		}
-		return float64(doseOfKey(sel.key(at[i])))
+		return float64(doseOfKey(sel.Key(at[i])))
 	}
 	m.D98, m.D95, m.D50, m.D2 = dx(0), dx(1), dx(2), dx(3)
 	if below003 {
@@ -151,71 +147,6 @@ func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float
 		s.Curve = curve.finish(total)
 	}
 	return s, nil
-}
-
-// radixSelection finds weighted order statistics of 32-bit keys in two
-// passes: the first fills hist (the volume of each value of the keys' top
-// 16 bits), want names a threshold, and the second pass's add sums the
-// volumes of the wanted buckets by the keys' low 16 bits.
-type radixSelection struct {
-	hist []float64
-	// targets are the thresholds asked for; bucket, before their buckets
-	// and the volume of the keys below them; low the second digit's sums
-	// of each bucket (shared by targets in the same bucket).
-	targets []float64
-	bucket  []int
-	before  []float64
-	low     map[int][]float64
-}
-
-// want registers the threshold t (a cumulative volume) and returns its
-// handle for key, or −1 when the keys' total volume does not reach t.
-func (s *radixSelection) want(t float64) int {
-	cum := 0.0
-	for b, v := range s.hist {
-		if v == 0 {
-			continue
-		}
-		if cum+v >= t {
-			if s.low == nil {
-				s.low = map[int][]float64{}
-			}
-			if s.low[b] == nil {
-				s.low[b] = make([]float64, 1<<radixBits)
-			}
-			s.targets = append(s.targets, t)
-			s.bucket = append(s.bucket, b)
-			s.before = append(s.before, cum)
-			return len(s.targets) - 1
-		}
-		cum += v
-	}
-	return -1
-}
-
-// add takes one key of weight w in the second pass.
-func (s *radixSelection) add(k uint32, w float64) {
-	if l := s.low[int(k>>radixBits)]; l != nil {
-		l[k&(1<<radixBits-1)] += w
-	}
-}
-
-// key returns the smallest key whose cumulative volume (the keys at or
-// below it) reaches target i's threshold: within its bucket, the first low
-// digit that reaches it, or the bucket's last key when the sums by digit,
-// rounded differently from the bucket's, fall short.
-func (s *radixSelection) key(i int) uint32 {
-	b, cum, last := s.bucket[i], s.before[i], -1
-	for l, v := range s.low[b] {
-		if v == 0 {
-			continue
-		}
-		last = l
-		if cum += v; cum >= s.targets[i] {
-			break
-		}
-	}
-	return uint32(b)<<radixBits | uint32(last)
 }
 
 // curveBins sums the volume of a DVH's voxels between the doses at which

@@ -1,6 +1,8 @@
-// Package selection finds order statistics of a slice in place: the k-th
-// smallest value without sorting the whole slice (Hoare's selection, as
-// used for the engine's Γ percentiles and the noise estimator's medians).
+// Package selection finds order statistics without sorting: Kth, the k-th
+// smallest value of a slice in place (Hoare's selection, for the noise
+// estimator's medians), and Radix, weighted order statistics of 32-bit keys
+// in two passes and fixed memory (for the engine's Γ percentiles and the
+// DVH metrics of large regions).
 package selection
 
 // Kth reorders v so that v[k] is its k-th smallest value (0-based),
