@@ -269,8 +269,8 @@ func cpuSeconds() float64 {
 	return float64(ru.Utime.Sec+ru.Stime.Sec) + float64(ru.Utime.Usec+ru.Stime.Usec)/1e6
 }
 
-// BenchmarkStatsAll measures the summary of a whole grid's Γ, which runs on
-// one core after the search: 256 × 256 × 160 reference points of which
+// BenchmarkStatsAll measures the summary of a whole grid's Γ, made on the
+// workers after the search: 256 × 256 × 160 reference points of which
 // 1.40 M (13 %) are evaluated, as in the sweep of BENCHMARKS.md, with Γ drawn
 // from a seeded generator (a third of the points above 1).
 func BenchmarkStatsAll(b *testing.B) {

@@ -129,6 +129,10 @@ type Result struct {
 	Status []Status
 	// Stats summarises all reference points.
 	Stats Stats
+
+	// workers is the comparison's worker count (Options.Workers), which
+	// StatsOver uses too.
+	workers int
 }
 
 // Passed reports whether reference point n was evaluated and passed
@@ -314,7 +318,7 @@ func search(ctx context.Context, src source, eval *volume.Grid, c Criteria, opt 
 	}
 	src.bind(f, c.DTA)
 	n := src.len()
-	res := &Result{Criteria: c, Method: opt.Method, Interpolation: opt.Interpolation, Gamma: make([]float32, n), Status: make([]Status, n)}
+	res := &Result{Criteria: c, Method: opt.Method, Interpolation: opt.Interpolation, Gamma: make([]float32, n), Status: make([]Status, n), workers: opt.Workers}
 	threshold := c.ThresholdPercent / 100 * c.NormDose
 	wGlobal := 1 / (c.DosePercent / 100 * c.NormDose)
 

@@ -2,6 +2,9 @@ package gamma
 
 import (
 	"math"
+	"runtime"
+	"sync"
+
 	"voxgamma/internal/selection"
 )
 
@@ -39,85 +42,201 @@ func (r *Result) StatsAll() Stats { return r.stats(nil, true) }
 // indices is empty).
 func (r *Result) StatsOver(indices []int32) Stats { return r.stats(indices, false) }
 
+// statsChunk is how many points each part of the statistics covers. The
+// parts are fixed whatever the worker count, and their sums are added in
+// order, so the statistics do not depend on it.
+const statsChunk = 1 << 16
+
+// statsRadixFrom is the number of evaluated points from which the
+// percentiles are found by a radix selection on the workers (512 kB of
+// counts each) rather than by selection in place on one.
+const statsRadixFrom = 1 << 16
+
+// statsPart is what one part of the points contributes to Stats.
+type statsPart struct {
+	notSelected, below, outside, capped, passed, above int
+	sum                                                float64 // of Γ, in float64
+	max                                                float32
+}
+
+// stats summarises the points listed in indices, or every point when all
+// is set, on the comparison's workers. Each worker takes consecutive parts
+// of the points, counts them, sums Γ and copies it (float32) into its own
+// list; the parts' sums are added in order. The percentiles come from the
+// lists: from statsRadixFrom values by a radix selection of Γ's float32
+// bits on the workers (internal/selection.Radix: the counts of each value
+// of the top 16 bits, then of the low 16 bits in the buckets that hold the
+// order statistics wanted), below it by selection in place
+// (percentileSelect). Nothing depends on the worker count.
 func (r *Result) stats(indices []int32, all bool) Stats {
-	var s Stats
-	n := 0
-	count := func(i int) {
-		if st := r.Status[i]; st == Evaluated || st == Capped {
-			n++
-		}
-	}
+	n := len(indices)
 	if all {
-		for i := range r.Status {
-			count(i)
-		}
-	} else {
-		for _, i := range indices {
-			count(int(i))
-		}
+		n = len(r.Status)
 	}
-	// Γ is stored as float32: its values are kept so (half the memory of
-	// float64 for a whole grid's points), every sum and difference below is
-	// taken in float64.
-	values := make([]float32, 0, n)
-	add := func(n int) {
-		switch r.Status[n] {
-		case NotSelected:
-			s.NotSelected++
-		case BelowThreshold:
-			s.BelowThreshold++
-		case Outside:
-			s.Outside++
-		case Capped:
-			s.Capped++
-			values = append(values, r.Gamma[n])
-		case Evaluated:
-			values = append(values, r.Gamma[n])
-			if r.Gamma[n] <= 1 {
-				s.Passed++
+	parts := make([]statsPart, (n+statsChunk-1)/statsChunk)
+	workers := r.workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	workers = max(1, min(workers, len(parts)))
+	lists := make([][]float32, workers)
+	forParts(len(parts), workers, func(w, lo, hi int) {
+		// The list is made to size (the statuses counted first) rather
+		// than grown: growing it left twice its size to the collector.
+		size := 0
+		for i := lo * statsChunk; i < min(n, hi*statsChunk); i++ {
+			m := i
+			if !all {
+				m = int(indices[i])
+			}
+			if st := r.Status[m]; st == Evaluated || st == Capped {
+				size++
 			}
 		}
-	}
-	if all {
-		for n := range r.Status {
-			add(n)
+		list := make([]float32, 0, size)
+		for p := lo; p < hi; p++ {
+			pt := statsPart{max: float32(math.Inf(-1))}
+			for i := p * statsChunk; i < min(n, (p+1)*statsChunk); i++ {
+				m := i
+				if !all {
+					m = int(indices[i])
+				}
+				switch r.Status[m] {
+				case NotSelected:
+					pt.notSelected++
+					continue
+				case BelowThreshold:
+					pt.below++
+					continue
+				case Outside:
+					pt.outside++
+					continue
+				case Capped:
+					pt.capped++
+				case Evaluated:
+					if r.Gamma[m] <= 1 {
+						pt.passed++
+					}
+				default:
+					continue
+				}
+				g := r.Gamma[m]
+				pt.sum += float64(g)
+				if g > 1.5 {
+					pt.above++
+				}
+				pt.max = max(pt.max, g)
+				list = append(list, g)
+			}
+			parts[p] = pt
 		}
-	} else {
-		for _, n := range indices {
-			add(int(n))
-		}
+		lists[w] = list
+	})
+	var s Stats
+	sum, above, mx := 0.0, 0, float32(math.Inf(-1))
+	for _, pt := range parts {
+		s.NotSelected += pt.notSelected
+		s.BelowThreshold += pt.below
+		s.Outside += pt.outside
+		s.Capped += pt.capped
+		s.Passed += pt.passed
+		sum += pt.sum
+		above += pt.above
+		mx = max(mx, pt.max)
 	}
-	s.Evaluated = len(values)
+	for _, l := range lists {
+		s.Evaluated += len(l)
+	}
 	s.Failed = s.Evaluated - s.Passed
-	fillDistribution(&s, values)
+	nan := math.NaN()
+	s.PassRate, s.Mean, s.Median, s.P95, s.P99, s.Max, s.AboveOneHalf = nan, nan, nan, nan, nan, nan, nan
+	if s.Evaluated == 0 {
+		return s
+	}
+	cnt := float64(s.Evaluated)
+	s.PassRate = 100 * float64(s.Passed) / cnt
+	s.Mean = sum / cnt
+	s.Max = float64(mx)
+	s.AboveOneHalf = 100 * float64(above) / cnt
+	if s.Evaluated < statsRadixFrom {
+		values := lists[0]
+		for _, l := range lists[1:] {
+			values = append(values, l...)
+		}
+		s.Median = percentileSelect(values, 50)
+		s.P95 = percentileSelect(values, 95)
+		s.P99 = percentileSelect(values, 99)
+		return s
+	}
+	s.Median, s.P95, s.P99 = radixPercentiles(lists, s.Evaluated)
 	return s
 }
 
-func fillDistribution(s *Stats, values []float32) {
-	nan := math.NaN()
-	s.PassRate, s.Mean, s.Median, s.P95, s.P99, s.Max, s.AboveOneHalf = nan, nan, nan, nan, nan, nan, nan
-	if len(values) == 0 {
-		return
-	}
-	sum, above, mx := 0.0, 0, float64(values[0])
-	for _, v32 := range values {
-		v := float64(v32)
-		sum += v
-		if v > 1.5 {
-			above++
+// radixPercentiles returns the 50th, 95th and 99th percentiles (Hyndman and
+// Fan definition 7) of the count values in lists, one list per worker, by
+// a radix selection on as many goroutines.
+func radixPercentiles(lists [][]float32, count int) (p50, p95, p99 float64) {
+	sels := make([]*selection.Radix, len(lists))
+	forParts(len(lists), len(lists), func(w, _, _ int) {
+		sel := selection.NewRadix()
+		for _, g := range lists[w] {
+			sel.Add(selection.AscendingKey(g), 1)
 		}
-		mx = math.Max(mx, v)
+		sels[w] = sel
+	})
+	sel := sels[0]
+	for _, o := range sels[1:] {
+		sel.Merge(o)
 	}
-	n := float64(len(values))
-	s.PassRate = 100 * float64(s.Passed) / n
-	s.Mean = sum / n
-	// Order statistics by selection, O(n), rather than a full sort; the
-	// values are reordered, which changes nothing else here.
-	s.Median = percentileSelect(values, 50)
-	s.P95 = percentileSelect(values, 95)
-	s.P99 = percentileSelect(values, 99)
-	s.Max = mx
-	s.AboveOneHalf = 100 * float64(above) / n
+	// The order statistics each percentile interpolates between, ranks lo
+	// and lo+1 (0-based): rank k is the smallest key whose cumulative
+	// count reaches k+1.
+	pcts := [3]float64{50, 95, 99}
+	var h [3]float64
+	var at [3][2]int
+	for i, p := range pcts {
+		h[i] = (float64(count) - 1) * p / 100
+		lo := math.Floor(h[i])
+		at[i][0] = sel.Want(lo + 1)
+		at[i][1] = at[i][0]
+		if int(lo)+1 < count {
+			at[i][1] = sel.Want(lo + 2)
+		}
+	}
+	shards := make([]*selection.Radix, len(lists))
+	forParts(len(lists), len(lists), func(w, _, _ int) {
+		shard := sel.Shard()
+		for _, g := range lists[w] {
+			shard.AddLow(selection.AscendingKey(g), 1)
+		}
+		shards[w] = shard
+	})
+	for _, o := range shards {
+		sel.MergeLow(o)
+	}
+	var out [3]float64
+	for i := range pcts {
+		a := float64(selection.FloatOfKey(sel.Key(at[i][0])))
+		b := float64(selection.FloatOfKey(sel.Key(at[i][1])))
+		out[i] = a + (h[i]-math.Floor(h[i]))*(b-a)
+	}
+	return out[0], out[1], out[2]
+}
+
+// forParts calls fn(w, lo, hi) for worker w = 0 … workers−1 on its own
+// consecutive parts lo … hi−1 of [0, parts), on as many goroutines.
+func forParts(parts, workers int, fn func(w, lo, hi int)) {
+	per := (parts + workers - 1) / workers
+	var wg sync.WaitGroup
+	for w := 0; w < workers; w++ {
+		lo, hi := min(parts, w*per), min(parts, (w+1)*per)
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			fn(w, lo, hi)
+		}()
+	}
+	wg.Wait()
 }
 
 // percentileSelect returns Percentile(sorted(v), p) without sorting v: it
