@@ -1,6 +1,7 @@
 package selection
 
 import (
+	"cmp"
 	"math"
 	"math/rand/v2"
 	"slices"
@@ -36,15 +37,7 @@ func TestRadixAgainstSort(t *testing.T) {
 			}
 		}
 		sorted := slices.Clone(v)
-		slices.SortFunc(sorted, func(a, b kw) int {
-			switch {
-			case a.k < b.k:
-				return -1
-			case a.k > b.k:
-				return 1
-			}
-			return 0
-		})
+		slices.SortFunc(sorted, func(a, b kw) int { return cmp.Compare(a.k, b.k) })
 		total := 0.0
 		for _, x := range v {
 			total += x.w
@@ -58,16 +51,20 @@ func TestRadixAgainstSort(t *testing.T) {
 			}
 			return 0, false
 		}
-		whole, parts := NewRadix(), NewRadix()
-		half := NewRadix()
-		for i, x := range v {
-			whole.Add(x.k, x.w)
-			if i < n/2 {
-				parts.Add(x.k, x.w)
-			} else {
-				half.Add(x.k, x.w)
+		// feed gives every key to all, and the first split of them to
+		// first, the rest to rest.
+		feed := func(all, first, rest func(uint32, float64), split int) {
+			for i, x := range v {
+				all(x.k, x.w)
+				if i < split {
+					first(x.k, x.w)
+				} else {
+					rest(x.k, x.w)
+				}
 			}
 		}
+		whole, parts, half := NewRadix(), NewRadix(), NewRadix()
+		feed(whole.Add, parts.Add, half.Add, n/2)
 		parts.Merge(half)
 		thresholds := []float64{0, 1e-9, 0.5, 1, total / 2, total * 0.95, total, total + 1, float64(rng.IntN(n + 1))}
 		var handles, partHandles []int
@@ -76,14 +73,7 @@ func TestRadixAgainstSort(t *testing.T) {
 			partHandles = append(partHandles, parts.Want(th))
 		}
 		shard := parts.Shard()
-		for i, x := range v {
-			whole.AddLow(x.k, x.w)
-			if i < n/3 {
-				shard.AddLow(x.k, x.w)
-			} else {
-				parts.AddLow(x.k, x.w)
-			}
-		}
+		feed(whole.AddLow, shard.AddLow, parts.AddLow, n/3)
 		parts.MergeLow(shard)
 		for j, th := range thresholds {
 			k, ok := want(th)
