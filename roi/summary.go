@@ -30,7 +30,7 @@ const radixFrom = 1 << 16
 // RegionSummary returns the metrics (with V_d at each dose of vDoses, Gy)
 // and the curve (every binWidth Gy, ≤ 0 for the default; see [DVH.Curve])
 // of dose's DVH over region r: the values that [RegionDVH] followed by
-// [DVH.Metrics] and [DVH.Curve] gives, by the same definitions (the package
+// [DVH.Metrics] and [DVH.Curve] give, by the same definitions (the package
 // documentation), without holding the region's voxels sorted. A body
 // outline holds millions of voxels, whose sorted DVH takes 16 bytes each;
 // this takes a few megabytes whatever the region's size.
