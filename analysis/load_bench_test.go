@@ -29,3 +29,29 @@ func BenchmarkLoad(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkDoseMeans measures the check of the doses' ratio made before
+// every comparison (doseMeans: the mean reference and evaluated dose over
+// the reference's high-dose points, the evaluated dose sampled at each) on
+// the sweep generator's 256 × 256 × 160 reference and failing evaluated
+// dose.
+//
+//	go test -run '^$' -bench DoseMeans -count 6 ./analysis/
+func BenchmarkDoseMeans(b *testing.B) {
+	size := benchcase.Size{256, 256, 160}
+	ref, err := benchcase.Reference(size)
+	if err != nil {
+		b.Fatal(err)
+	}
+	eval, err := benchcase.Evaluated(size, benchcase.Variants[len(benchcase.Variants)-1], 2026)
+	if err != nil {
+		b.Fatal(err)
+	}
+	p := &Prepared{Loaded: &Loaded{Reference: ref, Evaluated: eval}}
+	b.ResetTimer()
+	for b.Loop() {
+		if _, _, n := p.doseMeans(); n == 0 {
+			b.Fatal("no high-dose point")
+		}
+	}
+}

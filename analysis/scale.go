@@ -3,8 +3,11 @@ package analysis
 import (
 	"fmt"
 	"math"
+	"runtime"
 	"strconv"
 	"strings"
+	"sync"
+	"sync/atomic"
 
 	"voxgamma/dicomio"
 )
@@ -60,6 +63,9 @@ func ParseScale(v string) (Scale, error) {
 // fraction of the reference maximum (as dicomio.HighDoseFraction).
 const ScaleSample = dicomio.HighDoseFraction
 
+// meanChunk is how many reference voxels each part of doseMeans covers.
+const meanChunk = 1 << 16
+
 // doseMeans returns the mean reference and mean evaluated dose over the
 // reference points at or above ScaleSample of the reference maximum that
 // the evaluated dose covers, and how many points that is (0 when none). A
@@ -74,16 +80,41 @@ func (p *Prepared) doseMeans() (ref, eval float64, n int) {
 			return 0, 0, 0
 		}
 		thr := float32(ScaleSample) * peak
-		for i, r := range p.Reference.Data {
-			if r < thr {
-				continue
-			}
-			x, y, z := p.Reference.IJK(i)
-			if e, ok := p.Evaluated.Sample(p.Reference.WorldOf(x, y, z)); ok && e == e {
-				sr += float64(r)
-				se += float64(float32(e)) // as a resampled grid would hold it
-				n++
-			}
+		// Fixed parts of the grid, taken by the cores in turn; their sums
+		// are added in order, so the means do not depend on the cores.
+		data := p.Reference.Data
+		type part struct {
+			sr, se float64
+			n      int
+		}
+		parts := make([]part, (len(data)+meanChunk-1)/meanChunk)
+		var next atomic.Int64
+		var wg sync.WaitGroup
+		for range min(runtime.GOMAXPROCS(0), len(parts)) {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				for c := int(next.Add(1)) - 1; c < len(parts); c = int(next.Add(1)) - 1 {
+					var pt part
+					for i := c * meanChunk; i < min(len(data), (c+1)*meanChunk); i++ {
+						r := data[i]
+						if r < thr {
+							continue
+						}
+						x, y, z := p.Reference.IJK(i)
+						if e, ok := p.Evaluated.Sample(p.Reference.WorldOf(x, y, z)); ok && e == e {
+							pt.sr += float64(r)
+							pt.se += float64(float32(e)) // as a resampled grid would hold it
+							pt.n++
+						}
+					}
+					parts[c] = pt
+				}
+			}()
+		}
+		wg.Wait()
+		for _, pt := range parts {
+			sr, se, n = sr+pt.sr, se+pt.se, n+pt.n
 		}
 	} else {
 		peak := p.referenceMax()
