@@ -109,10 +109,8 @@ func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float
 	}
 
 	s := Summary{}
-	var curve curveBins
-	if s.CurveErr = curve.init(h, binWidth); s.CurveErr != nil {
-		curve = curveBins{}
-	}
+	var curve curveBins // without bins when the curve cannot be made
+	s.CurveErr = curve.init(h, binWidth)
 	for q, n := range r.Index {
 		d, w := dose.Data[n], r.voxelCC(q)
 		if !(w > 0) || d != d { // left out in the first pass
