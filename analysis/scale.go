@@ -3,13 +3,11 @@ package analysis
 import (
 	"fmt"
 	"math"
-	"runtime"
 	"strconv"
 	"strings"
-	"sync"
-	"sync/atomic"
 
 	"voxgamma/dicomio"
+	"voxgamma/internal/parallel"
 )
 
 // Scale is a factor the evaluated dose is multiplied by before the
@@ -80,39 +78,32 @@ func (p *Prepared) doseMeans() (ref, eval float64, n int) {
 			return 0, 0, 0
 		}
 		thr := float32(ScaleSample) * peak
-		// Fixed parts of the grid, taken by the cores in turn; their sums
-		// are added in order, so the means do not depend on the cores.
+		// Fixed parts of the grid on the cores; their sums are added in
+		// order, so the means do not depend on the cores.
 		data := p.Reference.Data
 		type part struct {
 			sr, se float64
 			n      int
 		}
 		parts := make([]part, (len(data)+meanChunk-1)/meanChunk)
-		var next atomic.Int64
-		var wg sync.WaitGroup
-		for range min(runtime.GOMAXPROCS(0), len(parts)) {
-			wg.Add(1)
-			go func() {
-				defer wg.Done()
-				for c := int(next.Add(1)) - 1; c < len(parts); c = int(next.Add(1)) - 1 {
-					var pt part
-					for i := c * meanChunk; i < min(len(data), (c+1)*meanChunk); i++ {
-						r := data[i]
-						if r < thr {
-							continue
-						}
-						x, y, z := p.Reference.IJK(i)
-						if e, ok := p.Evaluated.Sample(p.Reference.WorldOf(x, y, z)); ok && e == e {
-							pt.sr += float64(r)
-							pt.se += float64(float32(e)) // as a resampled grid would hold it
-							pt.n++
-						}
+		parallel.Ranges(len(parts), 0, func(_, c0, c1 int) {
+			for c := c0; c < c1; c++ {
+				var pt part
+				for i := c * meanChunk; i < min(len(data), (c+1)*meanChunk); i++ {
+					r := data[i]
+					if r < thr {
+						continue
 					}
-					parts[c] = pt
+					x, y, z := p.Reference.IJK(i)
+					if e, ok := p.Evaluated.Sample(p.Reference.WorldOf(x, y, z)); ok && e == e {
+						pt.sr += float64(r)
+						pt.se += float64(float32(e)) // as a resampled grid would hold it
+						pt.n++
+					}
 				}
-			}()
-		}
-		wg.Wait()
+				parts[c] = pt
+			}
+		})
 		for _, pt := range parts {
 			sr, se, n = sr+pt.sr, se+pt.se, n+pt.n
 		}

@@ -2,7 +2,8 @@ package gamma
 
 import (
 	"math"
-	"sync"
+
+	"voxgamma/internal/parallel"
 )
 
 // The tensor-product interpolants (cubic B-spline and trilinear) are held as
@@ -272,7 +273,7 @@ func newSpline(f *field, interp Interpolation, workers int) *spline {
 		b0, b1 := rng(b)
 		c0, c1 := rng(c)
 		lines := (b1 - b0) * (c1 - c0)
-		parallel(lines, workers, func(lo, hi int) {
+		inChunks(lines, workers, func(lo, hi int) {
 			buf := make([]float64, np[a])
 			for l := lo; l < hi; l++ {
 				ib := b0 + l%(b1-b0)
@@ -344,7 +345,7 @@ func (s *spline) ranges(workers int) {
 	cells := nc[0] * nc[1]
 	s.q = make([][2]uint8, cells*nc[2])
 	ax, ay, az := &s.ax[0], &s.ax[1], &s.ax[2]
-	parallel(nc[2], workers, func(k0, k1 int) {
+	inChunks(nc[2], workers, func(k0, k1 int) {
 		zlo := make([]float32, np[0]*np[1])
 		zhi := make([]float32, np[0]*np[1])
 		xlo := make([]float32, nc[0]*np[1])
@@ -416,9 +417,10 @@ func (s *spline) cellRange(i, ci, cj, ck int) (lo, hi float64) {
 	return a - s.dev[q[0]], a + s.dev[q[1]]
 }
 
-// parallel calls fn on consecutive chunks of [0, n) on up to workers
-// goroutines. fn must write only what its chunk owns.
-func parallel(n, workers int, fn func(lo, hi int)) {
+// inChunks calls fn on consecutive chunks of [0, n) on up to workers
+// goroutines (parallel.Ranges), or on the caller's for fewer than 64 items.
+// fn must write only what its chunk owns.
+func inChunks(n, workers int, fn func(lo, hi int)) {
 	if workers < 1 {
 		workers = 1
 	}
@@ -426,15 +428,5 @@ func parallel(n, workers int, fn func(lo, hi int)) {
 		fn(0, n)
 		return
 	}
-	chunk := (n + workers - 1) / workers
-	var wg sync.WaitGroup
-	for lo := 0; lo < n; lo += chunk {
-		hi := min(n, lo+chunk)
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			fn(lo, hi)
-		}()
-	}
-	wg.Wait()
+	parallel.Ranges(n, workers, func(_, lo, hi int) { fn(lo, hi) })
 }

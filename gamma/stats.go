@@ -3,8 +3,9 @@ package gamma
 import (
 	"math"
 	"runtime"
-	"sync"
+	"slices"
 
+	"voxgamma/internal/parallel"
 	"voxgamma/internal/selection"
 )
 
@@ -78,9 +79,8 @@ func (r *Result) stats(indices []int32, all bool) Stats {
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
-	workers = max(1, min(workers, len(parts)))
-	lists := make([][]float32, workers)
-	forParts(len(parts), workers, func(w, lo, hi int) {
+	lists := make([][]float32, max(1, min(workers, len(parts))))
+	parallel.Ranges(len(parts), workers, func(w, lo, hi int) {
 		// The list is made to size (the statuses counted first) rather
 		// than grown: growing it left twice its size to the collector.
 		size := 0
@@ -168,6 +168,8 @@ func (r *Result) stats(indices []int32, all bool) Stats {
 		s.P99 = percentileSelect(values, 99)
 		return s
 	}
+	// Fewer ranges than workers leave lists that no range filled.
+	lists = slices.DeleteFunc(lists, func(l []float32) bool { return l == nil })
 	s.Median, s.P95, s.P99 = radixPercentiles(lists, s.Evaluated)
 	return s
 }
@@ -177,7 +179,7 @@ func (r *Result) stats(indices []int32, all bool) Stats {
 // a radix selection on as many goroutines.
 func radixPercentiles(lists [][]float32, count int) (p50, p95, p99 float64) {
 	sels := make([]*selection.Radix, len(lists))
-	forParts(len(lists), len(lists), func(w, _, _ int) {
+	parallel.Ranges(len(lists), len(lists), func(w, _, _ int) {
 		sel := selection.NewRadix()
 		for _, g := range lists[w] {
 			sel.Add(selection.AscendingKey(g), 1)
@@ -204,7 +206,7 @@ func radixPercentiles(lists [][]float32, count int) (p50, p95, p99 float64) {
 		}
 	}
 	shards := make([]*selection.Radix, len(lists))
-	forParts(len(lists), len(lists), func(w, _, _ int) {
+	parallel.Ranges(len(lists), len(lists), func(w, _, _ int) {
 		shard := sel.Shard()
 		for _, g := range lists[w] {
 			shard.AddLow(selection.AscendingKey(g), 1)
@@ -221,22 +223,6 @@ func radixPercentiles(lists [][]float32, count int) (p50, p95, p99 float64) {
 		out[i] = a + (h[i]-math.Floor(h[i]))*(b-a)
 	}
 	return out[0], out[1], out[2]
-}
-
-// forParts calls fn(w, lo, hi) for worker w = 0 … workers−1 on its own
-// consecutive parts lo … hi−1 of [0, parts), on as many goroutines.
-func forParts(parts, workers int, fn func(w, lo, hi int)) {
-	per := (parts + workers - 1) / workers
-	var wg sync.WaitGroup
-	for w := 0; w < workers; w++ {
-		lo, hi := min(parts, w*per), min(parts, (w+1)*per)
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			fn(w, lo, hi)
-		}()
-	}
-	wg.Wait()
 }
 
 // percentileSelect returns Percentile(sorted(v), p) without sorting v: it
