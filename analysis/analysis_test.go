@@ -137,7 +137,7 @@ func TestPerROIFromOneMap(t *testing.T) {
 	// Recount from the map: the centre voxels of the region.
 	var reg = out.Regions[0]
 	passed, evaluated := 0, 0
-	for _, n := range reg.Centres {
+	for n := range reg.Centres.All() {
 		if g := out.Gamma.Data[n]; !math.IsNaN(float64(g)) {
 			evaluated++
 			if g <= 1 {
@@ -375,7 +375,7 @@ func TestRawFiguresPerROI(t *testing.T) {
 		t.Fatalf("corrected and raw mean Γ are the same, %v: the case does not tell them apart", *n.RawOverall.GammaMean)
 	}
 	for i, reg := range out.Regions {
-		got, want := n.ROIs[i], toGammaStats(raw.StatsOver(reg.Centres))
+		got, want := n.ROIs[i], toGammaStats(raw.StatsOver(&reg.Centres))
 		sameMean := (got.GammaMean == nil) == (want.GammaMean == nil) && (want.GammaMean == nil || *got.GammaMean == *want.GammaMean)
 		if got.Name != reg.Name || got.Evaluated != want.Evaluated || got.Passed != want.Passed || !sameMean {
 			t.Fatalf("ROI %d %q: raw %+v, direct %+v", i, reg.Name, got, want)

@@ -90,7 +90,7 @@ func (p *Prepared) clusters(s Settings, gres *gamma.Result, regions []*roi.Regio
 			continue // derived regions repeat what the ROIs say
 		}
 		seen := map[int32]bool{}
-		for _, n := range reg.Centres {
+		for n := range reg.Centres.All() {
 			sl, ok := fl.slot(int(n))
 			if !ok {
 				continue

@@ -503,7 +503,7 @@ func (p *Prepared) rawComparison(s Settings, compare func(*volume.Grid) (*gamma.
 		return nil, nil, err
 	}
 	for _, reg := range regions {
-		raw.rois = append(raw.rois, toGammaStats(graw.StatsOver(reg.Centres)))
+		raw.rois = append(raw.rois, toGammaStats(graw.StatsOver(&reg.Centres)))
 	}
 	return raw, regions, nil
 }
@@ -547,7 +547,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 	var rawROIs []result.GammaStats
 	for ri, reg := range regions {
 		src := p.sources[reg]
-		r := result.ROI{Name: reg.Name, Number: reg.Number, Kind: reg.Kind.String(), Voxels: len(reg.Centres)}
+		r := result.ROI{Name: reg.Name, Number: reg.Number, Kind: reg.Kind.String(), Voxels: reg.Centres.Len()}
 		var color [3]uint8
 		switch {
 		case src != nil:
@@ -562,21 +562,21 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 		default:
 			r.Source, color = "derived", [3]uint8{90, 90, 200}
 		}
-		r.GammaStats = toGammaStats(gres.StatsOver(reg.Centres))
+		r.GammaStats = toGammaStats(gres.StatsOver(&reg.Centres))
 		r.VolumeCC = reg.VolumeCC()
 		r.CoveredPercent = p.coveredPercent(reg, onRef)
 		r.KindSource = p.kindSource[reg]
 		if src == nil {
 			r.KindSource = "derived"
 		}
-		r.FailingVolumeCC, r.WorstCentroidMM = p.failing(reg.Centres, gres)
+		r.FailingVolumeCC, r.WorstCentroidMM = p.failing(&reg.Centres, gres)
 		r.Status, r.StatusDetail = regionStatus(reg, src, r.GammaStats)
 		var rawStats result.GammaStats
 		if raw != nil {
 			rawStats = raw.rois[ri]
 		}
 
-		if src != nil && subgrid[strings.ToLower(reg.Name)] && len(reg.Centres) > 0 {
+		if src != nil && subgrid[strings.ToLower(reg.Name)] && reg.Centres.Len() > 0 {
 			found[strings.ToLower(reg.Name)] = true
 			res.Choices.SubGridROIs = append(res.Choices.SubGridROIs, reg.Name)
 			res.Choices.SubGridStepMM = s.SubGridStep
@@ -601,7 +601,7 @@ func (p *Prepared) regionResults(ctx context.Context, s Settings, gres *gamma.Re
 			if r.Status.Evaluated() {
 				r.StatusDetail = ""
 			}
-			res.Notes = append(res.Notes, fmt.Sprintf("ROI %q evaluated on a %g mm sub-grid of reference points (reference dose interpolated trilinearly): %d points instead of %d voxels", reg.Name, step, st.Evaluated+st.BelowThreshold+st.Outside, len(reg.Centres)))
+			res.Notes = append(res.Notes, fmt.Sprintf("ROI %q evaluated on a %g mm sub-grid of reference points (reference dose interpolated trilinearly): %d points instead of %d voxels", reg.Name, step, st.Evaluated+st.BelowThreshold+st.Outside, reg.Centres.Len()))
 		}
 		if r.VolumeCC > 0 {
 			dvh, err := p.dvhPair(reg, onRef, s, gres.Criteria.NormDose)
@@ -628,12 +628,12 @@ func defaultColor(i int) [3]uint8 {
 	return palette[i%len(palette)]
 }
 
-// failing returns the volume (cm³) of the failing voxels among indices and
-// their volume-weighted centroid in patient coordinates (nil when none).
-func (p *Prepared) failing(indices []int32, gres *gamma.Result) (float64, *[3]float64) {
+// failing returns the volume (cm³) of the failing voxels in set and their
+// volume-weighted centroid in patient coordinates (nil when none).
+func (p *Prepared) failing(set *volume.Runs, gres *gamma.Result) (float64, *[3]float64) {
 	vol := 0.0
 	var c [3]float64
-	for _, n := range indices {
+	for n := range set.All() {
 		st := gres.Status[n]
 		if !(st == gamma.Capped || (st == gamma.Evaluated && gres.Gamma[n] > 1)) {
 			continue
@@ -745,9 +745,9 @@ func regionStatus(reg *roi.Region, src *structure.ROI, st result.GammaStats) (re
 			}
 		}
 		return result.StatusNoClosedContours, ""
-	case len(reg.Centres) == 0 && reg.OutsideCC > 0:
+	case reg.Centres.Len() == 0 && reg.OutsideCC > 0:
 		return result.StatusOutsideDoseGrid, ""
-	case len(reg.Centres) == 0:
+	case reg.Centres.Len() == 0:
 		return result.StatusTooSmall, ""
 	}
 	return regionStatusStats(result.StatusEvaluated, st), ""
@@ -787,8 +787,8 @@ func (p *Prepared) coveredPercent(reg *roi.Region, onRef *volume.Grid) *float64 
 		}
 	}
 	var all, covered float64
-	for i, n := range reg.Index {
-		v := float64(reg.Fraction[i]) * p.sizes.Volume(int(n))
+	for n, f := range reg.Cover.All() {
+		v := float64(f) * p.sizes.Volume(int(n))
 		all += v
 		if !math.IsNaN(float64(onRef.Data[n])) {
 			covered += v
@@ -796,7 +796,7 @@ func (p *Prepared) coveredPercent(reg *roi.Region, onRef *volume.Grid) *float64 
 	}
 	if all == 0 {
 		// Centres only (contours thinner than the sub-samples).
-		for _, n := range reg.Centres {
+		for n := range reg.Centres.All() {
 			v := p.sizes.Volume(int(n))
 			all += v
 			if !math.IsNaN(float64(onRef.Data[n])) {
@@ -980,9 +980,9 @@ func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, 
 	if err != nil {
 		return gamma.Stats{}, 0, err
 	}
-	pts := make([]gamma.Point, 0, len(freg.Centres))
+	pts := make([]gamma.Point, 0, freg.Centres.Len())
 	outside := 0
-	for _, n := range freg.Centres {
+	for n := range freg.Centres.All() {
 		i, j, k := fine.IJK(int(n))
 		w := fine.WorldOf(i, j, k)
 		d, ok := ref.Sample(w)

@@ -7,6 +7,7 @@ import (
 
 	"voxgamma/internal/parallel"
 	"voxgamma/internal/selection"
+	"voxgamma/volume"
 )
 
 // Stats summarises Γ over a set of reference points.
@@ -37,11 +38,16 @@ type Stats struct {
 }
 
 // StatsAll summarises every reference point.
-func (r *Result) StatsAll() Stats { return r.stats(nil, true) }
+func (r *Result) StatsAll() Stats { return r.stats(nil) }
 
-// StatsOver summarises the reference points listed in indices (none when
-// indices is empty).
-func (r *Result) StatsOver(indices []int32) Stats { return r.stats(indices, false) }
+// StatsOver summarises the reference points whose positions are in set
+// (none when it is empty).
+func (r *Result) StatsOver(set *volume.Runs) Stats {
+	if set == nil {
+		set = &volume.Runs{}
+	}
+	return r.stats(set)
+}
 
 // statsChunk is how many points each part of the statistics covers. The
 // parts are fixed whatever the worker count, and their sums are added in
@@ -60,19 +66,30 @@ type statsPart struct {
 	max                                                float32
 }
 
-// stats summarises the points listed in indices, or every point when all
-// is set, on the comparison's workers. Each worker takes consecutive parts
-// of the points, counts them, sums Γ and copies it (float32) into its own
-// list; the parts' sums are added in order. The percentiles come from the
-// lists: from statsRadixFrom values by a radix selection of Γ's float32
-// bits on the workers (internal/selection.Radix: the counts of each value
-// of the top 16 bits, then of the low 16 bits in the buckets that hold the
-// order statistics wanted), below it by selection in place
+// stats summarises the points in set, or every point when set is nil, on
+// the comparison's workers. Each worker takes consecutive parts of the
+// points (by rank in the set), counts them, sums Γ and copies it (float32)
+// into its own list; the parts' sums are added in order. The percentiles
+// come from the lists: from statsRadixFrom values by a radix selection of
+// Γ's float32 bits on the workers (internal/selection.Radix: the counts of
+// each value of the top 16 bits, then of the low 16 bits in the buckets
+// that hold the order statistics wanted), below it by selection in place
 // (percentileSelect). Nothing depends on the worker count.
-func (r *Result) stats(indices []int32, all bool) Stats {
-	n := len(indices)
-	if all {
-		n = len(r.Status)
+func (r *Result) stats(set *volume.Runs) Stats {
+	n := len(r.Status)
+	if set != nil {
+		n = set.Len()
+	}
+	// ranges calls fn with the positions of ranks [lo, hi) of the points,
+	// as ranges of positions: one call per run of the set.
+	ranges := func(lo, hi int, fn func(a, b int)) {
+		if set == nil {
+			fn(lo, hi)
+			return
+		}
+		for run := range set.Ranked(lo, hi) {
+			fn(int(run.Start), int(run.End))
+		}
 	}
 	parts := make([]statsPart, (n+statsChunk-1)/statsChunk)
 	workers := r.workers
@@ -84,50 +101,19 @@ func (r *Result) stats(indices []int32, all bool) Stats {
 		// The list is made to size (the statuses counted first) rather
 		// than grown: growing it left twice its size to the collector.
 		size := 0
-		for i := lo * statsChunk; i < min(n, hi*statsChunk); i++ {
-			m := i
-			if !all {
-				m = int(indices[i])
+		ranges(lo*statsChunk, min(n, hi*statsChunk), func(a, b int) {
+			for _, st := range r.Status[a:b] {
+				if st == Evaluated || st == Capped {
+					size++
+				}
 			}
-			if st := r.Status[m]; st == Evaluated || st == Capped {
-				size++
-			}
-		}
+		})
 		list := make([]float32, 0, size)
 		for p := lo; p < hi; p++ {
 			pt := statsPart{max: float32(math.Inf(-1))}
-			for i := p * statsChunk; i < min(n, (p+1)*statsChunk); i++ {
-				m := i
-				if !all {
-					m = int(indices[i])
-				}
-				switch r.Status[m] {
-				case NotSelected:
-					pt.notSelected++
-					continue
-				case BelowThreshold:
-					pt.below++
-					continue
-				case Outside:
-					pt.outside++
-					continue
-				case Capped:
-					pt.capped++
-				case Evaluated:
-					if r.Gamma[m] <= 1 {
-						pt.passed++
-					}
-				default:
-					continue
-				}
-				g := r.Gamma[m]
-				pt.sum += float64(g)
-				if g > 1.5 {
-					pt.above++
-				}
-				pt.max = max(pt.max, g)
-				list = append(list, g)
-			}
+			ranges(p*statsChunk, min(n, (p+1)*statsChunk), func(a, b int) {
+				list = r.addStats(a, b, &pt, list)
+			})
 			parts[p] = pt
 		}
 		lists[w] = list
@@ -172,6 +158,40 @@ func (r *Result) stats(indices []int32, all bool) Stats {
 	lists = slices.DeleteFunc(lists, func(l []float32) bool { return l == nil })
 	s.Median, s.P95, s.P99 = radixPercentiles(lists, s.Evaluated)
 	return s
+}
+
+// addStats counts the points at positions [a, b) into pt and appends
+// their Γ to list, which it returns.
+func (r *Result) addStats(a, b int, pt *statsPart, list []float32) []float32 {
+	for m := a; m < b; m++ {
+		switch r.Status[m] {
+		case NotSelected:
+			pt.notSelected++
+			continue
+		case BelowThreshold:
+			pt.below++
+			continue
+		case Outside:
+			pt.outside++
+			continue
+		case Capped:
+			pt.capped++
+		case Evaluated:
+			if r.Gamma[m] <= 1 {
+				pt.passed++
+			}
+		default:
+			continue
+		}
+		g := r.Gamma[m]
+		pt.sum += float64(g)
+		if g > 1.5 {
+			pt.above++
+		}
+		pt.max = max(pt.max, g)
+		list = append(list, g)
+	}
+	return list
 }
 
 // radixPercentiles returns the 50th, 95th and 99th percentiles (Hyndman and

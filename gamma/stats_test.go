@@ -5,6 +5,8 @@ import (
 	"math/rand/v2"
 	"slices"
 	"testing"
+
+	"voxgamma/volume"
 )
 
 // TestStatsRadix: the statistics of a set large enough for the radix
@@ -44,16 +46,18 @@ func TestStatsRadix(t *testing.T) {
 		for i := 0; i < c.n; i += 1 + rng.IntN(2) {
 			list = append(list, int32(i))
 		}
+		set := volume.RunsOf(list)
 		for _, over := range []struct {
 			name string
 			idx  []int32
 			all  bool
-		}{{"all", nil, true}, {"list", list, false}} {
+			set  *volume.Runs
+		}{{"all", nil, true, nil}, {"list", list, false, &set}} {
 			want := directStats(r, over.idx, over.all)
 			var first Stats
 			for k, w := range []int{1, 2, 3, 8} {
 				r.workers = w
-				got := r.stats(over.idx, over.all)
+				got := r.stats(over.set)
 				if k == 0 {
 					first = got
 				} else if !sameStats(got, first) {

@@ -610,7 +610,7 @@ func Write(o Outputs, out *analysis.Outcome, d *deid.Scope) (err error) {
 		if page == nil {
 			page = &report.Page{Result: r, Reference: out.Reference, Gamma: out.Gamma, Difference: out.Difference}
 			for _, reg := range out.Regions {
-				if len(reg.Centres) == 0 || reg.Number == 0 {
+				if reg.Centres.Len() == 0 || reg.Number == 0 {
 					continue
 				}
 				page.ROIs = append(page.ROIs, report.PageROI{Name: scrub(reg.Name), Mask: reg.Mask()})

@@ -30,8 +30,8 @@ func Union(name string, kind Kind, regions []*Region) (*Region, error) {
 			names += ", "
 		}
 		names += r.Name
-		u.Centres = unionInts(u.Centres, r.Centres)
-		u.Index, u.Fraction = unionMax(u.Index, u.Fraction, r.Index, r.Fraction)
+		u.Centres = volume.Union(&u.Centres, &r.Centres)
+		u.Cover = unionCover(&u.Cover, &r.Cover)
 		u.ContourCC += r.ContourCC
 		u.OutsideCC += r.OutsideCC
 	}
@@ -101,69 +101,39 @@ func Isodose(ref *volume.Grid, percent, norm float64, opt Options) (*Region, err
 	}
 	for n, v := range ref.Data {
 		if float64(v) >= level {
-			r.Centres = append(r.Centres, int32(n))
-			r.Index = append(r.Index, int32(n))
-			r.Fraction = append(r.Fraction, 1)
+			r.Centres.Add(int32(n))
+			r.Cover.add(int32(n), 1)
 		}
 	}
 	r.setBox()
 	return r, nil
 }
 
-// setBox recomputes Box from Centres and Index.
+// setBox recomputes Box from Centres and Cover.
 func (r *Region) setBox() {
 	r.Box = emptyBox()
 	d := r.grid.Dims()
-	for _, l := range [2][]int32{r.Centres, r.Index} {
-		for _, n32 := range l {
-			n := int(n32)
-			i := n % d[0]
-			m := n / d[0]
-			r.Box.add(i, m%d[1], m/d[1])
+	for _, set := range [2]*volume.Runs{&r.Centres, &r.Cover.Voxels} {
+		for _, run := range set.Runs() {
+			r.Box.addRun(run, d)
 		}
 	}
 }
 
-// unionInts merges two increasing lists without duplicates.
-func unionInts(a, b []int32) []int32 {
-	out := make([]int32, 0, len(a)+len(b))
-	i, j := 0, 0
-	for i < len(a) || j < len(b) {
-		switch {
-		case j == len(b) || (i < len(a) && a[i] < b[j]):
-			out = append(out, a[i])
-			i++
-		case i == len(a) || b[j] < a[i]:
-			out = append(out, b[j])
-			j++
-		default:
-			out = append(out, a[i])
-			i++
-			j++
-		}
+// addRun widens the box to the voxels of run, on a grid of dimensions d. A
+// run that spans rows covers every i; one that spans slices, every j.
+func (b *Box) addRun(run volume.Run, d [3]int) {
+	first, last := int(run.Start), int(run.End)-1
+	i0, r0 := first%d[0], first/d[0]
+	i1, r1 := last%d[0], last/d[0]
+	j0, k0 := r0%d[1], r0/d[1]
+	j1, k1 := r1%d[1], r1/d[1]
+	if r1 > r0 {
+		i0, i1 = 0, d[0]-1
 	}
-	return out
-}
-
-// unionMax merges two increasing index lists with their fractions, keeping
-// the larger fraction where both have the voxel.
-func unionMax(ia []int32, fa []float32, ib []int32, fb []float32) ([]int32, []float32) {
-	oi := make([]int32, 0, len(ia)+len(ib))
-	of := make([]float32, 0, len(ia)+len(ib))
-	i, j := 0, 0
-	for i < len(ia) || j < len(ib) {
-		switch {
-		case j == len(ib) || (i < len(ia) && ia[i] < ib[j]):
-			oi, of = append(oi, ia[i]), append(of, fa[i])
-			i++
-		case i == len(ia) || ib[j] < ia[i]:
-			oi, of = append(oi, ib[j]), append(of, fb[j])
-			j++
-		default:
-			oi, of = append(oi, ia[i]), append(of, max(fa[i], fb[j]))
-			i++
-			j++
-		}
+	if k1 > k0 {
+		j0, j1 = 0, d[1]-1
 	}
-	return oi, of
+	b.add(i0, j0, k0)
+	b.add(i1, j1, k1)
 }

@@ -40,23 +40,35 @@ func TestDerivedRegions(t *testing.T) {
 	a, b := regs[0], regs[1]
 	// Centre union: every centre of either, nothing else.
 	want := map[int32]bool{}
-	for _, n := range append(slices.Clone(a.Centres), b.Centres...) {
+	for _, n := range append(centreList(a), centreList(b)...) {
 		want[n] = true
 	}
-	if len(all.Centres) != len(want) || !slices.IsSorted(all.Centres) {
-		t.Errorf("union has %d centres, want %d, sorted %v", len(all.Centres), len(want), slices.IsSorted(all.Centres))
+	if got := centreList(all); len(got) != len(want) || !slices.IsSorted(got) {
+		t.Errorf("union has %d centres, want %d, sorted %v", len(got), len(want), slices.IsSorted(got))
+	}
+	for n := range want {
+		if !all.Centres.Contains(n) {
+			t.Fatalf("union lacks centre %d", n)
+		}
 	}
 	// Fractions: the maximum of the two; the union's volume is below the sum
 	// (they overlap) and above either.
 	fr := func(r *Region, n int32) float32 {
-		if q, ok := slices.BinarySearch(r.Index, n); ok {
-			return r.Fraction[q]
+		idx, f := coverLists(r)
+		if q, ok := slices.BinarySearch(idx, n); ok {
+			return f[q]
 		}
 		return 0
 	}
-	for q, n := range all.Index {
-		if all.Fraction[q] != max(fr(a, n), fr(b, n)) {
-			t.Fatalf("union fraction at %d is %g, members %g and %g", n, all.Fraction[q], fr(a, n), fr(b, n))
+	aIdx, _ := coverLists(a)
+	bIdx, _ := coverLists(b)
+	allIdx, allFr := coverLists(all)
+	if want := volume.RunsOf(append(aIdx, bIdx...)); want.Len() != len(allIdx) {
+		t.Errorf("union covers %d voxels, want %d", len(allIdx), want.Len())
+	}
+	for q, n := range allIdx {
+		if allFr[q] != max(fr(a, n), fr(b, n)) || all.Cover.Fraction(n) != allFr[q] {
+			t.Fatalf("union fraction at %d is %g (looked up %g), members %g and %g", n, allFr[q], all.Cover.Fraction(n), fr(a, n), fr(b, n))
 		}
 	}
 	va, vb, vu := a.VolumeCC(), b.VolumeCC(), all.VolumeCC()
@@ -95,7 +107,7 @@ func TestDerivedRegions(t *testing.T) {
 	}
 	r50 := 6 * math.Sqrt(2*math.Ln2)
 	for n, v := range g.Data {
-		_, in := slices.BinarySearch(iso.Centres, int32(n))
+		in := iso.Centres.Contains(int32(n))
 		if in != (v >= 30) {
 			t.Fatalf("isodose membership of voxel %d (dose %g) is %v", n, v, in)
 		}
@@ -115,7 +127,7 @@ func TestDerivedRegions(t *testing.T) {
 		t.Error("union across grids accepted")
 	}
 	m := all.Mask()
-	if m.Count() != len(all.Centres) {
-		t.Errorf("mask has %d voxels, centres %d", m.Count(), len(all.Centres))
+	if m.Count() != all.Centres.Len() {
+		t.Errorf("mask has %d voxels, centres %d", m.Count(), all.Centres.Len())
 	}
 }

@@ -55,30 +55,29 @@ func NewDVH(name string, dose, weight []float64) (*DVH, error) {
 	return b.finish()
 }
 
-// RegionDVH builds the DVH of dose over region r: each voxel of r.Index
+// RegionDVH builds the DVH of dose over region r: each voxel of r.Cover
 // weighs its fraction times its volume. dose must have the geometry of the
 // grid r was made on (resample it first otherwise).
 //
-// A body-sized region holds millions of voxels: the voxels are sorted as
-// one 8-byte key each (the dose's float32 bits, ordered, and the voxel's
-// place in the region), and the weights are read again from the region in
-// that order, so that the build takes 24 bytes a voxel at its peak (the
-// keys, Dose and Cum) where pairs of float64 took 32. The doses are the
-// grid's float32 values, so nothing is rounded; voxels of equal dose come
-// in the order of the region's index.
+// The voxels are sorted as one 8-byte key each (the dose's float32 bits,
+// ordered, and the voxel's position), and the weights are read again from
+// the region in that order, so that the build takes 24 bytes a voxel at its
+// peak (the keys, Dose and Cum) where pairs of float64 took 32. The doses
+// are the grid's float32 values, so nothing is rounded; voxels of equal
+// dose come in the order of their positions. RegionSummary summarises a
+// large region without sorting it.
 func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
 	if err := checkRegionDose(dose, r); err != nil {
 		return nil, err
 	}
 	h := &DVH{Name: r.Name}
-	weight := r.voxelCC
-	keys := make([]uint64, 0, len(r.Index))
-	for q, n := range r.Index {
+	keys := make([]uint64, 0, r.Cover.Len())
+	for n, f := range r.Cover.All() {
 		d := dose.Data[n]
-		if keep, err := h.admit(q, float64(d), weight(q)); err != nil {
+		if keep, err := h.admit(int(n), float64(d), r.voxelCC(n, f)); err != nil {
 			return nil, err
 		} else if keep {
-			keys = append(keys, uint64(descendingKey(d))<<32|uint64(q))
+			keys = append(keys, uint64(descendingKey(d))<<32|uint64(n))
 		}
 	}
 	if len(keys) == 0 {
@@ -91,7 +90,8 @@ func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
 	}
 	w := make([]float64, len(keys))
 	for m, k := range keys {
-		w[m] = weight(int(uint32(k)))
+		n := int32(uint32(k))
+		w[m] = r.voxelCC(n, r.Cover.Fraction(n))
 	}
 	keys = nil
 	h.summarise(w)

@@ -206,7 +206,7 @@ func TestRegionDVHGeometry(t *testing.T) {
 	for n := range g.Data {
 		g.Data[n] = 1
 	}
-	g.Data[reg.Index[0]] = float32(math.NaN())
+	g.Data[reg.Cover.Voxels.Runs()[0].Start] = float32(math.NaN())
 	h, err := RegionDVH(g, reg)
 	if err != nil {
 		t.Fatal(err)
@@ -280,9 +280,9 @@ func TestRegionDVHMatchesNewDVH(t *testing.T) {
 		t.Fatal(err)
 	}
 	var d, w []float64
-	for q, n := range reg.Index {
+	for n, f := range reg.Cover.All() {
 		d = append(d, float64(g.Data[n]))
-		w = append(w, float64(reg.Fraction[q])*reg.sizes.Volume(int(n))/1000)
+		w = append(w, float64(f)*reg.sizes.Volume(int(n))/1000)
 	}
 	want, err := NewDVH("PTV", d, w)
 	if err != nil {

@@ -67,3 +67,17 @@ func reversed(c structure.Contour) structure.Contour {
 }
 
 func relErr(got, want float64) float64 { return (got - want) / want }
+
+// centreList returns the positions of the region's centres, increasing.
+func centreList(r *Region) []int32 { return r.Centres.AppendTo(nil) }
+
+// coverLists returns the positions of the region's cover and their
+// fractions, increasing.
+func coverLists(r *Region) ([]int32, []float32) {
+	var idx []int32
+	var fr []float32
+	for n, f := range r.Cover.All() {
+		idx, fr = append(idx, n), append(fr, f)
+	}
+	return idx, fr
+}

@@ -71,9 +71,9 @@ func TestDVHAgainstNumpy(t *testing.T) {
 	}
 	reg := mustRasterise(t, g, &roi, Options{})
 	var d1, w1 []float64
-	for q, n := range reg.Index {
+	for n, f := range reg.Cover.All() {
 		d1 = append(d1, float64(g.Data[n]))
-		w1 = append(w1, float64(reg.Fraction[q])*reg.Sizes().Volume(int(n))/1000)
+		w1 = append(w1, float64(f)*reg.Sizes().Volume(int(n))/1000)
 	}
 	d2, w2 := randomDVHInput(200_000, 11)
 

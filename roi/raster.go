@@ -349,25 +349,6 @@ func indexable(g *volume.Grid) error {
 	return nil
 }
 
-// expectedVoxels estimates how many voxels the ROI's centres will cover:
-// the volume its contours enclose inside the grid (measure) over the
-// grid's mean voxel volume. It sizes the region's lists once (reserve)
-// instead of letting them double: a body outline holds millions of voxels,
-// and each doubling leaves the old copy to the collector.
-func (z *Rasteriser) expectedVoxels(reg *Region) int {
-	vox := 1.0
-	for a := range z.ax {
-		ax := &z.ax[a]
-		vox *= (ax.extHi - ax.extLo) / float64(len(ax.centre))
-	}
-	n := (reg.ContourCC - reg.OutsideCC) * 1000 / vox
-	d := z.grid.Dims()
-	if !(n > 0) || n > float64(d[0]*d[1]*d[2]) {
-		return 0
-	}
-	return int(n)
-}
-
 // planeRaster is the in-plane rasterisation of one contour plane: the
 // number of inside sub-samples and the centre flag of each voxel (i, j) of
 // the plane's index box. It depends on the plane only, so frames that share
@@ -487,7 +468,6 @@ func (z *Rasteriser) fill(planes []plane, reg *Region) {
 		return // entirely outside the grid in-plane
 	}
 	NI := I1 - I0 + 1
-	reg.reserve(z.expectedVoxels(reg))
 	acc := make([]float64, NI*(J1-J0+1))
 	cen := make([]bool, len(acc))
 	cache := &rasterCache{z: z, planes: planes}
@@ -560,12 +540,11 @@ func (z *Rasteriser) fill(planes []plane, reg *Region) {
 				a := row + i - I0
 				f, c := acc[a], cen[a]
 				if c {
-					reg.Centres = append(reg.Centres, int32(base+i))
+					reg.Centres.Add(int32(base + i))
 					reg.Box.add(i, j, k)
 				}
 				if f > 0 {
-					reg.Index = append(reg.Index, int32(base+i))
-					reg.Fraction = append(reg.Fraction, float32(math.Min(f, 1)))
+					reg.Cover.add(int32(base+i), float32(math.Min(f, 1)))
 					reg.Box.add(i, j, k)
 				}
 				acc[a], cen[a] = 0, false

@@ -46,7 +46,7 @@ func onPlanes(zs []float64, make func(z float64) []structure.Contour) structure.
 // frameCount returns the number of centre voxels in frame k.
 func frameCount(g *volume.Grid, reg *Region, k int) int {
 	n := 0
-	for _, idx := range reg.Centres {
+	for idx := range reg.Centres.All() {
 		if _, _, kk := g.IJK(int(idx)); kk == k {
 			n++
 		}
@@ -56,7 +56,7 @@ func frameCount(g *volume.Grid, reg *Region, k int) int {
 
 // insideAt reports whether the centre of voxel (i, j, k) is in the region.
 func insideAt(g *volume.Grid, reg *Region, i, j, k int) bool {
-	_, ok := slices.BinarySearch(reg.Centres, int32(g.Index(i, j, k)))
+	ok := reg.Centres.Contains(int32(g.Index(i, j, k)))
 	return ok
 }
 
@@ -84,12 +84,13 @@ func TestEvenOddHole(t *testing.T) {
 	if v := reg.VolumeCC() * 1000; math.Abs(v-4000) > 1e-6 {
 		t.Errorf("volume %g mm³, want 4000", v)
 	}
-	for q, f := range reg.Fraction {
+	idx, fr := coverLists(reg)
+	for q, f := range fr {
 		if f != 1 {
-			t.Fatalf("voxel %d has fraction %g, want 1", reg.Index[q], f)
+			t.Fatalf("voxel %d has fraction %g, want 1", idx[q], f)
 		}
 	}
-	if !slices.Equal(reg.Index, reg.Centres) {
+	if !slices.Equal(idx, centreList(reg)) {
 		t.Error("fraction list and centre list differ for a voxel-aligned ROI")
 	}
 	if math.Abs(reg.ContourCC-4.0) > 1e-12 {
@@ -148,11 +149,13 @@ func TestOrientationIndependent(t *testing.T) {
 		regs = append(regs, mustRasterise(t, g, &r, Options{}))
 	}
 	for q := 1; q < len(regs); q++ {
-		if !slices.Equal(regs[q].Centres, regs[0].Centres) || !slices.Equal(regs[q].Index, regs[0].Index) || !slices.Equal(regs[q].Fraction, regs[0].Fraction) {
+		iq, fq := coverLists(regs[q])
+		i0, f0 := coverLists(regs[0])
+		if !slices.Equal(centreList(regs[q]), centreList(regs[0])) || !slices.Equal(iq, i0) || !slices.Equal(fq, f0) {
 			t.Errorf("orientation case %d gives a different region from the all-counter-clockwise case", q)
 		}
 	}
-	if len(regs[0].Centres) == 0 {
+	if regs[0].Centres.Len() == 0 {
 		t.Fatal("empty region")
 	}
 }
@@ -216,11 +219,12 @@ func TestPlaneRule(t *testing.T) {
 	// Fractions of the voxel (5, 5): frame −1 spans [−1.5, −0.5], half in;
 	// frame 5 spans [4.5, 5.5], half in; frame −2 and 6 out.
 	frac := func(k int) float64 {
-		q, ok := slices.BinarySearch(reg.Index, int32(g.Index(5, 5, k)))
+		idx, fr := coverLists(reg)
+		q, ok := slices.BinarySearch(idx, int32(g.Index(5, 5, k)))
 		if !ok {
 			return 0
 		}
-		return float64(reg.Fraction[q])
+		return float64(fr[q])
 	}
 	for k, want := range map[int]float64{1: 0, 2: 0.5, 3: 1, 7: 1, 8: 0.5, 9: 0} {
 		if f := frac(k); f != want {
@@ -302,11 +306,11 @@ func TestFlippedGrids(t *testing.T) {
 	collect := func(g *volume.Grid, reg *Region) (map[world]bool, map[world]float32) {
 		c := map[world]bool{}
 		f := map[world]float32{}
-		for _, n := range reg.Centres {
+		for n := range reg.Centres.All() {
 			c[key(g.WorldOf(g.IJK(int(n))))] = true
 		}
-		for q, n := range reg.Index {
-			f[key(g.WorldOf(g.IJK(int(n))))] = reg.Fraction[q]
+		for n, fn := range reg.Cover.All() {
+			f[key(g.WorldOf(g.IJK(int(n))))] = fn
 		}
 		return c, f
 	}
@@ -432,8 +436,8 @@ func TestSpecialROIs(t *testing.T) {
 	b := onPlanes([]float64{0, 1, 2, 3}, func(z float64) []structure.Contour { return []structure.Contour{square(8, 8, 18, 18, z)} })
 	ra, _ := z.Rasterise(&a, Target)
 	rb, _ := z.Rasterise(&b, OAR)
-	if !insideAt(g, ra, 10, 10, 1) || !insideAt(g, rb, 10, 10, 1) || len(ra.Centres) != 400 || len(rb.Centres) != 400 {
-		t.Errorf("overlapping ROIs: %d and %d centre voxels, shared voxel in both: %v %v", len(ra.Centres), len(rb.Centres), insideAt(g, ra, 10, 10, 1), insideAt(g, rb, 10, 10, 1))
+	if !insideAt(g, ra, 10, 10, 1) || !insideAt(g, rb, 10, 10, 1) || ra.Centres.Len() != 400 || rb.Centres.Len() != 400 {
+		t.Errorf("overlapping ROIs: %d and %d centre voxels, shared voxel in both: %v %v", ra.Centres.Len(), rb.Centres.Len(), insideAt(g, ra, 10, 10, 1), insideAt(g, rb, 10, 10, 1))
 	}
 	// A non-finite coordinate is an error naming the ROI.
 	bad := structure.ROI{Name: "Rectum", Number: 3, Contours: []structure.Contour{{Type: structure.ClosedPlanar, Points: [][3]float64{{1, 1, 1}, {math.NaN(), 1, 1}, {5, 5, 1}}}}}
@@ -625,7 +629,8 @@ func TestRegionListsTrimmed(t *testing.T) {
 		g := boxGrid(t, [3]float64{-22, -22, -22}, [3]float64{22, 22, 22}, [3]float64{1, 1, 1}, [3]float64{0.25, 0.25, 0.25})
 		reg := mustRasterise(t, g, &roi, Options{})
 		for name, lc := range map[string][2]int{
-			"Centres": {len(reg.Centres), cap(reg.Centres)}, "Index": {len(reg.Index), cap(reg.Index)}, "Fraction": {len(reg.Fraction), cap(reg.Fraction)},
+			"Centres": {len(reg.Centres.Runs()), cap(reg.Centres.Runs())}, "Cover": {len(reg.Cover.Voxels.Runs()), cap(reg.Cover.Voxels.Runs())},
+			"partial": {len(reg.Cover.partial), cap(reg.Cover.partial)}, "fraction": {len(reg.Cover.fraction), cap(reg.Cover.fraction)},
 		} {
 			if lc[0] == 0 || lc[1]-lc[0] > lc[0]/32 {
 				t.Errorf("radius %g: %s has length %d and capacity %d", radius, name, lc[0], lc[1])

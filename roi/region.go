@@ -6,7 +6,6 @@ package roi
 import (
 	"fmt"
 	"math"
-	"slices"
 	"strconv"
 	"strings"
 
@@ -74,7 +73,7 @@ type ContourOverlap struct {
 
 // Region is an ROI (or a derived region) on a particular dose grid: the
 // voxels whose centre is inside and the partial-volume fraction of every
-// voxel it touches. Index lists run in the order of the grid's Data.
+// voxel it touches, as sets of positions in the grid's Data.
 type Region struct {
 	// Name and Number of the ROI (Number 0 for derived regions).
 	Name   string
@@ -85,19 +84,15 @@ type Region struct {
 	// an isodose level, ...); empty for an ROI rasterised from contours.
 	Derived string
 
-	// Centres lists, increasing, the Data positions of the voxels whose
-	// centre is inside the ROI: the voxels that count for the ROI's pass
-	// rate. See also [Region.Mask]. Positions are int32 (4 bytes a voxel
-	// for a body outline's millions): a grid the rasteriser accepts has
-	// fewer than 2³¹ voxels.
-	Centres []int32
-	// Index lists, increasing, the Data positions of the voxels with a
-	// partial-volume fraction > 0, and Fraction their fractions in (0, 1].
-	// A voxel may have its centre inside and a fraction of 0 (a contour
-	// thinner than the sub-sample spacing) or the reverse.
-	Index    []int32
-	Fraction []float32
-	// Box bounds every voxel of Centres and Index.
+	// Centres holds the Data positions of the voxels whose centre is
+	// inside the ROI: the voxels that count for the ROI's pass rate. See
+	// also [Region.Mask].
+	Centres volume.Runs
+	// Cover holds the voxels with a partial-volume fraction > 0 and their
+	// fractions. A voxel may have its centre inside and a fraction of 0 (a
+	// contour thinner than the sub-sample spacing) or the reverse.
+	Cover Cover
+	// Box bounds every voxel of Centres and Cover.
 	Box Box
 
 	// NoContours is set when the ROI has no contour at all.
@@ -126,10 +121,10 @@ type Region struct {
 // are not used by the region).
 func (r *Region) Grid() *volume.Grid { return r.grid }
 
-// voxelCC returns the volume (cm³) that voxel q of the region's index
-// counts for: its fraction of its voxel's volume.
-func (r *Region) voxelCC(q int) float64 {
-	return float64(r.Fraction[q]) * r.sizes.Volume(int(r.Index[q])) / 1000
+// voxelCC returns the volume (cm³) that voxel n counts for with fraction
+// f: that fraction of its voxel's volume.
+func (r *Region) voxelCC(n int32, f float32) float64 {
+	return float64(f) * r.sizes.Volume(int(n)) / 1000
 }
 
 // Sizes returns the voxel sizes of the region's grid.
@@ -137,15 +132,17 @@ func (r *Region) Sizes() *VoxelSize { return r.sizes }
 
 // Empty reports whether no voxel has its centre inside and none has a
 // fraction > 0.
-func (r *Region) Empty() bool { return len(r.Centres) == 0 && len(r.Index) == 0 }
+func (r *Region) Empty() bool { return r.Centres.Len() == 0 && r.Cover.Len() == 0 }
 
 // Mask returns the centre mask as a volume.Mask over the region's grid (a
 // new full-size mask on each call). The region must have been made by this
 // package.
 func (r *Region) Mask() *volume.Mask {
 	m := volume.NewMask(r.grid)
-	for _, n := range r.Centres {
-		m.Bits[n] = true
+	for _, run := range r.Centres.Runs() {
+		for n := run.Start; n < run.End; n++ {
+			m.Bits[n] = true
+		}
 	}
 	return m
 }
@@ -154,8 +151,8 @@ func (r *Region) Mask() *volume.Mask {
 // volume.
 func (r *Region) VolumeCC() float64 {
 	var v float64
-	for q, n := range r.Index {
-		v += float64(r.Fraction[q]) * r.sizes.Volume(int(n))
+	for n, f := range r.Cover.All() {
+		v += float64(f) * r.sizes.Volume(int(n))
 	}
 	return v / 1000
 }
@@ -164,7 +161,7 @@ func (r *Region) VolumeCC() float64 {
 // inside.
 func (r *Region) CentreVolumeCC() float64 {
 	var v float64
-	for _, n := range r.Centres {
+	for n := range r.Centres.All() {
 		v += r.sizes.Volume(int(n))
 	}
 	return v / 1000
@@ -263,27 +260,11 @@ func (r *Region) OverlapSummary() []string {
 // maxListedPlanes bounds the planes OverlapSummary lists by z.
 const maxListedPlanes = 10
 
-// reserve gives the region's voxel lists room for about n voxels: the
-// centres n and a sixteenth more, the partial-volume voxels a fifth more
-// (the surface's voxels, partly inside, come on top of the centres). Only
-// capacity changes; more voxels than that simply grow the lists.
-func (r *Region) reserve(n int) {
-	if n <= 0 {
-		return
-	}
-	r.Centres = slices.Grow(r.Centres, n+n/16)
-	r.Index = slices.Grow(r.Index, n+n/5)
-	r.Fraction = slices.Grow(r.Fraction, n+n/5)
-}
-
-// trim gives back the room reserve left unused: a list with more than a
-// thirty-second of its length spare is copied to one of its own length (a
-// body outline's lists are held from rasterisation to the report, and their
-// spare room was a fifth of them).
+// trim gives back spare room in the region's lists, which are held from
+// rasterisation to the report.
 func (r *Region) trim() {
-	r.Centres = trimmed(r.Centres)
-	r.Index = trimmed(r.Index)
-	r.Fraction = trimmed(r.Fraction)
+	r.Centres.Trim()
+	r.Cover.trim()
 }
 
 // trimmed returns s, or a copy of it without spare capacity when s has

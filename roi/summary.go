@@ -51,7 +51,7 @@ func RegionSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth floa
 	if err := checkRegionDose(dose, r); err != nil {
 		return Summary{}, err
 	}
-	if len(r.Index) < radixFrom {
+	if r.Cover.Len() < radixFrom {
 		h, err := RegionDVH(dose, r)
 		if err != nil {
 			return Summary{}, err
@@ -71,9 +71,9 @@ func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float
 	var total, sumDW float64
 	lo, hi := math.Inf(1), math.Inf(-1)
 	kept := 0
-	for q, n := range r.Index {
-		d, w := dose.Data[n], r.voxelCC(q)
-		if keep, err := h.admit(q, float64(d), w); err != nil {
+	for n, f := range r.Cover.All() {
+		d, w := dose.Data[n], r.voxelCC(n, f)
+		if keep, err := h.admit(int(n), float64(d), w); err != nil {
 			return Summary{}, err
 		} else if !keep {
 			continue
@@ -111,8 +111,8 @@ func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float
 	s := Summary{}
 	var curve curveBins // without bins when the curve cannot be made
 	s.CurveErr = curve.init(h, binWidth)
-	for q, n := range r.Index {
-		d, w := dose.Data[n], r.voxelCC(q)
+	for n, f := range r.Cover.All() {
+		d, w := dose.Data[n], r.voxelCC(n, f)
 		if !(w > 0) || d != d { // left out in the first pass
 			continue
 		}

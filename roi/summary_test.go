@@ -68,7 +68,7 @@ func TestRegionSummaryMatchesDVH(t *testing.T) {
 				t.Fatalf("%s: %v, %v", name, err, s.CurveErr)
 			}
 			if small, err := RegionSummary(g, reg, vDoses, bin); err != nil || small.Metrics.Mean != want.Mean || small.Metrics.VolumeCC != want.VolumeCC || small.Curve.CC[0] != wantCurve.CC[0] {
-				t.Errorf("%s: RegionSummary of %d voxels: %v, mean %g, volume %g; want the sorted DVH's %g, %g", name, len(reg.Index), err, small.Metrics.Mean, small.Metrics.VolumeCC, want.Mean, want.VolumeCC)
+				t.Errorf("%s: RegionSummary of %d voxels: %v, mean %g, volume %g; want the sorted DVH's %g, %g", name, reg.Cover.Len(), err, small.Metrics.Mean, small.Metrics.VolumeCC, want.Mean, want.VolumeCC)
 			}
 			got := s.Metrics
 			tol := 1e-12 * want.VolumeCC
