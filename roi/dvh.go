@@ -60,24 +60,26 @@ func NewDVH(name string, dose, weight []float64) (*DVH, error) {
 // grid r was made on (resample it first otherwise).
 //
 // The voxels are sorted as one 8-byte key each (the dose's float32 bits,
-// ordered, and the voxel's position), and the weights are read again from
-// the region in that order, so that the build takes 24 bytes a voxel at its
-// peak (the keys, Dose and Cum) where pairs of float64 took 32. The doses
-// are the grid's float32 values, so nothing is rounded; voxels of equal
-// dose come in the order of their positions. RegionSummary summarises a
-// large region without sorting it.
+// ordered, and the voxel's rank in the region), and each voxel's weight is
+// kept by rank, so that the build takes 32 bytes a voxel at its peak (the
+// keys, the weights, Dose and Cum). The doses are the grid's float32
+// values, so nothing is rounded; voxels of equal dose come in the order of
+// their positions. RegionSummary summarises a large region without sorting
+// it, in a few megabytes.
 func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
 	if err := checkRegionDose(dose, r); err != nil {
 		return nil, err
 	}
 	h := &DVH{Name: r.Name}
 	keys := make([]uint64, 0, r.Cover.Len())
+	byRank := make([]float64, 0, r.Cover.Len())
 	for n, f := range r.Cover.All() {
-		d := dose.Data[n]
-		if keep, err := h.admit(int(n), float64(d), r.voxelCC(n, f)); err != nil {
+		d, w := dose.Data[n], r.voxelCC(n, f)
+		if keep, err := h.admit(int(n), float64(d), w); err != nil {
 			return nil, err
 		} else if keep {
-			keys = append(keys, uint64(descendingKey(d))<<32|uint64(n))
+			keys = append(keys, uint64(descendingKey(d))<<32|uint64(len(byRank)))
+			byRank = append(byRank, w)
 		}
 	}
 	if len(keys) == 0 {
@@ -85,15 +87,12 @@ func RegionDVH(dose *volume.Grid, r *Region) (*DVH, error) {
 	}
 	slices.Sort(keys)
 	h.Dose = make([]float64, len(keys))
-	for m, k := range keys {
-		h.Dose[m] = float64(doseOfKey(uint32(k >> 32)))
-	}
 	w := make([]float64, len(keys))
 	for m, k := range keys {
-		n := int32(uint32(k))
-		w[m] = r.voxelCC(n, r.Cover.Fraction(n))
+		h.Dose[m] = float64(doseOfKey(uint32(k >> 32)))
+		w[m] = byRank[uint32(k)]
 	}
-	keys = nil
+	keys, byRank = nil, nil
 	h.summarise(w)
 	return h, nil
 }
