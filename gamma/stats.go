@@ -207,8 +207,10 @@ func radixPercentiles(lists [][]float32, count int) (p50, p95, p99 float64) {
 		sels[w] = sel
 	})
 	sel := sels[0]
+	defer sel.Release()
 	for _, o := range sels[1:] {
 		sel.Merge(o)
+		o.Release()
 	}
 	// The order statistics each percentile interpolates between, ranks lo
 	// and lo+1 (0-based): rank k is the smallest key whose cumulative
@@ -235,6 +237,7 @@ func radixPercentiles(lists [][]float32, count int) (p50, p95, p99 float64) {
 	})
 	for _, o := range shards {
 		sel.MergeLow(o)
+		o.Release()
 	}
 	var out [3]float64
 	for i := range pcts {

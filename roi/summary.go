@@ -67,6 +67,7 @@ func RegionSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth floa
 func radixSummary(dose *volume.Grid, r *Region, vDoses []float64, binWidth float64) (Summary, error) {
 	h := &DVH{Name: r.Name}
 	sel := selection.NewRadix()
+	defer sel.Release()
 	vcc := make([]float64, len(vDoses))
 	var total, sumDW float64
 	lo, hi := math.Inf(1), math.Inf(-1)

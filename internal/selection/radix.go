@@ -1,6 +1,9 @@
 package selection
 
-import "math"
+import (
+	"math"
+	"sync"
+)
 
 // digitBits is the width of each of the two digits of a Radix's 32-bit
 // keys.
@@ -27,8 +30,35 @@ type Radix struct {
 	low            map[int][]float64
 }
 
-// NewRadix returns a Radix ready for its first pass.
-func NewRadix() *Radix { return &Radix{hist: make([]float64, 1<<digitBits)} }
+// NewRadix returns a Radix ready for its first pass. Release hands its
+// memory back for the next one.
+func NewRadix() *Radix { return &Radix{hist: digitCounts()} }
+
+// digits holds released 512 kB count arrays (*[]float64 of 2¹⁶ zeros):
+// a report summarises dozens of ROIs one after the other, and each
+// summary's arrays were garbage that grew the heap until the collector ran.
+var digits = sync.Pool{New: func() any {
+	s := make([]float64, 1<<digitBits)
+	return &s
+}}
+
+// digitCounts returns a zeroed array of counts for one digit.
+func digitCounts() []float64 { return *digits.Get().(*[]float64) }
+
+// Release hands s's count arrays back for reuse. s must not be used after.
+func (s *Radix) Release() {
+	put := func(l []float64) {
+		if l != nil {
+			clear(l)
+			digits.Put(&l)
+		}
+	}
+	put(s.hist)
+	for _, l := range s.low {
+		put(l)
+	}
+	*s = Radix{}
+}
 
 // Add takes key k with weight w in the first pass.
 func (s *Radix) Add(k uint32, w float64) { s.hist[k>>digitBits] += w }
@@ -54,7 +84,7 @@ func (s *Radix) Want(t float64) int {
 				s.low = map[int][]float64{}
 			}
 			if s.low[b] == nil {
-				s.low[b] = make([]float64, 1<<digitBits)
+				s.low[b] = digitCounts()
 			}
 			s.target = append(s.target, t)
 			s.bucket = append(s.bucket, b)
@@ -78,7 +108,7 @@ func (s *Radix) AddLow(k uint32, w float64) {
 func (s *Radix) Shard() *Radix {
 	o := &Radix{low: map[int][]float64{}}
 	for b := range s.low {
-		o.low[b] = make([]float64, 1<<digitBits)
+		o.low[b] = digitCounts()
 	}
 	return o
 }
