@@ -90,6 +90,43 @@ func TestRadixAgainstSort(t *testing.T) {
 				t.Fatalf("trial %d, threshold %g: key %#x from parts, want %#x", trial, th, got, k)
 			}
 		}
+		// The next trials take these arrays again (Release).
+		for _, s := range []*Radix{whole, parts, half, shard} {
+			s.Release()
+		}
+	}
+}
+
+// TestRadixReleased: the count arrays a released Radix hands back come
+// out of NewRadix, Want and Shard zeroed.
+func TestRadixReleased(t *testing.T) {
+	for round := 0; round < 4; round++ {
+		s := NewRadix()
+		for b := range s.hist {
+			if s.hist[b] != 0 {
+				t.Fatalf("round %d: a new Radix has count %g in bucket %d", round, s.hist[b], b)
+			}
+		}
+		for k := uint32(0); k < 1<<20; k += 997 {
+			s.Add(k*4099, 1)
+		}
+		s.Want(100)
+		o := s.Shard()
+		for _, r := range []*Radix{s, o} {
+			for b, l := range r.low {
+				for i, v := range l {
+					if v != 0 {
+						t.Fatalf("round %d: bucket %d's second digit %d starts at %g", round, b, i, v)
+					}
+				}
+			}
+		}
+		for k := uint32(0); k < 1<<20; k += 997 {
+			s.AddLow(k*4099, 1)
+			o.AddLow(k*4099, 1)
+		}
+		o.Release()
+		s.Release()
 	}
 }
 
