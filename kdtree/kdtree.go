@@ -64,12 +64,23 @@ type stackEntry struct {
 // Build panics if len(coords)%4 != 0, or if n exceeds MaxPoints.
 func Build(coords []float32, doseWeightHint float64) *Tree {
 	n := pointCount(len(coords))
+	return BuildFunc(n, func(i int) [4]float32 { return [4]float32(coords[4*i : 4*i+4]) }, doseWeightHint)
+}
+
+// BuildFunc is Build over the n points at(0) … at(n−1) (x, y, z, dose),
+// each asked for once, in order: a caller that can compute its points
+// saves holding them twice while the tree is built. It panics if n exceeds
+// MaxPoints.
+func BuildFunc(n int, at func(i int) [4]float32, doseWeightHint float64) *Tree {
+	if n < 0 || n > MaxPoints {
+		panic(fmt.Sprintf("kdtree: Build: %d points, want 0 to %d (MaxPoints)", n, MaxPoints))
+	}
 	t := &Tree{n: n, pts: make([]point, n), idx: make([]int32, n)}
 	// Points with a NaN coordinate have a NaN distance to every query and
 	// can never be returned: leave them out of the tree.
 	m := 0
 	for i := range n {
-		p := point(coords[4*i : 4*i+4])
+		p := point(at(i))
 		if p[0] != p[0] || p[1] != p[1] || p[2] != p[2] || p[3] != p[3] {
 			continue
 		}
