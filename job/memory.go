@@ -20,11 +20,14 @@ import (
 const (
 	// EngineBytesPerReferenceVoxel: while the engine runs, the reference
 	// grid (4, float32), Γ per point (4, which the Γ map shares) and its
-	// status (1), and a margin of 12 for the ROIs (a body-sized ROI's
-	// centre and partial-volume positions and fractions, 12 bytes per ROI
-	// voxel), which the noise correction rasterises before its second
-	// comparison.
-	EngineBytesPerReferenceVoxel = 4 + 4 + 1 + 12
+	// status (1), and a margin of 2 for the ROIs, which the noise
+	// correction rasterises before its second comparison. An ROI is held
+	// as runs of voxels (12 bytes a run, about one a row of the grid that
+	// it crosses) and the fractions of its surface voxels (8 bytes each):
+	// a body outline on a 256-voxel-wide grid takes about 0.2 bytes a
+	// grid voxel, so the margin holds ten such ROIs; a structure set's
+	// small ROIs take far less each.
+	EngineBytesPerReferenceVoxel = 4 + 4 + 1 + 2
 	// EngineBytesPerEvaluatedVoxel: while the engine runs, the evaluated
 	// grid (4, float32), the cubic B-spline's padded coefficients (4,
 	// float32) and per-cell dose bounds (2, a byte each side), and a margin
@@ -43,10 +46,10 @@ const (
 	// reference grid (4, turned into the difference map in place once the
 	// ROIs' figures are made), the Γ values selected for one ROI's
 	// statistics (up to 4, for a body-sized ROI with every point above the
-	// threshold) and the ROIs' margin (12). The DVHs are summarised as they
+	// threshold) and the ROIs' margin (2). The DVHs are summarised as they
 	// are read, in a few megabytes (roi.RegionSummary), and the clusters
 	// label the failing points only.
-	AfterBytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 12
+	AfterBytesPerReferenceVoxel = 4 + 4 + 1 + 4 + 4 + 2
 	// AfterBytesPerEvaluatedVoxel: after the engine, the evaluated grid as
 	// read (4), which the report and sub-grid ROIs read again.
 	AfterBytesPerEvaluatedVoxel = 4
@@ -67,7 +70,7 @@ const (
 //
 //	max(EngineBytesPerReferenceVoxel·nr + EngineBytesPerEvaluatedVoxel·ne,
 //	    AfterBytesPerReferenceVoxel·nr + AfterBytesPerEvaluatedVoxel·ne) + FixedBytesPerCase
-//	= max(21·nr + 14·ne, 29·nr + 4·ne) + 16 MiB
+//	= max(11·nr + 14·ne, 19·nr + 4·ne) + 16 MiB
 //
 // It is an admission estimate of the live heap's peak with a body-sized
 // ROI, measured (BENCHMARKS.md, "Fast when it matters"); with small ROIs
