@@ -97,7 +97,10 @@
 // centre is inside when the frame's z lies in a plane's slab and the voxel's
 // (x, y) centre is inside that plane's polygons: these voxels count toward
 // the ROI's gamma pass rate ([Region.Centres], [Region.Mask]). Both are
-// stored sparsely, sorted by Data index, with a bounding box.
+// stored as runs of consecutive Data positions ([volume.Runs]), the
+// fractions only where they are below 1 ([Cover]), with a bounding box: a
+// body outline takes a few bytes per grid row it crosses and per surface
+// voxel, not per voxel.
 //
 // The part of the ROI outside the grid's extent (the union of its voxels) is
 // clipped; [Region.OutsideCC] measures it exactly as the contoured volume
