@@ -6,6 +6,7 @@ import (
 	"math"
 	"path/filepath"
 	"runtime"
+	"runtime/debug"
 	"strings"
 	"sync/atomic"
 	"testing"
@@ -277,6 +278,41 @@ func TestSubGridSizeCheck(t *testing.T) {
 		_, err = p.Run(context.Background(), set)
 		if !errors.Is(err, ErrBadInput) || !strings.Contains(err.Error(), "--subgrid-step") || !strings.Contains(err.Error(), "GTV_small") {
 			t.Errorf("step %g: error %v, want bad input naming --subgrid-step and the ROI", step, err)
+		}
+	}
+}
+
+// TestSubGridMemoryBudget: a sub-grid that would take the process beyond
+// the soft memory limit its command set (the budget) is refused as bad
+// input naming the ROI, the step and --max-memory; under a generous limit
+// the same case runs. (A project rule: the sub-grid's need is not in the
+// estimate made before the comparison.)
+func TestSubGridMemoryBudget(t *testing.T) {
+	ref := grid(t, [3]int{25, 25, 25}, [3]float64{-12, -12, -12}, 1, phantom.Uniform(20))
+	in := writeCase(t, ref, ref, []structure.ROI{sphereROI(t, "GTV_small", "GTV", 1, phantom.Sphere{Radius: 3})})
+	set := Settings{Criteria: gamma.Criteria{DosePercent: 3, DTA: 2, ThresholdPercent: 10}, SubGridROIs: []string{"GTV_small"}, SubGridStep: 0.5}
+	old := debug.SetMemoryLimit(-1)
+	defer debug.SetMemoryLimit(old)
+	for _, c := range []struct {
+		limit int64
+		ok    bool
+	}{{1 << 40, true}, {1, false}} {
+		l, err := Load(in)
+		if err != nil {
+			t.Fatal(err)
+		}
+		p, err := Prepare(l, set)
+		if err != nil {
+			t.Fatal(err)
+		}
+		debug.SetMemoryLimit(c.limit)
+		_, err = p.Run(context.Background(), set)
+		debug.SetMemoryLimit(old)
+		switch {
+		case c.ok && err != nil:
+			t.Errorf("limit %d: %v", c.limit, err)
+		case !c.ok && (!errors.Is(err, ErrBadInput) || !strings.Contains(err.Error(), "GTV_small") || !strings.Contains(err.Error(), "--max-memory") || !strings.Contains(err.Error(), "--subgrid-step 0.5")):
+			t.Errorf("limit %d: error %v, want bad input naming the ROI, the step and --max-memory", c.limit, err)
 		}
 	}
 }

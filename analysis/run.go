@@ -6,6 +6,7 @@ import (
 	"math"
 	"runtime"
 	"runtime/debug"
+	"runtime/metrics"
 	"sort"
 	"strings"
 	"time"
@@ -924,9 +925,47 @@ func commonCurves(r, e roi.Curve) *result.DVHCurves {
 	return c
 }
 
-// MaxSubGridPoints bounds the points of one ROI's sub-grid (about 70 bytes
-// each while it is evaluated).
+// MaxSubGridPoints bounds the points of one ROI's sub-grid.
 const MaxSubGridPoints = 50_000_000
+
+// What one ROI's sub-grid comparison takes (bytes), on top of what the
+// comparison already holds: per point its position and dose (32), Γ and
+// its status (5), its copy for the statistics (4) and a margin of 7 for
+// the k-d tree's nodes near it; per evaluated voxel a second spline of the
+// evaluated dose (4), its cell bounds (2) and the tree's margin (4), as in
+// job.EstimateBytes.
+const (
+	subGridBytesPerPoint          = 32 + 4 + 1 + 4 + 7
+	subGridBytesPerEvaluatedVoxel = 4 + 2 + 4
+)
+
+// checkSubGridMemory refuses a sub-grid of points points against eval when
+// it would take the process beyond its memory budget: the Go runtime's
+// soft memory limit, which every command sets to its budget (--max-memory,
+// or a share of the available memory). The sub-grid's need is not in the
+// estimate made from the dose headers before the comparison, which cannot
+// know the ROIs. No limit set (a library caller), no check.
+func checkSubGridMemory(name string, step float64, points int, eval *volume.Grid) error {
+	limit := debug.SetMemoryLimit(-1)
+	if limit == math.MaxInt64 {
+		return nil
+	}
+	need := int64(points)*subGridBytesPerPoint + int64(len(eval.Data))*subGridBytesPerEvaluatedVoxel
+	sample := []metrics.Sample{{Name: "/gc/heap/live:bytes"}}
+	metrics.Read(sample)
+	var live int64
+	if sample[0].Value.Kind() == metrics.KindUint64 {
+		live = int64(sample[0].Value.Uint64())
+	}
+	if live+need <= limit {
+		return nil
+	}
+	return fmt.Errorf("%w: --subgrid-step %g mm: ROI %q on its sub-grid (%d points) needs about %s of memory more, with %s in use, against a budget of %s (--max-memory, or 70 %% of the available memory); use a larger step or raise --max-memory",
+		ErrBadInput, step, name, points, mib(need), mib(live), mib(limit))
+}
+
+// mib formats a byte count in MiB.
+func mib(b int64) string { return fmt.Sprintf("%.0f MiB", float64(b)/(1<<20)) }
 
 // subGrid evaluates ROI src on a finer grid of reference points inside it,
 // against the evaluated dose eval:
@@ -978,6 +1017,9 @@ func (p *Prepared) subGrid(ctx context.Context, s Settings, src *structure.ROI, 
 	}
 	freg, err := z.Rasterise(src, reg.Kind)
 	if err != nil {
+		return gamma.Stats{}, 0, err
+	}
+	if err := checkSubGridMemory(src.Name, step, freg.Centres.Len(), eval); err != nil {
 		return gamma.Stats{}, 0, err
 	}
 	pts := make([]gamma.Point, 0, freg.Centres.Len())
