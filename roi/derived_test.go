@@ -2,6 +2,7 @@ package roi
 
 import (
 	"math"
+	"math/rand/v2"
 	"slices"
 	"testing"
 
@@ -129,5 +130,37 @@ func TestDerivedRegions(t *testing.T) {
 	m := all.Mask()
 	if m.Count() != all.Centres.Len() {
 		t.Errorf("mask has %d voxels, centres %d", m.Count(), all.Centres.Len())
+	}
+}
+
+// TestIsodoseBox: the bounding box of a region made from runs of positions
+// (setBox), whose runs may cross rows and slices, is the box of its voxels
+// found one by one. Doses random on a small grid; levels from sparse to
+// nearly all.
+func TestIsodoseBox(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 2))
+	g, err := volume.NewUniform([3]int{7, 5, 4}, [3]float64{}, [3]float64{1, 1, 1}, volume.Identity)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for trial := 0; trial < 300; trial++ {
+		for n := range g.Data {
+			g.Data[n] = float32(rng.Float64())
+		}
+		pct := 100 * rng.Float64()
+		iso, err := Isodose(g, pct, 1, Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		want := emptyBox()
+		for n, v := range g.Data {
+			if float64(v) >= pct/100 {
+				i, j, k := g.IJK(n)
+				want.add(i, j, k)
+			}
+		}
+		if iso.Box != want {
+			t.Fatalf("trial %d, level %g %%: box %+v, want %+v", trial, pct, iso.Box, want)
+		}
 	}
 }
