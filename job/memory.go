@@ -24,8 +24,8 @@ const (
 	// correction rasterises before its second comparison. An ROI is held
 	// as runs of voxels (12 bytes a run, about one a row of the grid that
 	// it crosses) and the fractions of its surface voxels (8 bytes each):
-	// a body outline on a 256-voxel-wide grid takes about 0.2 bytes a
-	// grid voxel, so the margin holds ten such ROIs; a structure set's
+	// a body outline on a 256-voxel-wide grid takes about 0.25 bytes a
+	// grid voxel, so the margin holds eight such ROIs; a structure set's
 	// small ROIs take far less each.
 	EngineBytesPerReferenceVoxel = 4 + 4 + 1 + 2
 	// EngineBytesPerEvaluatedVoxel: while the engine runs, the evaluated
