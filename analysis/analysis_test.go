@@ -297,16 +297,9 @@ func TestSubGridMemoryBudget(t *testing.T) {
 		limit int64
 		ok    bool
 	}{{1 << 40, true}, {1, false}} {
-		l, err := Load(in)
-		if err != nil {
-			t.Fatal(err)
-		}
-		p, err := Prepare(l, set)
-		if err != nil {
-			t.Fatal(err)
-		}
+		p := prepareCase(t, in, set)
 		debug.SetMemoryLimit(c.limit)
-		_, err = p.Run(context.Background(), set)
+		_, err := p.Run(context.Background(), set)
 		debug.SetMemoryLimit(old)
 		switch {
 		case c.ok && err != nil:
