@@ -2,7 +2,6 @@ package roi
 
 import (
 	"iter"
-	"sort"
 
 	"voxgamma/volume"
 )
@@ -51,17 +50,6 @@ func (c *Cover) All() iter.Seq2[int32, float32] {
 			}
 		}
 	}
-}
-
-// Fraction returns voxel n's fraction, 0 when n is not in the cover.
-func (c *Cover) Fraction(n int32) float32 {
-	if k := sort.Search(len(c.partial), func(k int) bool { return c.partial[k] >= n }); k < len(c.partial) && c.partial[k] == n {
-		return c.fraction[k]
-	}
-	if c.Voxels.Contains(n) {
-		return 1
-	}
-	return 0
 }
 
 // trim gives back spare room in the cover's lists.

@@ -49,11 +49,6 @@ func TestCoverAgainstList(t *testing.T) {
 		for q, p := range ia {
 			want[p] = fa[q]
 		}
-		for p := int32(-1); p <= int32(n); p++ {
-			if got := a.Fraction(p); got != want[p] {
-				t.Fatalf("Fraction(%d) = %g, want %g", p, got, want[p])
-			}
-		}
 		for q, p := range ib {
 			want[p] = max(want[p], fb[q])
 		}

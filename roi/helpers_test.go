@@ -2,6 +2,7 @@ package roi
 
 import (
 	"math"
+	"slices"
 	"testing"
 
 	"voxgamma/phantom"
@@ -69,7 +70,7 @@ func reversed(c structure.Contour) structure.Contour {
 func relErr(got, want float64) float64 { return (got - want) / want }
 
 // centreList returns the positions of the region's centres, increasing.
-func centreList(r *Region) []int32 { return r.Centres.AppendTo(nil) }
+func centreList(r *Region) []int32 { return slices.Collect(r.Centres.All()) }
 
 // coverLists returns the positions of the region's cover and their
 // fractions, increasing.

@@ -130,16 +130,6 @@ func (s *Runs) Ranked(lo, hi int) iter.Seq[Run] {
 	}
 }
 
-// AppendTo appends the positions, increasing, to dst and returns it.
-func (s *Runs) AppendTo(dst []int32) []int32 {
-	for _, r := range s.runs {
-		for n := r.Start; n < r.End; n++ {
-			dst = append(dst, n)
-		}
-	}
-	return dst
-}
-
 // Union returns the positions in a or in b.
 func Union(a, b *Runs) Runs {
 	var out Runs

@@ -37,14 +37,7 @@ func TestRunsAgainstList(t *testing.T) {
 		if s.Len() != len(list) {
 			t.Fatalf("Len %d, want %d", s.Len(), len(list))
 		}
-		if got := s.AppendTo(nil); !slices.Equal(got, list) {
-			t.Fatalf("AppendTo %v, want %v", got, list)
-		}
-		var all []int32
-		for p := range s.All() {
-			all = append(all, p)
-		}
-		if !slices.Equal(all, list) {
+		if all := slices.Collect(s.All()); !slices.Equal(all, list) {
 			t.Fatalf("All %v, want %v", all, list)
 		}
 		for r, run := range s.Runs() {
@@ -86,7 +79,7 @@ func TestRunsAgainstList(t *testing.T) {
 		slices.Sort(merged)
 		merged = slices.Compact(merged)
 		u := Union(&s, &o)
-		if got := u.AppendTo(nil); !slices.Equal(got, merged) || u.Len() != len(merged) {
+		if got := slices.Collect(u.All()); !slices.Equal(got, merged) || u.Len() != len(merged) {
 			t.Fatalf("Union %v (Len %d), want %v", got, u.Len(), merged)
 		}
 		shuffled := append(slices.Clone(list), other...)
