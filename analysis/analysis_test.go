@@ -261,7 +261,8 @@ func TestSubGrid(t *testing.T) {
 // overflow (issue 11, item 9): a step of 1e-12 mm asks for about 10^40
 // points, whose int product once wrapped past the limit into Go's fatal
 // "out of memory"; a step wider than the ROI leaves one point per axis.
-// Both are bad input naming the option and the ROI.
+// Both are bad input naming the option and the ROI, given by Prepare,
+// before any comparison runs.
 func TestSubGridSizeCheck(t *testing.T) {
 	ref := grid(t, [3]int{25, 25, 25}, [3]float64{-12, -12, -12}, 1, phantom.Uniform(20))
 	in := writeCase(t, ref, ref, []structure.ROI{sphereROI(t, "GTV_small", "GTV", 1, phantom.Sphere{Radius: 3})})
@@ -271,11 +272,7 @@ func TestSubGridSizeCheck(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		p, err := Prepare(l, set)
-		if err != nil {
-			t.Fatal(err)
-		}
-		_, err = p.Run(context.Background(), set)
+		_, err = Prepare(l, set)
 		if !errors.Is(err, ErrBadInput) || !strings.Contains(err.Error(), "--subgrid-step") || !strings.Contains(err.Error(), "GTV_small") {
 			t.Errorf("step %g: error %v, want bad input naming --subgrid-step and the ROI", step, err)
 		}
@@ -286,27 +283,43 @@ func TestSubGridSizeCheck(t *testing.T) {
 // the soft memory limit its command set (the budget) is refused as bad
 // input naming the ROI, the step and --max-memory; under a generous limit
 // the same case runs. (A project rule: the sub-grid's need is not in the
-// estimate made before the comparison.)
+// estimate made before the comparison.) The budget is checked when the
+// sub-grid is laid out, by Prepare, before the comparison runs, and again
+// when its own comparison starts, after the main one.
 func TestSubGridMemoryBudget(t *testing.T) {
 	ref := grid(t, [3]int{25, 25, 25}, [3]float64{-12, -12, -12}, 1, phantom.Uniform(20))
 	in := writeCase(t, ref, ref, []structure.ROI{sphereROI(t, "GTV_small", "GTV", 1, phantom.Sphere{Radius: 3})})
 	set := Settings{Criteria: gamma.Criteria{DosePercent: 3, DTA: 2, ThresholdPercent: 10}, SubGridROIs: []string{"GTV_small"}, SubGridStep: 0.5}
 	old := debug.SetMemoryLimit(-1)
 	defer debug.SetMemoryLimit(old)
+	refused := func(err error) bool {
+		return errors.Is(err, ErrBadInput) && strings.Contains(err.Error(), "GTV_small") && strings.Contains(err.Error(), "--max-memory") && strings.Contains(err.Error(), "--subgrid-step 0.5")
+	}
 	for _, c := range []struct {
-		limit int64
-		ok    bool
-	}{{1 << 40, true}, {1, false}} {
+		prepare, run int64 // the limits while preparing and running
+		ok           bool
+	}{{1 << 40, 1 << 40, true}, {1 << 40, 1, false}} {
 		p := prepareCase(t, in, set)
-		debug.SetMemoryLimit(c.limit)
+		debug.SetMemoryLimit(c.run)
 		_, err := p.Run(context.Background(), set)
 		debug.SetMemoryLimit(old)
 		switch {
 		case c.ok && err != nil:
-			t.Errorf("limit %d: %v", c.limit, err)
-		case !c.ok && (!errors.Is(err, ErrBadInput) || !strings.Contains(err.Error(), "GTV_small") || !strings.Contains(err.Error(), "--max-memory") || !strings.Contains(err.Error(), "--subgrid-step 0.5")):
-			t.Errorf("limit %d: error %v, want bad input naming the ROI, the step and --max-memory", c.limit, err)
+			t.Errorf("limit %d: %v", c.run, err)
+		case !c.ok && !refused(err):
+			t.Errorf("limit %d while running: error %v, want bad input naming the ROI, the step and --max-memory", c.run, err)
 		}
+	}
+	// Over the budget already when laid out: Prepare refuses.
+	l, err := Load(in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	debug.SetMemoryLimit(1)
+	_, err = Prepare(l, set)
+	debug.SetMemoryLimit(old)
+	if !refused(err) {
+		t.Errorf("limit 1 while preparing: error %v, want bad input naming the ROI, the step and --max-memory", err)
 	}
 }
 

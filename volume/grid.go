@@ -51,6 +51,11 @@ type Grid struct {
 // strictly monotonic; decreasing offsets flip the axis (see the package
 // documentation). New refuses oblique or non-orthogonal directions.
 func New(dims [3]int, origin [3]float64, direction [3][3]float64, offsets [3][]float64) (*Grid, error) {
+	return newGrid(dims, origin, direction, offsets, true)
+}
+
+// newGrid is [New], allocating the samples only when withData is set.
+func newGrid(dims [3]int, origin [3]float64, direction [3][3]float64, offsets [3][]float64, withData bool) (*Grid, error) {
 	g := &Grid{dims: dims, origin: origin}
 	n := 1
 	for a := 0; a < 3; a++ {
@@ -90,13 +95,21 @@ func New(dims [3]int, origin [3]float64, direction [3][3]float64, offsets [3][]f
 		g.offsets[a] = off
 		g.spacing[a] = uniformSpacing(off)
 	}
-	g.Data = make([]float32, n)
+	if withData {
+		g.Data = make([]float32, n)
+	}
 	return g, nil
 }
 
 // NewUniform returns a zero-filled grid with uniform spacing (mm, positive)
 // along each index axis. It is [New] with offsets 0, s, 2s, ...
 func NewUniform(dims [3]int, origin, spacing [3]float64, direction [3][3]float64) (*Grid, error) {
+	return newUniform(dims, origin, spacing, direction, true)
+}
+
+// newUniform is [NewUniform], allocating the samples only when withData is
+// set.
+func newUniform(dims [3]int, origin, spacing [3]float64, direction [3][3]float64, withData bool) (*Grid, error) {
 	var offsets [3][]float64
 	for a := 0; a < 3; a++ {
 		if !(spacing[a] > 0) || math.IsInf(spacing[a], 0) {
@@ -110,7 +123,15 @@ func NewUniform(dims [3]int, origin, spacing [3]float64, direction [3][3]float64
 			offsets[a][i] = float64(i) * spacing[a]
 		}
 	}
-	return New(dims, origin, direction, offsets)
+	return newGrid(dims, origin, direction, offsets, withData)
+}
+
+// NewUniformGeometry is [NewUniform] without samples: its Data is nil. It
+// places positions (Index, IJK, WorldOf, the rasterising of ROIs) where no
+// value is held at them, such as a lattice of reference points, without
+// allocating 4 bytes a position.
+func NewUniformGeometry(dims [3]int, origin, spacing [3]float64, direction [3][3]float64) (*Grid, error) {
+	return newUniform(dims, origin, spacing, direction, false)
 }
 
 // Identity is the direction cosine matrix of a grid whose i, j and k axes run
@@ -186,8 +207,9 @@ func uniformSpacing(off []float64) float64 {
 // Dims returns the number of samples along i, j and k.
 func (g *Grid) Dims() [3]int { return g.dims }
 
-// Len returns the number of samples, dims[0]·dims[1]·dims[2].
-func (g *Grid) Len() int { return len(g.Data) }
+// Len returns the number of positions, dims[0]·dims[1]·dims[2] (the
+// length of Data, unless the grid is a geometry without samples).
+func (g *Grid) Len() int { return g.dims[0] * g.dims[1] * g.dims[2] }
 
 // Origin returns the patient position (mm) of the centre of voxel (0,0,0).
 func (g *Grid) Origin() [3]float64 { return g.origin }

@@ -281,3 +281,34 @@ func TestMax(t *testing.T) {
 		t.Fatalf("Max = %g at %d", v, at)
 	}
 }
+
+// TestUniformGeometry: a geometry without samples places every position
+// where the same grid with samples does, and holds no samples.
+func TestUniformGeometry(t *testing.T) {
+	dims := [3]int{4, 3, 5}
+	origin := [3]float64{-7.5, 2.25, 10}
+	spacing := [3]float64{0.5, 0.5, 0.5}
+	full, err := NewUniform(dims, origin, spacing, Identity)
+	if err != nil {
+		t.Fatal(err)
+	}
+	geo, err := NewUniformGeometry(dims, origin, spacing, Identity)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if geo.Data != nil {
+		t.Fatalf("geometry holds %d samples, want none", len(geo.Data))
+	}
+	if geo.Len() != full.Len() || full.Len() != len(full.Data) {
+		t.Fatalf("Len %d (geometry), %d (grid of %d samples)", geo.Len(), full.Len(), len(full.Data))
+	}
+	for n := 0; n < full.Len(); n++ {
+		i, j, k := geo.IJK(n)
+		if fi, fj, fk := full.IJK(n); fi != i || fj != j || fk != k || geo.WorldOf(i, j, k) != full.WorldOf(i, j, k) {
+			t.Fatalf("position %d: geometry (%d,%d,%d) at %v, grid (%d,%d,%d) at %v", n, i, j, k, geo.WorldOf(i, j, k), fi, fj, fk, full.WorldOf(fi, fj, fk))
+		}
+	}
+	if _, err := NewUniformGeometry(dims, origin, [3]float64{0.5, 0, 0.5}, Identity); err == nil {
+		t.Fatal("a zero spacing was accepted")
+	}
+}
