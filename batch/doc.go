@@ -43,12 +43,12 @@
 // dose headers (dicomio.ReadDoseInfo: Rows × Columns × NumberOfFrames), see
 // [job.EstimateBytes]:
 //
-//	need = max(11·Nref + 14·Neval, 19·Nref + 4·Neval) + 16 MiB
+//	need = max(11·Nref + 13·Neval, 19·Nref + 4·Neval) + 16 MiB
 //
 // the larger of a comparison's two phases: while the engine runs (per
 // reference voxel the reference grid, Γ and its status, and a 2-byte margin
 // for the ROIs, held as runs of voxels; per evaluated voxel the grid, the spline's coefficients and
-// cell bounds, and a 4-byte k-d tree margin) and after it (per reference
+// cell bounds, and a 3-byte k-d tree margin) and after it (per reference
 // voxel the reference grid, Γ and its status, the resampled evaluated dose
 // that becomes the difference map, the Γ values of one ROI's statistics,
 // and the ROIs' margin; per evaluated voxel the grid).

@@ -357,7 +357,7 @@ func TestBatchMemoryBudget(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if n := int64(24 * 24 * 16); need != max(11*n+14*n, 19*n+4*n)+16<<20 {
+	if n := int64(24 * 24 * 16); need != max(11*n+13*n, 19*n+4*n)+16<<20 {
 		t.Errorf("estimate %d", need)
 	}
 	need2, _ := EstimateCase(c[1])

@@ -31,16 +31,19 @@ const (
 	// EngineBytesPerEvaluatedVoxel: while the engine runs, the evaluated
 	// grid (4, float32), the cubic B-spline's padded coefficients (4,
 	// float32) and per-cell dose bounds (2, a byte each side), and a margin
-	// of 4 for the k-d tree. The tree holds the evaluated nodes near the
-	// points that fail at home with no neighbour to start from (about 40
-	// bytes a node): under 1 byte an evaluated voxel on the sweep of
-	// BENCHMARKS.md, but a dose where most points were such would take
-	// more. The noise correction's maps (the smoothed dose, the denoised
+	// of 3 for the k-d tree. The tree holds the evaluated nodes near the
+	// points that fail at home with no neighbour to start from (25 bytes a
+	// node: its coordinates, index and split axis, and the list of nodes;
+	// and one bit an evaluated voxel to select them): 0.7 byte an
+	// evaluated voxel on the failing case of the sweep of BENCHMARKS.md
+	// (236 916 nodes of 10.6 M). The margin holds a tree over a ninth of
+	// the evaluated grid; a dose where most points fail at home with no
+	// neighbour would take more. The noise correction's maps (the smoothed dose, the denoised
 	// dose and its variance) are made between its two comparisons, when
 	// neither the engine's structures nor the ROIs' figures are held, and
 	// its second comparison lets go of the denoised dose once the engine
 	// has built its interpolant: its peak is that of one comparison.
-	EngineBytesPerEvaluatedVoxel = 4 + 4 + 2 + 4
+	EngineBytesPerEvaluatedVoxel = 4 + 4 + 2 + 3
 	// AfterBytesPerReferenceVoxel: after the engine, the reference grid
 	// (4), Γ (4) and its status (1), the evaluated dose resampled onto the
 	// reference grid (4, turned into the difference map in place once the
@@ -70,7 +73,7 @@ const (
 //
 //	max(EngineBytesPerReferenceVoxel·nr + EngineBytesPerEvaluatedVoxel·ne,
 //	    AfterBytesPerReferenceVoxel·nr + AfterBytesPerEvaluatedVoxel·ne) + FixedBytesPerCase
-//	= max(11·nr + 14·ne, 19·nr + 4·ne) + 16 MiB
+//	= max(11·nr + 13·ne, 19·nr + 4·ne) + 16 MiB
 //
 // It is an admission estimate of the live heap's peak with a body-sized
 // ROI, measured (BENCHMARKS.md, "Fast when it matters"); with small ROIs
