@@ -299,6 +299,7 @@ func TestSubGridMemoryBudget(t *testing.T) {
 		prepare, run int64 // the limits while preparing and running
 		ok           bool
 	}{{1 << 40, 1 << 40, true}, {1 << 40, 1, false}} {
+		debug.SetMemoryLimit(c.prepare)
 		p := prepareCase(t, in, set)
 		debug.SetMemoryLimit(c.run)
 		_, err := p.Run(context.Background(), set)

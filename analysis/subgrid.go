@@ -21,11 +21,11 @@ const MaxSubGridPoints = 50_000_000
 // comparison already holds: per point its position and dose (32), Γ and
 // its status (5), its copy for the statistics (4) and a margin of 7 for
 // the k-d tree's nodes near it; per evaluated voxel a second spline of the
-// evaluated dose (4), its cell bounds (2) and the tree's margin (4), as in
+// evaluated dose (4), its cell bounds (2) and the tree's margin (3), as in
 // job.EstimateBytes.
 const (
 	subGridBytesPerPoint          = 32 + 4 + 1 + 4 + 7
-	subGridBytesPerEvaluatedVoxel = 4 + 2 + 4
+	subGridBytesPerEvaluatedVoxel = 4 + 2 + 3
 )
 
 // subGridPlan is one ROI's sub-grid of reference points: the lattice of
