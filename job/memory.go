@@ -38,11 +38,12 @@ const (
 	// evaluated voxel on the failing case of the sweep of BENCHMARKS.md
 	// (236 916 nodes of 10.6 M). The margin holds a tree over a ninth of
 	// the evaluated grid; a dose where most points fail at home with no
-	// neighbour would take more. The noise correction's maps (the smoothed dose, the denoised
-	// dose and its variance) are made between its two comparisons, when
-	// neither the engine's structures nor the ROIs' figures are held, and
-	// its second comparison lets go of the denoised dose once the engine
-	// has built its interpolant: its peak is that of one comparison.
+	// neighbour would take more. The noise correction's maps (the
+	// smoothed dose, the denoised dose and its variance) are made between
+	// its two comparisons, when neither the engine's structures nor the
+	// ROIs' figures are held, and its second comparison lets go of the
+	// denoised dose once the engine has built its interpolant: its peak is
+	// that of one comparison.
 	EngineBytesPerEvaluatedVoxel = 4 + 4 + 2 + 3
 	// AfterBytesPerReferenceVoxel: after the engine, the reference grid
 	// (4), Γ (4) and its status (1), the evaluated dose resampled onto the
