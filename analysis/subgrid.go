@@ -54,7 +54,11 @@ func (p *Prepared) planSubGrids(s Settings) error {
 		if src == nil || !want[strings.ToLower(reg.Name)] || reg.Centres.Len() == 0 {
 			continue
 		}
-		if _, err := p.subGridPlan(s, src, reg); err != nil {
+		pl, err := p.subGridPlan(s, src, reg)
+		if err != nil {
+			return err
+		}
+		if err := checkSubGridMemory(src.Name, pl.step, pl.inside.Len(), p.Evaluated); err != nil {
 			return err
 		}
 	}
@@ -63,8 +67,8 @@ func (p *Prepared) planSubGrids(s Settings) error {
 
 // subGridPlan returns the sub-grid of ROI src (rasterised on the reference
 // grid as reg) at the step of s, laid out by planSubGrids or now. The
-// point count is checked before anything is allocated, and the points
-// inside the ROI against the memory budget.
+// point count is checked before anything is allocated; the memory budget
+// is checked by its callers, each at its own moment.
 func (p *Prepared) subGridPlan(s Settings, src *structure.ROI, reg *roi.Region) (*subGridPlan, error) {
 	step := s.SubGridStep
 	if step <= 0 {
@@ -114,9 +118,6 @@ func (p *Prepared) subGridPlan(s Settings, src *structure.ROI, reg *roi.Region) 
 	}
 	fine, err := z.Rasterise(src, reg.Kind)
 	if err != nil {
-		return nil, err
-	}
-	if err := checkSubGridMemory(src.Name, step, fine.Centres.Len(), p.Evaluated); err != nil {
 		return nil, err
 	}
 	pl := &subGridPlan{step: step, lattice: lattice, inside: &fine.Centres}
